@@ -1,0 +1,384 @@
+//! Fitting and diagnostics (stages 3–5 joined): from read spectra and a
+//! reference set to per-sample results.
+//!
+//! In: a [`SpectraFile`], a [`ReferenceSet`] and [`FitOptions`]. Out: a
+//! [`FitReport`] with, per sample, concentrations cᵢ (mol/L) and their
+//! standard errors from the model
+//!
+//!     A(λ) = l·Σ εᵢ(λ)·cᵢ + b₀ + b₁·(λ − λ_mid),   cᵢ ≥ 0,
+//!
+//! blend ratios (mole and mass fractions), baseline terms, residual RMS
+//! (AU), R² and flags; plus run-level warnings. Spectra are solved in
+//! parallel across samples in fixed-size chunks and collected in input
+//! order, so output is identical whatever the thread count.
+
+use crate::error::{Error, Result};
+use crate::input::spectra::{Block, SpectraFile};
+use crate::preprocess::{self, Baseline};
+use crate::reference::ReferenceSet;
+use crate::solver::{Method, Prepared, Status};
+use rayon::prelude::*;
+use serde::{Deserialize, Serialize};
+
+/// Spectra solved together in one chunk (warm start runs within a chunk).
+/// Fixed, so results do not depend on the number of threads.
+pub const CHUNK: usize = 256;
+
+/// Above this absorbance (AU) readings are unreliable (stray light, too
+/// little light reaching the detector): common practice, no single source;
+/// the usual advice is to dilute and re-measure.
+pub const HIGH_ABSORBANCE_AU: f64 = 2.0;
+
+/// Below this peak absorbance (AU) a spectrum carries too little signal for
+/// a meaningful blend ratio (common practice, no source).
+pub const LOW_SIGNAL_AU: f64 = 0.01;
+
+/// Options of a fit.
+#[derive(Debug, Clone, Copy)]
+pub struct FitOptions {
+    /// Baseline terms fitted beside the components.
+    pub baseline: Baseline,
+    /// Wavelength window, nm (further restricts the common range).
+    pub window_nm: Option<(f64, f64)>,
+    /// Optical pathlength, cm.
+    pub pathlength_cm: f64,
+}
+
+impl Default for FitOptions {
+    fn default() -> Self {
+        FitOptions {
+            baseline: Baseline::Offset,
+            window_nm: None,
+            pathlength_cm: 1.0,
+        }
+    }
+}
+
+/// One component's result in one sample.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct ComponentResult {
+    /// Component name.
+    pub name: String,
+    /// Concentration, mol/L.
+    pub concentration_mol_per_l: f64,
+    /// Standard error of the concentration, mol/L.
+    pub std_error_mol_per_l: f64,
+    /// Concentration, mg/L (when the molar mass is known).
+    #[serde(skip_serializing_if = "Option::is_none", default)]
+    pub concentration_mg_per_l: Option<f64>,
+    /// Standard error, mg/L (when the molar mass is known).
+    #[serde(skip_serializing_if = "Option::is_none", default)]
+    pub std_error_mg_per_l: Option<f64>,
+    /// Mole fraction among the fitted components (blend ratio).
+    #[serde(skip_serializing_if = "Option::is_none", default)]
+    pub mole_fraction: Option<f64>,
+    /// Mass fraction among the fitted components (all molar masses known).
+    #[serde(skip_serializing_if = "Option::is_none", default)]
+    pub mass_fraction: Option<f64>,
+}
+
+/// Fitted baseline terms.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct BaselineResult {
+    /// Offset, AU, at `reference_nm`.
+    #[serde(skip_serializing_if = "Option::is_none", default)]
+    pub offset_au: Option<f64>,
+    /// Slope, AU/nm.
+    #[serde(skip_serializing_if = "Option::is_none", default)]
+    pub slope_au_per_nm: Option<f64>,
+    /// Wavelength at which the offset applies (centre of the range), nm.
+    pub reference_nm: f64,
+}
+
+/// The result for one sample.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct SampleResult {
+    /// Sample identifier.
+    pub sample: String,
+    /// One entry per component, in reference-set order.
+    pub components: Vec<ComponentResult>,
+    /// Residual root mean square, AU.
+    pub residual_rms: f64,
+    /// Coefficient of determination of the fit (absent for a flat spectrum).
+    pub r_squared: Option<f64>,
+    /// Baseline terms.
+    pub baseline: BaselineResult,
+    /// Wavelength range used, nm: [low, high].
+    pub range_nm: [f64; 2],
+    /// Number of wavelengths used.
+    pub n_points: usize,
+    /// Pathlength used, cm.
+    pub pathlength_cm: f64,
+    /// Solver method (`normal-equations` or `lawson-hanson`).
+    pub solver: String,
+    /// Flags raised for this sample.
+    pub flags: Vec<String>,
+}
+
+/// A sample that could not be fitted.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct FailedSample {
+    /// Sample identifier (as far as it could be read).
+    pub sample: String,
+    /// What went wrong.
+    pub error: String,
+}
+
+/// One sample's outcome, in input order.
+#[derive(Debug, Clone)]
+pub enum Outcome {
+    /// Fitted.
+    Fitted(SampleResult),
+    /// Not fitted.
+    Failed(FailedSample),
+}
+
+/// Everything a fit produced.
+#[derive(Debug, Clone)]
+pub struct FitReport {
+    /// Outcomes in input order.
+    pub outcomes: Vec<Outcome>,
+    /// Run-level warnings.
+    pub warnings: Vec<String>,
+    /// Names of the components, in column order.
+    pub component_names: Vec<String>,
+}
+
+impl FitReport {
+    /// Number of samples that failed.
+    pub fn n_failed(&self) -> usize {
+        self.outcomes
+            .iter()
+            .filter(|o| matches!(o, Outcome::Failed(_)))
+            .count()
+    }
+}
+
+/// Flags: the solver stopped at its iteration limit.
+pub const FLAG_ITERATION_LIMIT: &str = "solver-iteration-limit";
+/// Flags: some points in the range exceed [`HIGH_ABSORBANCE_AU`].
+pub const FLAG_HIGH_ABSORBANCE: &str = "high-absorbance";
+/// Flags: the peak absorbance is below [`LOW_SIGNAL_AU`].
+pub const FLAG_LOW_SIGNAL: &str = "low-signal";
+
+/// Fit every spectrum of a file.
+pub fn fit_file(
+    file: &SpectraFile,
+    refs: &ReferenceSet,
+    options: &FitOptions,
+) -> Result<FitReport> {
+    if !(options.pathlength_cm.is_finite() && options.pathlength_cm > 0.0) {
+        return Err(Error::Invalid(format!(
+            "pathlength {} cm: expected a positive number of cm",
+            options.pathlength_cm
+        )));
+    }
+    let mut slots: Vec<Option<Outcome>> = (0..file.n_samples).map(|_| None).collect();
+    let mut warnings = Vec::new();
+    for f in &file.failures {
+        slots[f.position] = Some(Outcome::Failed(FailedSample {
+            sample: f.sample.clone(),
+            error: f.error.to_string(),
+        }));
+    }
+    for block in &file.blocks {
+        match fit_block(block, refs, options, &mut warnings) {
+            Ok(results) => {
+                for (pos, r) in block.positions.iter().zip(results) {
+                    slots[*pos] = Some(r);
+                }
+            }
+            Err(e) => {
+                let msg = e.to_string();
+                for (pos, id) in block.positions.iter().zip(&block.ids) {
+                    slots[*pos] = Some(Outcome::Failed(FailedSample {
+                        sample: id.clone(),
+                        error: msg.clone(),
+                    }));
+                }
+            }
+        }
+    }
+    let outcomes = slots
+        .into_iter()
+        .map(|s| {
+            s.unwrap_or_else(|| {
+                Outcome::Failed(FailedSample {
+                    sample: String::new(),
+                    error: "sample was not processed".into(),
+                })
+            })
+        })
+        .collect();
+    Ok(FitReport {
+        outcomes,
+        warnings,
+        component_names: refs.names().iter().map(|s| s.to_string()).collect(),
+    })
+}
+
+/// A design and its prepared solver for one grid, reusable across spectra.
+pub struct Model {
+    /// The design (range, columns).
+    pub design: preprocess::Design,
+    /// The prepared solver.
+    pub prepared: Prepared,
+    molar_masses: Vec<Option<f64>>,
+    names: Vec<String>,
+}
+
+impl Model {
+    /// Build the model for a grid.
+    pub fn new(
+        grid: &crate::spectrum::Grid,
+        refs: &ReferenceSet,
+        options: &FitOptions,
+    ) -> Result<Self> {
+        let design = preprocess::design(grid, refs, options.baseline, options.window_nm)?;
+        let mut names: Vec<String> = refs.names().iter().map(|s| s.to_string()).collect();
+        names.push("baseline offset".into());
+        names.push("baseline slope".into());
+        names.truncate(design.n_columns());
+        let prepared = Prepared::new(
+            &design.columns,
+            design.n_points(),
+            design.n_columns(),
+            design.n_components,
+            &names,
+        )?;
+        Ok(Model {
+            design,
+            prepared,
+            molar_masses: refs
+                .components
+                .iter()
+                .map(|c| c.molar_mass_g_per_mol)
+                .collect(),
+            names: refs.names().iter().map(|s| s.to_string()).collect(),
+        })
+    }
+
+    /// A warning to show when this model was solved with the fallback.
+    pub fn method_warning(&self) -> Option<String> {
+        (self.prepared.method() == Method::LawsonHanson).then(|| {
+            let (lo, hi) = self.design.range_nm();
+            format!(
+                "the reference set is poorly conditioned over {lo}–{hi} nm (condition number {:.3e} after column scaling): solved with Lawson–Hanson on the full matrix instead of the normal equations; expect larger uncertainties",
+                self.prepared.condition()
+            )
+        })
+    }
+
+    /// Fit one full-grid spectrum (its absorbances on the model's grid).
+    pub fn fit_one(
+        &self,
+        sample: &str,
+        full_row: &[f64],
+        pathlength_cm: f64,
+        ws: &mut crate::solver::Workspace,
+    ) -> Outcome {
+        let d = &self.design;
+        let a = &full_row[d.start..d.end];
+        match self.prepared.solve(a, ws) {
+            Ok(sol) => Outcome::Fitted(self.assemble(sample, a, &sol, pathlength_cm)),
+            Err(e) => Outcome::Failed(FailedSample {
+                sample: sample.to_string(),
+                error: e.to_string(),
+            }),
+        }
+    }
+
+    fn assemble(
+        &self,
+        sample: &str,
+        a: &[f64],
+        sol: &crate::solver::Solution,
+        l_cm: f64,
+    ) -> SampleResult {
+        let d = &self.design;
+        let k = d.n_components;
+        let n = a.len();
+        let conc: Vec<f64> = sol.x[..k].iter().map(|x| x / l_cm).collect();
+        let se: Vec<f64> = sol.std_error[..k].iter().map(|s| s / l_cm).collect();
+        let total: f64 = conc.iter().sum();
+        let all_masses = self.molar_masses.iter().all(Option::is_some);
+        let mass_total: f64 = conc
+            .iter()
+            .zip(&self.molar_masses)
+            .map(|(c, m)| c * m.unwrap_or(0.0))
+            .sum();
+        let components = (0..k)
+            .map(|i| ComponentResult {
+                name: self.names[i].clone(),
+                concentration_mol_per_l: conc[i],
+                std_error_mol_per_l: se[i],
+                concentration_mg_per_l: self.molar_masses[i].map(|m| conc[i] * m * 1000.0),
+                std_error_mg_per_l: self.molar_masses[i].map(|m| se[i] * m * 1000.0),
+                mole_fraction: (total > 0.0).then(|| conc[i] / total),
+                mass_fraction: (all_masses && mass_total > 0.0)
+                    .then(|| conc[i] * self.molar_masses[i].unwrap_or(0.0) / mass_total),
+            })
+            .collect();
+        let baseline = BaselineResult {
+            offset_au: (d.baseline.n_terms() >= 1).then(|| sol.x[k]),
+            slope_au_per_nm: (d.baseline.n_terms() == 2).then(|| sol.x[k + 1] / d.half_span_nm),
+            reference_nm: d.centre_nm,
+        };
+        let sum: f64 = a.iter().sum();
+        let aa: f64 = a.iter().map(|v| v * v).sum();
+        let sstot = aa - sum * sum / n as f64;
+        let r_squared = (sstot > 0.0 && sstot.is_finite()).then(|| 1.0 - sol.rss / sstot);
+        let peak = a.iter().fold(f64::NEG_INFINITY, |m, &v| m.max(v));
+        let mut flags = Vec::new();
+        if sol.status == Status::IterationLimit {
+            flags.push(FLAG_ITERATION_LIMIT.to_string());
+        }
+        if peak > HIGH_ABSORBANCE_AU {
+            flags.push(FLAG_HIGH_ABSORBANCE.to_string());
+        }
+        if peak < LOW_SIGNAL_AU {
+            flags.push(FLAG_LOW_SIGNAL.to_string());
+        }
+        let (lo, hi) = d.range_nm();
+        SampleResult {
+            sample: sample.to_string(),
+            components,
+            residual_rms: (sol.rss / n as f64).sqrt(),
+            r_squared,
+            baseline,
+            range_nm: [lo, hi],
+            n_points: n,
+            pathlength_cm: l_cm,
+            solver: self.prepared.method().name().to_string(),
+            flags,
+        }
+    }
+}
+
+fn fit_block(
+    block: &Block,
+    refs: &ReferenceSet,
+    options: &FitOptions,
+    warnings: &mut Vec<String>,
+) -> Result<Vec<Outcome>> {
+    let model = Model::new(&block.grid, refs, options)?;
+    if let Some(w) = model.method_warning()
+        && !warnings.contains(&w)
+    {
+        warnings.push(w);
+    }
+    let idx: Vec<usize> = (0..block.len()).collect();
+    let out: Vec<Vec<Outcome>> = idx
+        .par_chunks(CHUNK)
+        .map(|chunk| {
+            let mut ws = model.prepared.workspace();
+            chunk
+                .iter()
+                .map(|&i| {
+                    model.fit_one(&block.ids[i], block.row(i), options.pathlength_cm, &mut ws)
+                })
+                .collect()
+        })
+        .collect();
+    Ok(out.into_iter().flatten().collect())
+}

@@ -1,0 +1,8 @@
+//! Input stage: parsers for everything a user hands the tool.
+//!
+//! In: bytes of CSV files. Out: validated spectra ([`spectra`]) and molar
+//! absorptivity tables ([`epsilon`]). Parsers never solve anything.
+
+pub mod epsilon;
+pub mod fields;
+pub mod spectra;

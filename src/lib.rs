@@ -1,0 +1,29 @@
+//! unblend: multicomponent analysis of UV-vis absorbance spectra.
+//!
+//! The engine fits each measured spectrum as an additive Beer–Lambert sum
+//!
+//!     A(λ) = l·Σ εᵢ(λ)·cᵢ + baseline(λ),   cᵢ ≥ 0,
+//!
+//! with non-negative least squares, and reports concentrations with their
+//! standard errors, blend ratios and fit diagnostics.
+//!
+//! Data flows one way through the modules:
+//! [`input`] (CSV parsers) → [`spectrum`] and [`reference`] (validated model)
+//! → [`preprocess`] (range, interpolation, baseline) → [`solver`] (NNLS) →
+//! [`fit`] (results and flags) → [`output`] (table, CSV, JSON).
+#![deny(clippy::float_cmp)]
+#![warn(missing_docs)]
+
+pub mod atomic;
+pub mod cli;
+pub mod dates;
+pub mod error;
+pub mod fit;
+pub mod input;
+pub mod output;
+pub mod preprocess;
+pub mod reference;
+pub mod solver;
+pub mod spectrum;
+
+pub use error::{Error, Result};

@@ -1,0 +1,321 @@
+//! Output (stage 6): render a [`FitReport`] as a terminal table, tidy CSV or
+//! JSON. Units are in every column name; concentrations in CSV and JSON are
+//! always mol/L (mg/L beside them where the molar mass is known).
+
+use crate::fit::{FailedSample, FitReport, Outcome, SampleResult};
+use rayon::prelude::*;
+use serde::{Deserialize, Serialize};
+use std::io::{self, Write};
+
+/// Output format.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum Format {
+    /// Aligned, human-readable table.
+    #[default]
+    Table,
+    /// Tidy CSV: one row per sample and component.
+    Csv,
+    /// JSON document.
+    Json,
+}
+
+/// The JSON document written by `fit --format json`.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+pub struct JsonReport {
+    /// Tool name and version.
+    pub tool: ToolInfo,
+    /// Component names in column order.
+    pub components: Vec<String>,
+    /// Fitted samples, in input order.
+    pub samples: Vec<SampleResult>,
+    /// Samples that could not be fitted, in input order.
+    pub failed: Vec<FailedSample>,
+    /// Run-level warnings.
+    pub warnings: Vec<String>,
+}
+
+/// Tool identification.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+pub struct ToolInfo {
+    /// Always `unblend`.
+    pub name: String,
+    /// Crate version.
+    pub version: String,
+}
+
+impl JsonReport {
+    /// Build the JSON document from a report.
+    pub fn from_report(report: &FitReport) -> Self {
+        let mut samples = Vec::new();
+        let mut failed = Vec::new();
+        for o in &report.outcomes {
+            match o {
+                Outcome::Fitted(s) => samples.push(s.clone()),
+                Outcome::Failed(f) => failed.push(f.clone()),
+            }
+        }
+        JsonReport {
+            tool: ToolInfo {
+                name: "unblend".into(),
+                version: env!("CARGO_PKG_VERSION").into(),
+            },
+            components: report.component_names.clone(),
+            samples,
+            failed,
+            warnings: report.warnings.clone(),
+        }
+    }
+}
+
+/// Write a report in a format.
+pub fn write(report: &FitReport, format: Format, w: &mut dyn Write) -> io::Result<()> {
+    match format {
+        Format::Table => write_table(report, w),
+        Format::Csv => write_csv(report, w),
+        Format::Json => {
+            serde_json::to_writer_pretty(&mut *w, &JsonReport::from_report(report))
+                .map_err(io::Error::other)?;
+            writeln!(w)
+        }
+    }
+}
+
+/// Column names of the tidy CSV.
+pub const CSV_HEADER: &str = "sample,component,concentration_mol_per_l,std_error_mol_per_l,concentration_mg_per_l,std_error_mg_per_l,mole_fraction,mass_fraction,baseline_offset_au,baseline_slope_au_per_nm,residual_rms_au,r_squared,range_low_nm,range_high_nm,n_points,pathlength_cm,solver,flags,error";
+
+/// Quote a CSV field when it needs it.
+pub fn csv_field(s: &str) -> std::borrow::Cow<'_, str> {
+    if s.contains([',', '"', '\n', '\r']) || s.starts_with(' ') || s.ends_with(' ') {
+        std::borrow::Cow::Owned(format!("\"{}\"", s.replace('"', "\"\"")))
+    } else {
+        std::borrow::Cow::Borrowed(s)
+    }
+}
+
+fn num(out: &mut String, v: f64) {
+    if v.is_finite() {
+        let mut b = ryu::Buffer::new();
+        out.push_str(b.format(v));
+    }
+}
+
+fn opt(out: &mut String, v: Option<f64>) {
+    if let Some(v) = v {
+        num(out, v);
+    }
+}
+
+fn csv_rows(o: &Outcome, out: &mut String) {
+    match o {
+        Outcome::Failed(f) => {
+            out.push_str(&csv_field(&f.sample));
+            out.push_str(&",".repeat(18));
+            out.push_str(&csv_field(&f.error));
+            out.push('\n');
+        }
+        Outcome::Fitted(s) => {
+            for c in &s.components {
+                out.push_str(&csv_field(&s.sample));
+                out.push(',');
+                out.push_str(&csv_field(&c.name));
+                out.push(',');
+                num(out, c.concentration_mol_per_l);
+                out.push(',');
+                num(out, c.std_error_mol_per_l);
+                out.push(',');
+                opt(out, c.concentration_mg_per_l);
+                out.push(',');
+                opt(out, c.std_error_mg_per_l);
+                out.push(',');
+                opt(out, c.mole_fraction);
+                out.push(',');
+                opt(out, c.mass_fraction);
+                out.push(',');
+                opt(out, s.baseline.offset_au);
+                out.push(',');
+                opt(out, s.baseline.slope_au_per_nm);
+                out.push(',');
+                num(out, s.residual_rms);
+                out.push(',');
+                opt(out, s.r_squared);
+                out.push(',');
+                num(out, s.range_nm[0]);
+                out.push(',');
+                num(out, s.range_nm[1]);
+                out.push(',');
+                out.push_str(&s.n_points.to_string());
+                out.push(',');
+                num(out, s.pathlength_cm);
+                out.push(',');
+                out.push_str(&s.solver);
+                out.push(',');
+                out.push_str(&s.flags.join(" "));
+                out.push_str(",\n");
+            }
+        }
+    }
+}
+
+/// Tidy CSV: one row per sample and component; a failed sample is one row
+/// with only its name and the `error` column.
+pub fn write_csv(report: &FitReport, w: &mut dyn Write) -> io::Result<()> {
+    writeln!(w, "{CSV_HEADER}")?;
+    let parts: Vec<String> = report
+        .outcomes
+        .par_chunks(1024)
+        .map(|chunk| {
+            let mut s = String::with_capacity(chunk.len() * 400);
+            for o in chunk {
+                csv_rows(o, &mut s);
+            }
+            s
+        })
+        .collect();
+    for p in parts {
+        w.write_all(p.as_bytes())?;
+    }
+    Ok(())
+}
+
+/// A concentration unit for display.
+#[derive(Debug, Clone, Copy)]
+pub struct DisplayUnit {
+    /// Label, e.g. `µmol/L`.
+    pub label: &'static str,
+    /// Multiply mol/L by this.
+    pub factor: f64,
+}
+
+/// Choose mol/L, mmol/L, µmol/L or nmol/L so typical values read 0.1–1000.
+pub fn display_unit(report: &FitReport) -> DisplayUnit {
+    let mut v: Vec<f64> = report
+        .outcomes
+        .iter()
+        .filter_map(|o| match o {
+            Outcome::Fitted(s) => Some(s),
+            Outcome::Failed(_) => None,
+        })
+        .flat_map(|s| s.components.iter().map(|c| c.concentration_mol_per_l))
+        .filter(|c| *c > 0.0)
+        .collect();
+    v.sort_by(f64::total_cmp);
+    let typical = v.get(v.len() / 2).copied().unwrap_or(1e-6);
+    let units = [
+        DisplayUnit {
+            label: "mol/L",
+            factor: 1.0,
+        },
+        DisplayUnit {
+            label: "mmol/L",
+            factor: 1e3,
+        },
+        DisplayUnit {
+            label: "µmol/L",
+            factor: 1e6,
+        },
+        DisplayUnit {
+            label: "nmol/L",
+            factor: 1e9,
+        },
+    ];
+    for u in units {
+        if typical * u.factor >= 0.1 {
+            return u;
+        }
+    }
+    units[3]
+}
+
+/// Aligned terminal table: one row per sample, concentrations ± standard
+/// error in one display unit, then residual, R² and flags.
+pub fn write_table(report: &FitReport, w: &mut dyn Write) -> io::Result<()> {
+    let unit = display_unit(report);
+    let mut header: Vec<String> = vec!["sample".into()];
+    for name in &report.component_names {
+        header.push(format!("{name} ({})", unit.label));
+    }
+    header.extend(["residual (mAU)".into(), "R²".into(), "flags".into()]);
+    let mut rows: Vec<Vec<String>> = Vec::new();
+    let mut errors: Vec<String> = Vec::new();
+    for o in &report.outcomes {
+        match o {
+            Outcome::Fitted(s) => {
+                let mut row = vec![s.sample.clone()];
+                for c in &s.components {
+                    row.push(format!(
+                        "{:.3} ± {:.3}",
+                        c.concentration_mol_per_l * unit.factor,
+                        c.std_error_mol_per_l * unit.factor
+                    ));
+                }
+                row.push(format!("{:.2}", s.residual_rms * 1000.0));
+                row.push(s.r_squared.map_or("-".into(), |r| format!("{r:.5}")));
+                row.push(if s.flags.is_empty() {
+                    "-".into()
+                } else {
+                    s.flags.join(" ")
+                });
+                rows.push(row);
+            }
+            Outcome::Failed(f) => {
+                let mut row = vec![f.sample.clone()];
+                row.extend(std::iter::repeat_n(
+                    "error".to_string(),
+                    report.component_names.len(),
+                ));
+                row.extend(["-".into(), "-".into(), "not fitted (see below)".into()]);
+                rows.push(row);
+                errors.push(format!("{}: {}", f.sample, f.error));
+            }
+        }
+    }
+    let ncol = header.len();
+    let mut width = vec![0usize; ncol];
+    for r in std::iter::once(&header).chain(rows.iter()) {
+        for (i, cell) in r.iter().enumerate() {
+            width[i] = width[i].max(cell.chars().count());
+        }
+    }
+    let line = |w: &mut dyn Write, r: &[String]| -> io::Result<()> {
+        let mut s = String::new();
+        for (i, cell) in r.iter().enumerate() {
+            let pad = width[i] - cell.chars().count();
+            if i == 0 || i == ncol - 1 {
+                s.push_str(cell);
+                if i != ncol - 1 {
+                    s.push_str(&" ".repeat(pad));
+                }
+            } else {
+                s.push_str(&" ".repeat(pad));
+                s.push_str(cell);
+            }
+            if i != ncol - 1 {
+                s.push_str("  ");
+            }
+        }
+        writeln!(w, "{}", s.trim_end())
+    };
+    line(w, &header)?;
+    let rule: Vec<String> = width.iter().map(|n| "-".repeat(*n)).collect();
+    line(w, &rule)?;
+    for r in &rows {
+        line(w, r)?;
+    }
+    if let Some(first) = report.outcomes.iter().find_map(|o| match o {
+        Outcome::Fitted(s) => Some(s),
+        Outcome::Failed(_) => None,
+    }) {
+        writeln!(
+            w,
+            "\nrange {}–{} nm, {} points, pathlength {} cm, solver {}; concentrations ± standard error",
+            first.range_nm[0], first.range_nm[1], first.n_points, first.pathlength_cm, first.solver
+        )?;
+    }
+    if !errors.is_empty() {
+        writeln!(w, "\nnot fitted:")?;
+        for e in errors {
+            writeln!(w, "  {e}")?;
+        }
+    }
+    Ok(())
+}

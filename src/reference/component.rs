@@ -1,0 +1,401 @@
+//! One reference component and its file format (`<name>.toml`).
+//!
+//! The format is TOML, versioned by `format_version`; readers accept unknown
+//! keys so later versions can add fields. Layout (version 1):
+//!
+//! ```text
+//! format = "unblend-component"
+//! format_version = 1
+//! name = "fjord-blue"
+//! molar_mass_g_per_mol = 792.9          # optional
+//! note = "..."                          # optional
+//! created = "2026-12-01"
+//! epsilon_unit = "L/(mol*cm)"
+//!
+//! [conditions]                          # free text, all optional
+//! solvent = "water"
+//! ph = "7.0"
+//! temperature = "25 °C"
+//!
+//! [source]
+//! kind = "imported"                     # or "calibration"
+//! file = "fjord-blue.csv"
+//! sha256 = "…"
+//!
+//! [absorptivity]
+//! # wavelength_nm, epsilon_l_per_mol_cm [, std_error_l_per_mol_cm]
+//! points = [
+//!   [400, 1234.5],
+//! ]
+//! ```
+
+use crate::error::{Error, Result};
+use crate::spectrum::Grid;
+use serde::{Deserialize, Serialize};
+
+/// The value of the `format` key.
+pub const FORMAT_NAME: &str = "unblend-component";
+/// The newest format version this build reads and writes.
+pub const FORMAT_VERSION: u32 = 1;
+
+/// Measurement conditions under which ε was determined (free text).
+#[derive(Debug, Clone, Default, Serialize, Deserialize, PartialEq)]
+pub struct Conditions {
+    /// Solvent or buffer.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub solvent: Option<String>,
+    /// pH.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub ph: Option<String>,
+    /// Temperature.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub temperature: Option<String>,
+}
+
+/// Where the ε curve came from.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct Source {
+    /// `imported` (from an ε table) or `calibration` (from standards).
+    pub kind: String,
+    /// The file the curve was made from, as given.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub file: Option<String>,
+    /// SHA-256 of that file, hex.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sha256: Option<String>,
+}
+
+/// A reference component: a named molar absorptivity curve with provenance.
+#[derive(Debug, Clone)]
+pub struct Component {
+    /// Identifier (file stem): letters, digits, `-`, `_`, `.`.
+    pub name: String,
+    /// Molar mass, g/mol, when known.
+    pub molar_mass_g_per_mol: Option<f64>,
+    /// Free-text note.
+    pub note: Option<String>,
+    /// Date the component was written (YYYY-MM-DD).
+    pub created: String,
+    /// Measurement conditions.
+    pub conditions: Conditions,
+    /// Provenance.
+    pub source: Source,
+    /// Wavelengths of the curve (ascending).
+    pub grid: Grid,
+    /// ε(λ), L·mol⁻¹·cm⁻¹.
+    pub epsilon_l_per_mol_cm: Vec<f64>,
+    /// Standard error of ε(λ), L·mol⁻¹·cm⁻¹, when known (calibration).
+    pub epsilon_std_error_l_per_mol_cm: Option<Vec<f64>>,
+    /// Extra tables this version does not interpret (kept on rewrite).
+    pub extra: toml::Table,
+}
+
+#[derive(Deserialize)]
+struct RawFile {
+    format: Option<String>,
+    format_version: Option<u32>,
+    name: Option<String>,
+    molar_mass_g_per_mol: Option<f64>,
+    note: Option<String>,
+    created: Option<String>,
+    epsilon_unit: Option<String>,
+    #[serde(default)]
+    conditions: Conditions,
+    source: Option<Source>,
+    absorptivity: Option<RawAbsorptivity>,
+    #[serde(flatten)]
+    extra: toml::Table,
+}
+
+#[derive(Deserialize)]
+struct RawAbsorptivity {
+    points: Vec<Vec<f64>>,
+}
+
+/// Check that a component name is usable as a file stem and an identifier.
+pub fn validate_name(name: &str) -> Result<()> {
+    let ok = !name.is_empty()
+        && name.len() <= 64
+        && name
+            .chars()
+            .all(|c| c.is_ascii_alphanumeric() || matches!(c, '-' | '_' | '.'))
+        && !name.starts_with('.');
+    if ok {
+        Ok(())
+    } else {
+        Err(Error::Invalid(format!(
+            "component name '{}': expected 1 to 64 letters, digits, '-', '_' or '.', not starting with '.'",
+            crate::error::shorten(name.as_bytes())
+        )))
+    }
+}
+
+impl Component {
+    /// Read a component from the text of its file. `path` is used in messages.
+    pub fn from_toml(text: &str, path: &str) -> Result<Self> {
+        let bad = |message: String| Error::ComponentFile {
+            path: path.to_string(),
+            message,
+        };
+        let raw: RawFile =
+            toml::from_str(text).map_err(|e| bad(e.to_string().trim_end().to_string()))?;
+        if raw.format.as_deref() != Some(FORMAT_NAME) {
+            return Err(bad(format!(
+                "expected `format = \"{FORMAT_NAME}\"` at the top"
+            )));
+        }
+        match raw.format_version {
+            Some(v) if v >= 1 && v <= FORMAT_VERSION => {}
+            Some(v) => {
+                return Err(bad(format!(
+                    "format_version {v} is newer than this unblend reads ({FORMAT_VERSION}): upgrade unblend"
+                )));
+            }
+            None => return Err(bad("missing `format_version`".into())),
+        }
+        let name = raw.name.ok_or_else(|| bad("missing `name`".into()))?;
+        validate_name(&name).map_err(|e| bad(e.to_string()))?;
+        if let Some(u) = raw.epsilon_unit.as_deref()
+            && u != "L/(mol*cm)"
+        {
+            return Err(bad(format!("epsilon_unit '{u}': expected \"L/(mol*cm)\"")));
+        }
+        if let Some(m) = raw.molar_mass_g_per_mol
+            && !(m.is_finite() && m > 0.0)
+        {
+            return Err(bad(format!(
+                "molar_mass_g_per_mol {m}: expected a positive number of g/mol"
+            )));
+        }
+        let source = raw
+            .source
+            .ok_or_else(|| bad("missing [source] table".into()))?;
+        let abs = raw
+            .absorptivity
+            .ok_or_else(|| bad("missing [absorptivity] table with `points`".into()))?;
+        let width = abs.points.first().map_or(0, Vec::len);
+        if abs.points.len() < 2 {
+            return Err(bad(
+                "[absorptivity] points: expected at least 2 points".into()
+            ));
+        }
+        if !(width == 2 || width == 3) {
+            return Err(bad(format!(
+                "[absorptivity] point 1 has {width} numbers: expected [wavelength_nm, epsilon] or [wavelength_nm, epsilon, std_error]"
+            )));
+        }
+        let mut w = Vec::with_capacity(abs.points.len());
+        let mut e = Vec::with_capacity(abs.points.len());
+        let mut se = Vec::new();
+        for (i, p) in abs.points.iter().enumerate() {
+            if p.len() != width {
+                return Err(bad(format!(
+                    "[absorptivity] point {} has {} numbers, the first has {width}",
+                    i + 1,
+                    p.len()
+                )));
+            }
+            if p.iter().any(|x| !x.is_finite()) || p[1] < 0.0 || (width == 3 && p[2] < 0.0) {
+                return Err(bad(format!(
+                    "[absorptivity] point {} ({:?}): expected finite values and ε ≥ 0",
+                    i + 1,
+                    p
+                )));
+            }
+            w.push(p[0]);
+            e.push(p[1]);
+            if width == 3 {
+                se.push(p[2]);
+            }
+        }
+        let grid = Grid::new(w).map_err(|x| bad(format!("[absorptivity]: {x}")))?;
+        if e.iter().all(|&x| x <= 0.0) {
+            return Err(bad(
+                "every ε value is zero: a reference must absorb somewhere".into(),
+            ));
+        }
+        Ok(Component {
+            name,
+            molar_mass_g_per_mol: raw.molar_mass_g_per_mol,
+            note: raw.note,
+            created: raw.created.unwrap_or_default(),
+            conditions: raw.conditions,
+            source,
+            grid,
+            epsilon_l_per_mol_cm: e,
+            epsilon_std_error_l_per_mol_cm: (width == 3).then_some(se),
+            extra: raw.extra,
+        })
+    }
+
+    /// Render the component in the file format.
+    pub fn to_toml(&self) -> String {
+        #[derive(Serialize)]
+        struct Head<'a> {
+            format: &'a str,
+            format_version: u32,
+            name: &'a str,
+            #[serde(skip_serializing_if = "Option::is_none")]
+            molar_mass_g_per_mol: Option<f64>,
+            #[serde(skip_serializing_if = "Option::is_none")]
+            note: Option<&'a str>,
+            created: &'a str,
+            epsilon_unit: &'a str,
+            conditions: &'a Conditions,
+            source: &'a Source,
+        }
+        let head = Head {
+            format: FORMAT_NAME,
+            format_version: FORMAT_VERSION,
+            name: &self.name,
+            molar_mass_g_per_mol: self.molar_mass_g_per_mol,
+            note: self.note.as_deref(),
+            created: &self.created,
+            epsilon_unit: "L/(mol*cm)",
+            conditions: &self.conditions,
+            source: &self.source,
+        };
+        let mut out = String::from(
+            "# unblend reference component: molar absorptivity curve and provenance\n",
+        );
+        out.push_str(&toml::to_string(&head).unwrap_or_default());
+        if !self.extra.is_empty() {
+            out.push('\n');
+            out.push_str(&toml::to_string(&self.extra).unwrap_or_default());
+        }
+        out.push_str("\n[absorptivity]\n");
+        if self.epsilon_std_error_l_per_mol_cm.is_some() {
+            out.push_str("# wavelength_nm, epsilon_l_per_mol_cm, std_error_l_per_mol_cm\n");
+        } else {
+            out.push_str("# wavelength_nm, epsilon_l_per_mol_cm\n");
+        }
+        out.push_str("points = [\n");
+        let w = self.grid.wavelengths_nm();
+        for i in 0..w.len() {
+            let (wl, eps) = (fmt_num(w[i]), fmt_num(self.epsilon_l_per_mol_cm[i]));
+            match &self.epsilon_std_error_l_per_mol_cm {
+                Some(se) => out.push_str(&format!("  [{wl}, {eps}, {}],\n", fmt_num(se[i]))),
+                None => out.push_str(&format!("  [{wl}, {eps}],\n")),
+            }
+        }
+        out.push_str("]\n");
+        out
+    }
+
+    /// Lowest and highest wavelength of the curve, nm.
+    pub fn range_nm(&self) -> (f64, f64) {
+        (self.grid.min_nm(), self.grid.max_nm())
+    }
+
+    /// ε linearly interpolated at `wavelength_nm`; `None` outside the curve.
+    pub fn epsilon_at(&self, wavelength_nm: f64) -> Option<f64> {
+        interpolate(
+            self.grid.wavelengths_nm(),
+            &self.epsilon_l_per_mol_cm,
+            wavelength_nm,
+        )
+    }
+}
+
+/// Linear interpolation of `ys` over ascending `xs` at `x`; `None` outside.
+pub fn interpolate(xs: &[f64], ys: &[f64], x: f64) -> Option<f64> {
+    let n = xs.len();
+    if n == 0 || x < xs[0] || x > xs[n - 1] {
+        return None;
+    }
+    let j = xs.partition_point(|&v| v < x);
+    if j < n && (xs[j] - x).abs() <= f64::EPSILON * x.abs() {
+        return Some(ys[j]);
+    }
+    if j == 0 {
+        return Some(ys[0]);
+    }
+    let (x0, x1, y0, y1) = (xs[j - 1], xs[j], ys[j - 1], ys[j]);
+    Some(y0 + (y1 - y0) * (x - x0) / (x1 - x0))
+}
+
+/// Format a float so TOML reads it back exactly: shortest round-trip form,
+/// always with a decimal point or exponent.
+fn fmt_num(v: f64) -> String {
+    let s = format!("{v}");
+    if s.contains(['.', 'e', 'E']) {
+        s
+    } else {
+        format!("{s}.0")
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn sample() -> Component {
+        Component {
+            name: "test-dye".into(),
+            molar_mass_g_per_mol: Some(500.25),
+            note: Some("a \"quoted\" note".into()),
+            created: "2026-12-01".into(),
+            conditions: Conditions {
+                solvent: Some("water".into()),
+                ..Default::default()
+            },
+            source: Source {
+                kind: "imported".into(),
+                file: Some("x.csv".into()),
+                sha256: Some("ab".into()),
+            },
+            grid: Grid::new(vec![400.0, 450.5, 500.0]).unwrap(),
+            epsilon_l_per_mol_cm: vec![0.0, 12345.678, 1e-3],
+            epsilon_std_error_l_per_mol_cm: None,
+            extra: toml::Table::new(),
+        }
+    }
+
+    #[test]
+    fn component_round_trips_through_its_file() {
+        let c = sample();
+        let text = c.to_toml();
+        let back = Component::from_toml(&text, "t.toml").unwrap();
+        assert_eq!(back.name, c.name);
+        assert_eq!(back.note, c.note);
+        assert_eq!(back.epsilon_l_per_mol_cm, c.epsilon_l_per_mol_cm);
+        assert_eq!(back.grid, c.grid);
+        assert_eq!(back.conditions, c.conditions);
+    }
+
+    #[test]
+    fn newer_format_version_is_refused() {
+        let text = sample()
+            .to_toml()
+            .replace("format_version = 1", "format_version = 9");
+        let e = Component::from_toml(&text, "t.toml").unwrap_err();
+        assert!(e.to_string().contains("newer"), "{e}");
+    }
+
+    #[test]
+    fn unknown_keys_are_kept() {
+        let text = sample()
+            .to_toml()
+            .replace("[absorptivity]", "[future]\nx = 1\n\n[absorptivity]");
+        let c = Component::from_toml(&text, "t.toml").unwrap();
+        assert!(c.extra.contains_key("future"));
+        assert!(c.to_toml().contains("[future]"));
+    }
+
+    #[test]
+    fn interpolation_is_linear_and_bounded() {
+        let xs = [400.0, 500.0];
+        let ys = [0.0, 10.0];
+        assert!((interpolate(&xs, &ys, 450.0).unwrap() - 5.0).abs() < 1e-12);
+        assert!(interpolate(&xs, &ys, 399.0).is_none());
+        assert!((interpolate(&xs, &ys, 500.0).unwrap() - 10.0).abs() < 1e-12);
+    }
+
+    #[test]
+    fn bad_names_are_rejected() {
+        assert!(validate_name("ok-name_1.2").is_ok());
+        assert!(validate_name("../etc").is_err());
+        assert!(validate_name("").is_err());
+        assert!(validate_name("a b").is_err());
+    }
+}

@@ -1,0 +1,312 @@
+//! Solver (stage 4): non-negative least squares with free baseline terms.
+//!
+//! Problem, for each spectrum a (n points) and a fixed design E (n × p):
+//!
+//!     minimise ‖E·x − a‖²  subject to  xⱼ ≥ 0 for component columns,
+//!                                      xⱼ free for baseline columns.
+//!
+//! Columns are scaled to unit length first (x is unscaled on the way out),
+//! so the conditioning the solver sees is that of the column-scaled matrix.
+//!
+//! Two methods, chosen once per design by [`Prepared::new`]:
+//! - [`Method::NormalEquations`]: the active-set algorithm of Lawson & Hanson
+//!   (*Solving Least Squares Problems*, 1974, ch. 23) run on the normal
+//!   equations EᵀE·x = Eᵀa, with EᵀE formed once per batch and each
+//!   spectrum reduced to Eᵀa and aᵀa in one pass (Bro & de Jong,
+//!   J. Chemometrics 11:393, 1997, "fast NNLS"). Cholesky factors of EᵀE
+//!   restricted to a passive set are cached per set; the passive set is
+//!   warm-started from the previous spectrum of the same chunk.
+//! - [`Method::LawsonHanson`]: forming EᵀE squares the condition number, so
+//!   when the column-scaled E is worse conditioned than
+//!   [`FALLBACK_CONDITION`], the `nnls` crate (Lawson–Hanson with Householder
+//!   transformations on the full matrix) solves instead, after the baseline
+//!   columns are projected out with a QR factorisation.
+//!
+//! Standard errors come from σ²·(EᵀE)⁻¹ restricted to the passive set (the
+//! variables not held at zero), with σ² = RSS / (n − |P|). A component held
+//! at zero gets the standard error it would have in the unconstrained model
+//! (σ² times the diagonal of the full inverse), a bound on what could hide
+//! below zero.
+
+mod fallback;
+mod normal;
+
+use crate::error::{Error, Result};
+use nalgebra::{DMatrix, SymmetricEigen};
+
+/// Above this condition number of the column-scaled design the normal
+/// equations (which square it) are not trusted and the orthogonal
+/// Lawson–Hanson path is used: 1e4 squared leaves about 8 significant digits.
+pub const FALLBACK_CONDITION: f64 = 1e4;
+
+/// Above this condition number the references cannot be told apart at all
+/// and fitting is refused.
+pub const DEGENERATE_CONDITION: f64 = 1e8;
+
+/// How a design is solved.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Method {
+    /// Active-set NNLS on the normal equations (fast).
+    NormalEquations,
+    /// Lawson–Hanson on the full matrix (the `nnls` crate), for poorly
+    /// conditioned designs.
+    LawsonHanson,
+}
+
+impl Method {
+    /// Name used in outputs.
+    pub fn name(self) -> &'static str {
+        match self {
+            Method::NormalEquations => "normal-equations",
+            Method::LawsonHanson => "lawson-hanson",
+        }
+    }
+}
+
+/// How a solve ended.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Status {
+    /// The optimality (KKT) conditions hold.
+    Converged,
+    /// The iteration limit was reached; the answer is the last iterate.
+    IterationLimit,
+}
+
+/// The answer for one spectrum, in the design's (unscaled) units.
+#[derive(Debug, Clone)]
+pub struct Solution {
+    /// Coefficients: components (≥ 0) then baseline terms.
+    pub x: Vec<f64>,
+    /// Standard error of each coefficient.
+    pub std_error: Vec<f64>,
+    /// Residual sum of squares ‖E·x − a‖².
+    pub rss: f64,
+    /// Number of variables not held at zero (components and baseline).
+    pub n_passive: usize,
+    /// How the solve ended.
+    pub status: Status,
+}
+
+/// A design made ready for solving many spectra.
+#[derive(Debug, Clone)]
+pub struct Prepared {
+    pub(crate) n: usize,
+    pub(crate) p: usize,
+    pub(crate) n_nonneg: usize,
+    /// Scaled columns, column-major (unit length).
+    pub(crate) columns: Vec<f64>,
+    /// Column norms (the scaling), one per column.
+    pub(crate) scale: Vec<f64>,
+    /// Gram matrix of the scaled columns, row-major p × p.
+    pub(crate) gram: Vec<f64>,
+    /// Diagonal of the inverse of the full scaled Gram matrix.
+    pub(crate) full_inverse_diag: Vec<f64>,
+    condition: f64,
+    method: Method,
+    fallback: Option<fallback::Projected>,
+}
+
+impl Prepared {
+    /// Prepare a column-major design of `p` columns of `n` points, the first
+    /// `n_nonneg` of them constrained to be non-negative. `names` label the
+    /// columns in error messages.
+    pub fn new(
+        columns: &[f64],
+        n: usize,
+        p: usize,
+        n_nonneg: usize,
+        names: &[String],
+    ) -> Result<Self> {
+        if n == 0 || p == 0 || columns.len() != n * p || n_nonneg > p || names.len() != p {
+            return Err(Error::Invalid(format!(
+                "solver given an inconsistent design ({n} points, {p} columns, {} values)",
+                columns.len()
+            )));
+        }
+        if n <= p {
+            return Err(Error::Degenerate(format!(
+                "{n} points for {p} unknowns: expected more points than unknowns"
+            )));
+        }
+        if columns.iter().any(|v| !v.is_finite()) {
+            return Err(Error::Invalid("design holds a non-finite value".into()));
+        }
+        let mut scale = Vec::with_capacity(p);
+        let mut scaled = Vec::with_capacity(n * p);
+        for j in 0..p {
+            let col = &columns[j * n..(j + 1) * n];
+            let norm = col.iter().map(|v| v * v).sum::<f64>().sqrt();
+            if !(norm > 0.0 && norm.is_finite()) {
+                return Err(Error::Degenerate(format!(
+                    "'{}' is zero at every wavelength used: it cannot be fitted over this range",
+                    names[j]
+                )));
+            }
+            scale.push(norm);
+            scaled.extend(col.iter().map(|v| v / norm));
+        }
+        let mut gram = vec![0.0; p * p];
+        for i in 0..p {
+            for j in i..p {
+                let g = normal::dot(&scaled[i * n..(i + 1) * n], &scaled[j * n..(j + 1) * n]);
+                gram[i * p + j] = g;
+                gram[j * p + i] = g;
+            }
+        }
+        let gm = DMatrix::from_row_slice(p, p, &gram);
+        let eig = SymmetricEigen::new(gm.clone());
+        let max = eig
+            .eigenvalues
+            .iter()
+            .cloned()
+            .fold(f64::NEG_INFINITY, f64::max);
+        let min = eig
+            .eigenvalues
+            .iter()
+            .cloned()
+            .fold(f64::INFINITY, f64::min);
+        let condition = if min > 0.0 {
+            (max / min).sqrt()
+        } else {
+            f64::INFINITY
+        };
+        if !(condition < DEGENERATE_CONDITION) {
+            let (a, b, cos) = most_similar_pair(&gram, p);
+            return Err(Error::Degenerate(format!(
+                "the model cannot tell '{}' and '{}' apart over this range (spectral similarity {:.6}, condition number {}): remove one, widen the range, or check the files",
+                names[a],
+                names[b],
+                cos,
+                if condition.is_finite() {
+                    format!("{condition:.3e}")
+                } else {
+                    "infinite".into()
+                }
+            )));
+        }
+        let full_inverse_diag = match gm.cholesky() {
+            Some(ch) => {
+                let inv = ch.inverse();
+                (0..p).map(|i| inv[(i, i)]).collect()
+            }
+            None => {
+                // Positive definite by the condition check above; recompute
+                // the diagonal from the eigen-decomposition if rounding says no.
+                (0..p)
+                    .map(|i| {
+                        (0..p)
+                            .map(|k| eig.eigenvectors[(i, k)].powi(2) / eig.eigenvalues[k])
+                            .sum()
+                    })
+                    .collect()
+            }
+        };
+        let method = if condition > FALLBACK_CONDITION {
+            Method::LawsonHanson
+        } else {
+            Method::NormalEquations
+        };
+        let fallback = match method {
+            Method::LawsonHanson => Some(fallback::Projected::new(&scaled, n, p, n_nonneg)),
+            Method::NormalEquations => None,
+        };
+        Ok(Prepared {
+            n,
+            p,
+            n_nonneg,
+            columns: scaled,
+            scale,
+            gram,
+            full_inverse_diag,
+            condition,
+            method,
+            fallback,
+        })
+    }
+
+    /// Condition number of the column-scaled design (2-norm).
+    pub fn condition(&self) -> f64 {
+        self.condition
+    }
+
+    /// The method that will be used.
+    pub fn method(&self) -> Method {
+        self.method
+    }
+
+    /// Number of points each spectrum must have.
+    pub fn n_points(&self) -> usize {
+        self.n
+    }
+
+    /// Cosine similarity of the two most similar component columns.
+    pub fn most_similar_components(&self) -> Option<(usize, usize, f64)> {
+        (self.n_nonneg >= 2).then(|| most_similar_pair(&self.gram, self.n_nonneg.min(self.p)))
+    }
+
+    /// A fresh per-thread workspace (factor cache, warm start).
+    pub fn workspace(&self) -> Workspace {
+        Workspace::new(self.p)
+    }
+
+    /// Solve one spectrum `a` (length [`Self::n_points`]).
+    pub fn solve(&self, a: &[f64], ws: &mut Workspace) -> Result<Solution> {
+        if a.len() != self.n {
+            return Err(Error::Invalid(format!(
+                "spectrum has {} points, the design {}",
+                a.len(),
+                self.n
+            )));
+        }
+        let (xs, rss, passive, status) = match &self.fallback {
+            None => normal::solve(self, a, ws)?,
+            Some(proj) => proj.solve(self, a)?,
+        };
+        let n_passive = passive.iter().filter(|&&b| b).count();
+        let dof = (self.n - n_passive).max(1) as f64;
+        let sigma2 = rss.max(0.0) / dof;
+        let inv_diag = match &self.fallback {
+            None => ws.inverse_diag(self, &passive)?,
+            Some(proj) => proj.inverse_diag(&passive)?,
+        };
+        let mut x = Vec::with_capacity(self.p);
+        let mut se = Vec::with_capacity(self.p);
+        for j in 0..self.p {
+            x.push(xs[j] / self.scale[j]);
+            let d = if passive[j] {
+                inv_diag[j]
+            } else {
+                self.full_inverse_diag[j]
+            };
+            se.push((sigma2 * d.max(0.0)).sqrt() / self.scale[j]);
+        }
+        if x.iter().chain(se.iter()).any(|v| !v.is_finite()) || !rss.is_finite() {
+            return Err(Error::Degenerate(
+                "the solver produced a non-finite value: the references or the spectrum are degenerate".into(),
+            ));
+        }
+        Ok(Solution {
+            x,
+            std_error: se,
+            rss: rss.max(0.0),
+            n_passive,
+            status,
+        })
+    }
+}
+
+pub use normal::Workspace;
+
+fn most_similar_pair(gram: &[f64], k: usize) -> (usize, usize, f64) {
+    let p = (gram.len() as f64).sqrt().round() as usize;
+    let mut best = (0, 1.min(k.saturating_sub(1)), f64::NEG_INFINITY);
+    for i in 0..k {
+        for j in i + 1..k {
+            let c = gram[i * p + j] / (gram[i * p + i] * gram[j * p + j]).sqrt();
+            if c > best.2 {
+                best = (i, j, c);
+            }
+        }
+    }
+    best
+}

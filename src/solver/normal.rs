@@ -1,0 +1,327 @@
+//! Active-set NNLS on the normal equations (Lawson & Hanson 1974, ch. 23;
+//! Bro & de Jong 1997), with always-passive free variables.
+//!
+//! Per spectrum: one fused pass forms r = Eᵀa and aᵀa; the active-set loop
+//! then works on the p × p Gram matrix only. Sub-problems G_PP·z = r_P are
+//! solved with Cholesky factors cached per passive set P (a bitmask), so a
+//! batch that keeps hitting the same few sets factors each once. The final
+//! answer is always computed from the cached factor of the final set, so it
+//! does not depend on the path taken (warm start or not): results are
+//! identical whatever the chunking or thread count.
+
+use super::{Prepared, Status};
+use crate::error::{Error, Result};
+use std::collections::HashMap;
+
+/// A Cholesky factor of G restricted to one passive set.
+#[derive(Debug, Clone)]
+struct Factor {
+    /// Indices of the passive variables, ascending.
+    idx: Vec<usize>,
+    /// Lower-triangular L (m × m, row-major) with L·Lᵀ = G_PP.
+    l: Vec<f64>,
+    /// Diagonal of G_PP⁻¹ placed at full indices (0 elsewhere).
+    inv_diag: Vec<f64>,
+}
+
+/// Per-thread scratch space: factor cache and warm start.
+#[derive(Debug)]
+pub struct Workspace {
+    small: Vec<Option<Box<Factor>>>,
+    large: HashMap<u64, Factor>,
+    last_mask: Option<u64>,
+    r: Vec<f64>,
+    x: Vec<f64>,
+    z: Vec<f64>,
+    tmp: Vec<f64>,
+}
+
+const SMALL_CACHE_BITS: usize = 14;
+
+impl Workspace {
+    pub(crate) fn new(p: usize) -> Self {
+        let small = if p <= SMALL_CACHE_BITS {
+            (0..(1usize << p)).map(|_| None).collect()
+        } else {
+            Vec::new()
+        };
+        Workspace {
+            small,
+            large: HashMap::new(),
+            last_mask: None,
+            r: vec![0.0; p],
+            x: vec![0.0; p],
+            z: vec![0.0; p],
+            tmp: vec![0.0; p],
+        }
+    }
+
+    /// Forget the warm start (the next solve starts cold).
+    pub fn reset_warm_start(&mut self) {
+        self.last_mask = None;
+    }
+
+    fn factor(&mut self, prep: &Prepared, mask: u64) -> Result<&Factor> {
+        if !self.small.is_empty() {
+            let slot = &mut self.small[mask as usize];
+            if slot.is_none() {
+                *slot = Some(Box::new(build_factor(prep, mask)?));
+            }
+            // Just filled above when it was empty.
+            return slot
+                .as_deref()
+                .ok_or_else(|| Error::Invalid("factor cache".into()));
+        }
+        if !self.large.contains_key(&mask) {
+            let f = build_factor(prep, mask)?;
+            self.large.insert(mask, f);
+        }
+        self.large
+            .get(&mask)
+            .ok_or_else(|| Error::Invalid("factor cache".into()))
+    }
+
+    /// Diagonal of G_PP⁻¹ for a passive set, at full indices.
+    pub(crate) fn inverse_diag(&mut self, prep: &Prepared, passive: &[bool]) -> Result<Vec<f64>> {
+        let mask = passive
+            .iter()
+            .enumerate()
+            .filter(|(_, b)| **b)
+            .fold(0u64, |m, (j, _)| m | (1 << j));
+        Ok(self.factor(prep, mask)?.inv_diag.clone())
+    }
+}
+
+fn build_factor(prep: &Prepared, mask: u64) -> Result<Factor> {
+    let p = prep.p;
+    let idx: Vec<usize> = (0..p).filter(|j| mask & (1 << j) != 0).collect();
+    let m = idx.len();
+    let mut l = vec![0.0; m * m];
+    for i in 0..m {
+        for j in 0..=i {
+            let mut s = prep.gram[idx[i] * p + idx[j]];
+            for k in 0..j {
+                s -= l[i * m + k] * l[j * m + k];
+            }
+            if i == j {
+                if !(s > 0.0) {
+                    return Err(Error::Degenerate(
+                        "the references are linearly dependent on this passive set".into(),
+                    ));
+                }
+                l[i * m + i] = s.sqrt();
+            } else {
+                l[i * m + j] = s / l[j * m + j];
+            }
+        }
+    }
+    // inv(G_PP) diagonal: column norms² of L⁻¹ (rows of L⁻ᵀ).
+    let mut linv = vec![0.0; m * m];
+    for col in 0..m {
+        for i in col..m {
+            let mut s = if i == col { 1.0 } else { 0.0 };
+            for k in col..i {
+                s -= l[i * m + k] * linv[k * m + col];
+            }
+            linv[i * m + col] = s / l[i * m + i];
+        }
+    }
+    let mut inv_diag = vec![0.0; p];
+    for (c, &j) in idx.iter().enumerate() {
+        inv_diag[j] = (c..m).map(|i| linv[i * m + c].powi(2)).sum();
+    }
+    Ok(Factor { idx, l, inv_diag })
+}
+
+/// Solve G_PP·z_P = r_P with a factor; z is zero outside P.
+fn back_solve(f: &Factor, r: &[f64], z: &mut [f64], tmp: &mut [f64]) {
+    let m = f.idx.len();
+    z.iter_mut().for_each(|v| *v = 0.0);
+    for i in 0..m {
+        let mut s = r[f.idx[i]];
+        for k in 0..i {
+            s -= f.l[i * m + k] * tmp[k];
+        }
+        tmp[i] = s / f.l[i * m + i];
+    }
+    for i in (0..m).rev() {
+        let mut s = tmp[i];
+        for k in i + 1..m {
+            s -= f.l[k * m + i] * tmp[k];
+        }
+        tmp[i] = s / f.l[i * m + i];
+    }
+    for (c, &j) in f.idx.iter().enumerate() {
+        z[j] = tmp[c];
+    }
+}
+
+/// Dot product with four accumulators (vectorises well).
+#[inline]
+pub(crate) fn dot(a: &[f64], b: &[f64]) -> f64 {
+    let n = a.len().min(b.len());
+    let (a, b) = (&a[..n], &b[..n]);
+    let mut acc = [0.0f64; 4];
+    let chunks = n / 4;
+    for c in 0..chunks {
+        let i = c * 4;
+        acc[0] += a[i] * b[i];
+        acc[1] += a[i + 1] * b[i + 1];
+        acc[2] += a[i + 2] * b[i + 2];
+        acc[3] += a[i + 3] * b[i + 3];
+    }
+    let mut s = (acc[0] + acc[1]) + (acc[2] + acc[3]);
+    for i in chunks * 4..n {
+        s += a[i] * b[i];
+    }
+    s
+}
+
+fn solve_mask(prep: &Prepared, ws: &mut Workspace, mask: u64) -> Result<()> {
+    if mask == 0 {
+        ws.z.iter_mut().for_each(|v| *v = 0.0);
+        return Ok(());
+    }
+    let mut r = std::mem::take(&mut ws.r);
+    let mut z = std::mem::take(&mut ws.z);
+    let mut tmp = std::mem::take(&mut ws.tmp);
+    let out = ws
+        .factor(prep, mask)
+        .map(|f| back_solve(f, &r, &mut z, &mut tmp));
+    std::mem::swap(&mut ws.r, &mut r);
+    std::mem::swap(&mut ws.z, &mut z);
+    std::mem::swap(&mut ws.tmp, &mut tmp);
+    out
+}
+
+/// Run the active-set method for one spectrum. Returns the scaled solution,
+/// RSS, the passive set and the status.
+pub(crate) fn solve(
+    prep: &Prepared,
+    a: &[f64],
+    ws: &mut Workspace,
+) -> Result<(Vec<f64>, f64, Vec<bool>, Status)> {
+    let (n, p, nn) = (prep.n, prep.p, prep.n_nonneg);
+    for j in 0..p {
+        ws.r[j] = dot(&prep.columns[j * n..(j + 1) * n], a);
+    }
+    let aa = dot(a, a);
+    let free_mask: u64 = (nn..p).fold(0, |m, j| m | (1 << j));
+    let nonneg_mask: u64 = (0..nn).fold(0, |m, j| m | (1 << j));
+    let rmax = ws.r.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+    let tol = 1e-12 * rmax.max(f64::MIN_POSITIVE);
+
+    // Start: the previous spectrum's passive set if it is feasible here,
+    // else only the free variables.
+    let mut mask = free_mask;
+    let mut started = false;
+    if let Some(warm) = ws.last_mask
+        && warm != free_mask
+    {
+        solve_mask(prep, ws, warm)?;
+        if (0..nn).all(|j| warm & (1 << j) == 0 || ws.z[j] > 0.0) {
+            mask = warm;
+            started = true;
+        }
+    }
+    if !started {
+        solve_mask(prep, ws, mask)?;
+    }
+    ws.x.copy_from_slice(&ws.z);
+
+    let max_iter = 3 * p + 10;
+    let mut status = Status::IterationLimit;
+    let mut blocked: u64 = 0;
+    for _ in 0..max_iter {
+        // Gradient of ½‖Ex−a‖² is −w with w = r − G·x.
+        let mut best: Option<(usize, f64)> = None;
+        for j in 0..nn {
+            let bit = 1u64 << j;
+            if mask & bit != 0 || blocked & bit != 0 {
+                continue;
+            }
+            let g = &prep.gram[j * p..(j + 1) * p];
+            let w = ws.r[j] - dot(g, &ws.x);
+            if w > tol && best.is_none_or(|(_, bw)| w > bw) {
+                best = Some((j, w));
+            }
+        }
+        let Some((t, _)) = best else {
+            status = Status::Converged;
+            break;
+        };
+        mask |= 1 << t;
+        solve_mask(prep, ws, mask)?;
+        if ws.z[t] <= 0.0 {
+            // Round-off: t cannot enter; try the next best candidate.
+            mask &= !(1 << t);
+            blocked |= 1 << t;
+            continue;
+        }
+        blocked = 0;
+        // Inner loop: step back until every passive non-negative z > 0.
+        for _ in 0..=p {
+            let infeasible: Vec<usize> = (0..nn)
+                .filter(|&j| mask & (1 << j) != 0 && ws.z[j] <= 0.0)
+                .collect();
+            if infeasible.is_empty() {
+                break;
+            }
+            let alpha = infeasible
+                .iter()
+                .map(|&j| ws.x[j] / (ws.x[j] - ws.z[j]))
+                .fold(f64::INFINITY, f64::min);
+            for j in 0..p {
+                ws.x[j] += alpha * (ws.z[j] - ws.x[j]);
+            }
+            for j in 0..nn {
+                if mask & (1 << j) != 0
+                    && ws.x[j] <= 1e-15 * ws.x.iter().fold(0.0f64, |m, v| m.max(v.abs()))
+                {
+                    mask &= !(1 << j);
+                    ws.x[j] = 0.0;
+                }
+            }
+            // Make sure every infeasible index found leaves the set.
+            for &j in &infeasible {
+                if (ws.x[j]).abs() <= 0.0 {
+                    mask &= !(1 << j);
+                }
+            }
+            solve_mask(prep, ws, mask)?;
+        }
+        ws.x.copy_from_slice(&ws.z);
+        for j in 0..nn {
+            if mask & (1 << j) == 0 {
+                ws.x[j] = 0.0;
+            }
+        }
+    }
+    // Final answer from the final set's factor (path independent).
+    solve_mask(prep, ws, mask)?;
+    for j in 0..nn {
+        if mask & (1 << j) != 0 && ws.z[j] < 0.0 {
+            ws.z[j] = 0.0;
+        }
+    }
+    let _ = nonneg_mask;
+    ws.last_mask = Some(mask);
+    let xr: f64 = (0..p).map(|j| ws.z[j] * ws.r[j]).sum();
+    let mut rss = aa - xr;
+    if rss < 1e-6 * aa {
+        // The Gram identity cancels badly for near-exact fits: recompute.
+        let mut s = 0.0;
+        for (i, &ai) in a.iter().enumerate() {
+            let mut fit = 0.0;
+            for j in 0..p {
+                if ws.z[j] != 0.0 {
+                    fit += prep.columns[j * n + i] * ws.z[j];
+                }
+            }
+            s += (ai - fit) * (ai - fit);
+        }
+        rss = s;
+    }
+    let passive: Vec<bool> = (0..p).map(|j| mask & (1 << j) != 0).collect();
+    Ok((ws.z.clone(), rss, passive, status))
+}
