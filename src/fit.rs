@@ -5,7 +5,9 @@
 //! [`FitReport`] with, per sample, concentrations cᵢ (mol/L) and their
 //! standard errors from the model
 //!
-//!     A(λ) = l·Σ εᵢ(λ)·cᵢ + b₀ + b₁·(λ − λ_mid),   cᵢ ≥ 0,
+//! ```text
+//! A(λ) = l·Σ εᵢ(λ)·cᵢ + b₀ + b₁·(λ − λ_mid),   cᵢ ≥ 0,
+//! ```
 //!
 //! blend ratios (mole and mass fractions), baseline terms, residual RMS
 //! (AU), R² and flags; plus run-level warnings. Spectra are solved in

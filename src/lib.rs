@@ -2,7 +2,9 @@
 //!
 //! The engine fits each measured spectrum as an additive Beer–Lambert sum
 //!
-//!     A(λ) = l·Σ εᵢ(λ)·cᵢ + baseline(λ),   cᵢ ≥ 0,
+//! ```text
+//! A(λ) = l·Σ εᵢ(λ)·cᵢ + baseline(λ),   cᵢ ≥ 0,
+//! ```
 //!
 //! with non-negative least squares, and reports concentrations with their
 //! standard errors, blend ratios and fit diagnostics.
@@ -12,6 +14,8 @@
 //! → [`preprocess`] (range, interpolation, baseline) → [`solver`] (NNLS) →
 //! [`fit`] (results and flags) → [`output`] (table, CSV, JSON).
 #![deny(clippy::float_cmp)]
+// Index loops read like the formulas they implement in the numeric code.
+#![allow(clippy::needless_range_loop)]
 #![warn(missing_docs)]
 
 pub mod atomic;

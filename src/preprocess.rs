@@ -3,7 +3,9 @@
 //! In: a sample wavelength [`Grid`], a [`ReferenceSet`], a baseline model and
 //! an optional wavelength window. Out: a [`Design`], the model matrix of
 //!
-//!     A(λ) = l·Σ εᵢ(λ)·cᵢ + b₀ + b₁·(λ − λ_mid)
+//! ```text
+//! A(λ) = l·Σ εᵢ(λ)·cᵢ + b₀ + b₁·(λ − λ_mid)
+//! ```
 //!
 //! over the points where the sample and every reference are defined. Columns
 //! hold εᵢ(λ) in L·mol⁻¹·cm⁻¹ (linearly interpolated from each curve), then a

@@ -152,8 +152,12 @@ pub fn read(bytes: &[u8], options: ReadOptions) -> Result<SpectraFile> {
     let Some((header_line, header_bytes, delimiter)) = header else {
         return Err(Error::Empty);
     };
+    // The body starts after the newline that ends the header line.
     let offset = header_bytes.as_ptr() as usize - bytes.as_ptr() as usize + header_bytes.len();
-    let body = &bytes[offset..];
+    let body = match memchr::memchr(b'\n', &bytes[offset..]) {
+        Some(i) => &bytes[offset + i + 1..],
+        None => &bytes[bytes.len()..],
+    };
     let mut raw = Vec::new();
     fields::split(header_bytes, delimiter.byte(), &mut raw);
     fields::trim_trailing_empty(&mut raw);
@@ -270,7 +274,7 @@ fn read_wide(
         ));
     }
     let n = grid.len();
-    let parsed: Vec<std::result::Result<(String, Vec<f64>), (String, Error)>> = rows
+    let parsed: Vec<RowResult> = rows
         .par_iter()
         .with_min_len(256)
         .map_init(Vec::new, |scratch, &(line_no, line)| {
@@ -325,6 +329,9 @@ fn read_wide(
     })
 }
 
+/// A parsed wide row: the sample and its values, or the sample and why not.
+type RowResult = std::result::Result<(String, Vec<f64>), (String, Error)>;
+
 #[allow(clippy::too_many_arguments)]
 fn parse_wide_row<'a>(
     line: &'a [u8],
@@ -336,7 +343,7 @@ fn parse_wide_row<'a>(
     reversed: bool,
     options: ReadOptions,
     scratch: &mut Vec<&'a [u8]>,
-) -> std::result::Result<(String, Vec<f64>), (String, Error)> {
+) -> RowResult {
     fields::split(line, delim, scratch);
     fields::trim_trailing_empty(scratch);
     let id = fields::text(scratch[0]).into_owned();

@@ -2,8 +2,10 @@
 //!
 //! Problem, for each spectrum a (n points) and a fixed design E (n × p):
 //!
-//!     minimise ‖E·x − a‖²  subject to  xⱼ ≥ 0 for component columns,
-//!                                      xⱼ free for baseline columns.
+//! ```text
+//! minimise ‖E·x − a‖²  subject to  xⱼ ≥ 0 for component columns,
+//!                                  xⱼ free for baseline columns.
+//! ```
 //!
 //! Columns are scaled to unit length first (x is unscaled on the way out),
 //! so the conditioning the solver sees is that of the column-scaled matrix.
@@ -170,7 +172,7 @@ impl Prepared {
         } else {
             f64::INFINITY
         };
-        if !(condition < DEGENERATE_CONDITION) {
+        if condition.is_nan() || condition >= DEGENERATE_CONDITION {
             let (a, b, cos) = most_similar_pair(&gram, p);
             return Err(Error::Degenerate(format!(
                 "the model cannot tell '{}' and '{}' apart over this range (spectral similarity {:.6}, condition number {}): remove one, widen the range, or check the files",

@@ -72,9 +72,8 @@ impl Workspace {
                 .as_deref()
                 .ok_or_else(|| Error::Invalid("factor cache".into()));
         }
-        if !self.large.contains_key(&mask) {
-            let f = build_factor(prep, mask)?;
-            self.large.insert(mask, f);
+        if let std::collections::hash_map::Entry::Vacant(e) = self.large.entry(mask) {
+            e.insert(build_factor(prep, mask)?);
         }
         self.large
             .get(&mask)
@@ -104,7 +103,7 @@ fn build_factor(prep: &Prepared, mask: u64) -> Result<Factor> {
                 s -= l[i * m + k] * l[j * m + k];
             }
             if i == j {
-                if !(s > 0.0) {
+                if s.is_nan() || s <= 0.0 {
                     return Err(Error::Degenerate(
                         "the references are linearly dependent on this passive set".into(),
                     ));
