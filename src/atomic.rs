@@ -65,6 +65,82 @@ pub fn write_bytes(target: &Path, bytes: &[u8]) -> Result<()> {
     write_with(target, false, |w| w.write_all(bytes))
 }
 
+/// A file being written under a temporary name beside its target, for
+/// outputs that are filled bit by bit (streamed) rather than in one call.
+///
+/// Nothing appears at the target until [`AtomicFile::commit`]; dropping an
+/// uncommitted file removes the temporary. A run that writes several files
+/// can fill them all and commit them only once every one is complete.
+pub struct AtomicFile {
+    target: PathBuf,
+    tmp: PathBuf,
+    writer: Option<BufWriter<File>>,
+}
+
+impl AtomicFile {
+    /// Create the temporary file for `target`.
+    pub fn create(target: &Path) -> Result<Self> {
+        let tmp = temp_path(target);
+        let file = File::create(&tmp).map_err(|e| Error::io(target.display().to_string(), e))?;
+        Ok(AtomicFile {
+            target: target.to_path_buf(),
+            tmp,
+            writer: Some(BufWriter::with_capacity(1 << 16, file)),
+        })
+    }
+
+    /// The target path.
+    pub fn target(&self) -> &Path {
+        &self.target
+    }
+
+    /// Flush, sync and rename the file into place.
+    pub fn commit(mut self) -> Result<()> {
+        let shown = self.target.display().to_string();
+        let result = (|| -> std::io::Result<()> {
+            let w = self
+                .writer
+                .take()
+                .ok_or_else(|| std::io::Error::other("file already committed"))?;
+            let file = w.into_inner().map_err(|e| e.into_error())?;
+            file.sync_all()?;
+            fs::rename(&self.tmp, &self.target)
+        })();
+        result.map_err(|e| Error::io(shown, e))
+    }
+}
+
+impl Write for AtomicFile {
+    fn write(&mut self, buf: &[u8]) -> std::io::Result<usize> {
+        match &mut self.writer {
+            Some(w) => w.write(buf),
+            None => Err(std::io::Error::other("file already committed")),
+        }
+    }
+
+    fn write_all(&mut self, buf: &[u8]) -> std::io::Result<()> {
+        match &mut self.writer {
+            Some(w) => w.write_all(buf),
+            None => Err(std::io::Error::other("file already committed")),
+        }
+    }
+
+    fn flush(&mut self) -> std::io::Result<()> {
+        match &mut self.writer {
+            Some(w) => w.flush(),
+            None => Ok(()),
+        }
+    }
+}
+
+impl Drop for AtomicFile {
+    fn drop(&mut self) {
+        if self.writer.take().is_some() || self.tmp.exists() {
+            let _ = fs::remove_file(&self.tmp);
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -90,6 +166,29 @@ mod tests {
         let e = write_with(&target, true, |w| w.write_all(b"new")).unwrap_err();
         assert!(e.to_string().contains("already exists"));
         assert_eq!(fs::read(&target).unwrap(), b"old");
+        fs::remove_dir_all(&dir).unwrap();
+    }
+
+    #[test]
+    fn streamed_file_appears_only_on_commit() {
+        let dir = std::env::temp_dir().join(format!("unblend-atomic-s-{}", std::process::id()));
+        fs::create_dir_all(&dir).unwrap();
+        let target = dir.join("wells.csv");
+        let mut f = AtomicFile::create(&target).unwrap();
+        f.write_all(b"a,b\n").unwrap();
+        assert!(!target.exists());
+        f.commit().unwrap();
+        assert_eq!(fs::read(&target).unwrap(), b"a,b\n");
+        let mut g = AtomicFile::create(&target).unwrap();
+        g.write_all(b"half").unwrap();
+        drop(g);
+        assert_eq!(fs::read(&target).unwrap(), b"a,b\n");
+        let leftovers = fs::read_dir(&dir)
+            .unwrap()
+            .filter_map(|e| e.ok())
+            .filter(|e| e.file_name().to_string_lossy().contains(".tmp-"))
+            .count();
+        assert_eq!(leftovers, 0);
         fs::remove_dir_all(&dir).unwrap();
     }
 }

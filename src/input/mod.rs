@@ -5,4 +5,7 @@
 
 pub mod epsilon;
 pub mod fields;
+pub mod plate;
+pub mod platemap;
+pub mod plates;
 pub mod spectra;

@@ -1,0 +1,726 @@
+//! Microplate readings (input stage): well identifiers, plate formats, and the
+//! parser of unblend's *plate-grid* layout.
+//!
+//! In: the text of one plate in the plate-grid layout. Out: a
+//! [`PlateSpectra`], the absorbance spectrum of every well that was read, on
+//! one wavelength grid, plus per-well failures.
+//!
+//! The plate-grid layout holds one block per wavelength:
+//!
+//! ```text
+//! Exported 2026-12-01 by the reader        <- lines before the first heading: skipped
+//! plate=P1 wavelength_nm=450               <- heading: `wavelength_nm=` (required), `plate=` (optional)
+//! ,1,2,3,4,5,6,7,8,9,10,11,12              <- column numbers 1–12 (or 1–24) across
+//! A,0.112,0.134,0.120,...                  <- row letter A–H (or A–P), then one cell per column
+//! B,0.101,OVER,0.099,...                   <- a word instead of a number: a saturated reading
+//! ...
+//!                                          <- blank lines and other text between blocks: skipped
+//! plate=P1 wavelength_nm=451
+//! ...
+//! ```
+//!
+//! A heading is any line holding `wavelength_nm=<nm>`; its other `key=value`
+//! pairs (`plate=`, or anything else such as `read=2`) may be separated by
+//! spaces, commas, semicolons or tabs. The next non-blank line lists the
+//! column numbers (its first cell may be empty or a label); each following
+//! line that starts with a row letter holds that row, until a blank line or
+//! a line that is not a row. Cells are separated by commas, semicolons or
+//! tabs (detected from the column line; with semicolons or tabs a decimal
+//! comma is read too). Empty cells past the last column are ignored.
+//!
+//! Cells: a number is a reading; an empty cell is no reading; a word with no
+//! digits (`OVER`, `OVRFLW`, `Sat`, `****`, `inf`) or `>` with a number
+//! (`>4`) is a *saturated* reading, kept as `f64::INFINITY` so that the
+//! batch stage can leave that point out of the fit and flag the well (the
+//! solver never sees it). `NaN` and other text fail the well, with the line
+//! and column.
+
+use super::fields::{self, Delimiter};
+use super::spectra::Quantity;
+use crate::error::{Error, Result};
+use crate::spectrum::{self, Grid};
+use std::sync::Arc;
+
+/// Largest number of rows (A–P) of a supported plate.
+pub const MAX_ROWS: usize = 16;
+/// Largest number of columns (1–24) of a supported plate.
+pub const MAX_COLUMNS: usize = 24;
+
+/// A well position: row A–P, column 1–24 (stored 0-based).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub struct Well {
+    /// Row index, 0 = A.
+    pub row: u8,
+    /// Column index, 0 = column 1.
+    pub col: u8,
+}
+
+impl Well {
+    /// Read a well identifier such as `A1`, `b12` or `P024`.
+    pub fn parse(text: &str) -> Option<Well> {
+        let t = text.trim();
+        let mut chars = t.chars();
+        let letter = chars.next()?.to_ascii_uppercase();
+        if !letter.is_ascii_uppercase() {
+            return None;
+        }
+        let row = letter as u8 - b'A';
+        let digits = chars.as_str();
+        if digits.is_empty() || digits.len() > 3 || !digits.bytes().all(|b| b.is_ascii_digit()) {
+            return None;
+        }
+        let col: usize = digits.parse().ok()?;
+        if (row as usize) < MAX_ROWS && (1..=MAX_COLUMNS).contains(&col) {
+            Some(Well {
+                row,
+                col: (col - 1) as u8,
+            })
+        } else {
+            None
+        }
+    }
+
+    /// Position in row-major order on a 16 × 24 plate (for sorting, tables).
+    pub fn index(self) -> usize {
+        self.row as usize * MAX_COLUMNS + self.col as usize
+    }
+
+    /// The well at a row-major index of a 16 × 24 plate.
+    pub fn from_index(i: usize) -> Well {
+        Well {
+            row: (i / MAX_COLUMNS) as u8,
+            col: (i % MAX_COLUMNS) as u8,
+        }
+    }
+}
+
+impl std::fmt::Display for Well {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(f, "{}{}", (b'A' + self.row) as char, self.col + 1)
+    }
+}
+
+/// The plate formats unblend reads.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum PlateFormat {
+    /// 8 rows (A–H) × 12 columns.
+    Wells96,
+    /// 16 rows (A–P) × 24 columns.
+    Wells384,
+}
+
+impl PlateFormat {
+    /// The smallest format holding every well given.
+    pub fn holding(wells: &[Well]) -> PlateFormat {
+        if wells.iter().all(|w| w.row < 8 && w.col < 12) {
+            PlateFormat::Wells96
+        } else {
+            PlateFormat::Wells384
+        }
+    }
+
+    /// Name used in outputs.
+    pub fn name(self) -> &'static str {
+        match self {
+            PlateFormat::Wells96 => "96-well",
+            PlateFormat::Wells384 => "384-well",
+        }
+    }
+}
+
+/// A well that was read but cannot be used.
+#[derive(Debug)]
+pub struct WellFailure {
+    /// The well, when its identifier could be read.
+    pub well: Option<Well>,
+    /// The identifier as found in the input.
+    pub label: String,
+    /// What is wrong, with line and column.
+    pub error: Error,
+}
+
+/// The spectra of one plate.
+#[derive(Debug)]
+pub struct PlateSpectra {
+    /// Plate name (from the input, or made from the file name).
+    pub name: String,
+    /// 96- or 384-well.
+    pub format: PlateFormat,
+    /// The wavelength grid every well shares (ascending); `None` only when
+    /// no well could be read.
+    pub grid: Option<Arc<Grid>>,
+    /// Wells read, in input order.
+    pub wells: Vec<Well>,
+    /// Absorbance, AU: one row of `grid.len()` values per well. A saturated
+    /// reading is `f64::INFINITY`; every other value is finite.
+    pub absorbance_au: Vec<f64>,
+    /// Wells that could not be read.
+    pub failures: Vec<WellFailure>,
+}
+
+impl PlateSpectra {
+    /// Number of wavelengths per well.
+    pub fn n_points(&self) -> usize {
+        self.grid.as_ref().map_or(0, |g| g.len())
+    }
+
+    /// The absorbances of well `i` (index into [`Self::wells`]).
+    pub fn row(&self, i: usize) -> &[f64] {
+        let n = self.n_points();
+        &self.absorbance_au[i * n..(i + 1) * n]
+    }
+}
+
+/// A block heading: the wavelength and the other `key=value` pairs.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Heading {
+    /// The `wavelength_nm` value, or the raw text when it is not a number.
+    pub wavelength_nm: std::result::Result<f64, String>,
+    /// The `plate` value, when given.
+    pub plate: Option<String>,
+}
+
+/// Find the `key=value` pairs of a line. Keys are letters, digits and `_`
+/// (lowercased); spaces around `=` are allowed; a value runs to the next
+/// space, comma, semicolon or tab, or is quoted.
+pub fn key_values(line: &[u8]) -> Vec<(String, String)> {
+    let is_key = |b: u8| b.is_ascii_alphanumeric() || b == b'_';
+    let is_stop = |b: u8| matches!(b, b' ' | b',' | b';' | b'\t' | b'"');
+    let mut out = Vec::new();
+    for eq in memchr::memchr_iter(b'=', line) {
+        let mut k_end = eq;
+        while k_end > 0 && line[k_end - 1] == b' ' {
+            k_end -= 1;
+        }
+        let mut k_start = k_end;
+        while k_start > 0 && is_key(line[k_start - 1]) {
+            k_start -= 1;
+        }
+        if k_start == k_end {
+            continue;
+        }
+        let mut v_start = eq + 1;
+        while v_start < line.len() && line[v_start] == b' ' {
+            v_start += 1;
+        }
+        let value = if line.get(v_start) == Some(&b'"') {
+            let rest = &line[v_start + 1..];
+            let end = memchr::memchr(b'"', rest).unwrap_or(rest.len());
+            &rest[..end]
+        } else {
+            let rest = &line[v_start..];
+            let end = rest.iter().position(|&b| is_stop(b)).unwrap_or(rest.len());
+            &rest[..end]
+        };
+        out.push((
+            String::from_utf8_lossy(&line[k_start..k_end]).to_ascii_lowercase(),
+            String::from_utf8_lossy(value).trim().to_string(),
+        ));
+    }
+    out
+}
+
+/// Read a heading line: `Some` when the line holds `wavelength_nm=`.
+pub fn heading(line: &[u8]) -> Option<Heading> {
+    memchr::memchr(b'=', line)?;
+    let pairs = key_values(line);
+    let raw = pairs.iter().find(|(k, _)| k == "wavelength_nm")?.1.clone();
+    let wavelength_nm = match fields::number(raw.as_bytes(), true) {
+        Ok(w) if w > 0.0 => Ok(w),
+        _ => Err(raw),
+    };
+    let plate = pairs
+        .iter()
+        .find(|(k, _)| k == "plate")
+        .map(|(_, v)| v.clone())
+        .filter(|v| !v.is_empty());
+    Some(Heading {
+        wavelength_nm,
+        plate,
+    })
+}
+
+/// What a grid cell holds.
+#[derive(Debug, Clone, Copy, PartialEq)]
+enum Cell {
+    Value(f64),
+    Saturated,
+    Missing,
+}
+
+/// Read one cell: a number, an overflow marker, empty, or an error message.
+fn cell(raw: &[u8], decimal_comma: bool, quantity: Quantity) -> std::result::Result<Cell, String> {
+    let expected = || {
+        format!(
+            "{} or an overflow marker (a word such as OVER, or >4)",
+            match quantity {
+                Quantity::Transmittance => "a transmittance fraction",
+                Quantity::TransmittancePercent => "a transmittance percentage",
+                _ => "an absorbance",
+            }
+        )
+    };
+    match fields::number(raw, decimal_comma) {
+        Ok(v) => quantity
+            .to_absorbance(v)
+            .map(Cell::Value)
+            .map_err(str::to_string),
+        Err(fields::NumberError::Empty) => Ok(Cell::Missing),
+        Err(_) => {
+            let t = fields::text(raw);
+            let t = t.trim();
+            if t.eq_ignore_ascii_case("nan") {
+                return Err(format!("{} (NaN is not a reading)", expected()));
+            }
+            if t.starts_with('-') {
+                return Err(expected());
+            }
+            if let Some(rest) = t.strip_prefix('>') {
+                return match fields::number(rest.as_bytes(), decimal_comma) {
+                    Ok(_) => Ok(Cell::Saturated),
+                    Err(_) => Err(expected()),
+                };
+            }
+            let word = t.trim_start_matches('+');
+            if !word.is_empty()
+                && !word.bytes().any(|b| b.is_ascii_digit())
+                && word
+                    .bytes()
+                    .all(|b| b.is_ascii_alphabetic() || matches!(b, b'*' | b'#' | b'.' | b' '))
+            {
+                Ok(Cell::Saturated)
+            } else {
+                Err(expected())
+            }
+        }
+    }
+}
+
+/// Encoding of a block's cells: a finite value is a reading, `+inf` a
+/// saturated reading; these two mark "no cell" and "empty cell".
+const NO_CELL: f64 = f64::NAN;
+const EMPTY_CELL: f64 = f64::NEG_INFINITY;
+
+fn is_empty_cell(v: f64) -> bool {
+    v.is_infinite() && v.is_sign_negative()
+}
+
+/// Whether a value read from a plate is a saturated reading (`+inf`).
+pub fn is_saturated(v: f64) -> bool {
+    v.is_infinite() && v.is_sign_positive()
+}
+
+/// One wavelength block as read.
+struct GridBlock {
+    wavelength_nm: f64,
+    heading_line: usize,
+    /// Per well slot (row-major 16 × 24), encoded as above.
+    values: Vec<f64>,
+    /// Line of each row, 0 when the row is absent.
+    row_lines: [usize; MAX_ROWS],
+    /// 0-based field of each column in a row line, 0 when absent.
+    col_fields: [usize; MAX_COLUMNS],
+    /// Bad cells: slot, line, column, raw text, what was expected.
+    bad: Vec<(usize, usize, usize, String, String)>,
+}
+
+/// Parse the plate-grid text of one plate. `first_line` is the 1-based line
+/// number of the first line of `text` in its file (for messages).
+pub fn parse_grid(
+    text: &[u8],
+    first_line: usize,
+    name: &str,
+    quantity: Quantity,
+) -> Result<PlateSpectra> {
+    let mut blocks: Vec<GridBlock> = Vec::new();
+    let mut lines = fields::lines(text)
+        .map(|(n, l)| (n + first_line - 1, l))
+        .peekable();
+    let mut scratch: Vec<&[u8]> = Vec::new();
+    while let Some((line_no, line)) = lines.next() {
+        let Some(h) = heading(line) else {
+            continue; // metadata or text between blocks
+        };
+        let wavelength_nm = h.wavelength_nm.map_err(|raw| Error::Parse {
+            at: crate::error::Location {
+                line: line_no,
+                column: None,
+            },
+            value: crate::error::shorten(raw.as_bytes()),
+            expected: "a positive wavelength in nm after `wavelength_nm=`".into(),
+        })?;
+        // The column line: the next line with content.
+        let mut columns_line = None;
+        for (n, l) in lines.by_ref() {
+            if !fields::is_skippable(l, b',') {
+                columns_line = Some((n, l));
+                break;
+            }
+        }
+        let Some((col_line_no, col_line)) = columns_line else {
+            return Err(Error::structure(
+                line_no,
+                format!(
+                    "the block for {wavelength_nm} nm ends after its heading: expected a line of column numbers (1–24) and rows A–P"
+                ),
+            ));
+        };
+        let delimiter = Delimiter::detect(col_line);
+        let delim = delimiter.byte();
+        let decimal_comma = delimiter.allows_decimal_comma();
+        fields::split(col_line, delim, &mut scratch);
+        fields::trim_trailing_empty(&mut scratch);
+        let first_is_number = fields::number(scratch[0], false).is_ok();
+        let skip = usize::from(!first_is_number);
+        let mut columns: Vec<usize> = Vec::with_capacity(scratch.len());
+        for (i, f) in scratch.iter().enumerate().skip(skip) {
+            let c = fields::number(f, false)
+                .ok()
+                .filter(|c| c.fract().abs() < 1e-9 && (1.0..=MAX_COLUMNS as f64).contains(c))
+                .map(|c| c as usize - 1);
+            match c {
+                Some(c) if !columns.contains(&c) => columns.push(c),
+                Some(_) => {
+                    return Err(Error::parse(
+                        col_line_no,
+                        i + 1,
+                        f,
+                        "each column number once in the line of column numbers",
+                    ));
+                }
+                None => {
+                    return Err(Error::parse(
+                        col_line_no,
+                        i + 1,
+                        f,
+                        format!(
+                            "a column number 1–24 (the line after the heading on line {line_no} lists the columns)"
+                        ),
+                    ));
+                }
+            }
+        }
+        if columns.is_empty() {
+            return Err(Error::structure(
+                col_line_no,
+                "no column numbers after the heading: expected a line such as `,1,2,3,...,12`",
+            ));
+        }
+        let mut block = GridBlock {
+            wavelength_nm,
+            heading_line: line_no,
+            values: vec![NO_CELL; MAX_ROWS * MAX_COLUMNS],
+            row_lines: [0; MAX_ROWS],
+            col_fields: [0; MAX_COLUMNS],
+            bad: Vec::new(),
+        };
+        for (k, &c) in columns.iter().enumerate() {
+            block.col_fields[c] = k + 1;
+        }
+        let mut rows_seen = [false; MAX_ROWS];
+        let mut any_row = false;
+        while let Some(&(row_no, row_line)) = lines.peek() {
+            if fields::is_skippable(row_line, delim) {
+                break;
+            }
+            fields::split(row_line, delim, &mut scratch);
+            let label = fields::text(scratch[0]);
+            let label = label.trim();
+            let row = match label.as_bytes() {
+                [b] if b.is_ascii_alphabetic() => (b.to_ascii_uppercase() - b'A') as usize,
+                _ => break, // not a row: the block has ended
+            };
+            if row >= MAX_ROWS {
+                return Err(Error::parse(
+                    row_no,
+                    1,
+                    label.as_bytes(),
+                    "a row letter A–P",
+                ));
+            }
+            if rows_seen[row] {
+                return Err(Error::structure(
+                    row_no,
+                    format!(
+                        "row {label} appears twice in the block for {wavelength_nm} nm (heading on line {line_no})"
+                    ),
+                ));
+            }
+            rows_seen[row] = true;
+            block.row_lines[row] = row_no;
+            any_row = true;
+            lines.next();
+            for (k, &c) in columns.iter().enumerate() {
+                let field_index = k + 1;
+                let Some(raw) = scratch.get(field_index) else {
+                    break; // short row: the remaining wells have no reading
+                };
+                let slot = row * MAX_COLUMNS + c;
+                block.values[slot] = match cell(raw, decimal_comma, quantity) {
+                    Ok(Cell::Value(v)) => v,
+                    Ok(Cell::Saturated) => f64::INFINITY,
+                    Ok(Cell::Missing) => EMPTY_CELL,
+                    Err(expected) => {
+                        block.bad.push((
+                            slot,
+                            row_no,
+                            field_index + 1,
+                            crate::error::shorten(raw),
+                            expected,
+                        ));
+                        EMPTY_CELL
+                    }
+                };
+            }
+        }
+        if !any_row {
+            return Err(Error::structure(
+                col_line_no,
+                format!(
+                    "the block for {wavelength_nm} nm has no rows: expected lines starting with a row letter A–P after the column numbers"
+                ),
+            ));
+        }
+        blocks.push(block);
+    }
+    assemble(blocks, name, first_line)
+}
+
+fn assemble(mut blocks: Vec<GridBlock>, name: &str, first_line: usize) -> Result<PlateSpectra> {
+    if blocks.is_empty() {
+        return Err(Error::structure(
+            first_line,
+            format!(
+                "plate '{name}' has no blocks: expected a heading line with `wavelength_nm=<nm>` followed by a grid"
+            ),
+        ));
+    }
+    blocks.sort_by(|a, b| a.wavelength_nm.total_cmp(&b.wavelength_nm));
+    for pair in blocks.windows(2) {
+        if (pair[1].wavelength_nm - pair[0].wavelength_nm).abs()
+            <= 1e-9 * pair[0].wavelength_nm.abs()
+        {
+            let (a, b) = (
+                pair[0].heading_line.min(pair[1].heading_line),
+                pair[0].heading_line.max(pair[1].heading_line),
+            );
+            return Err(Error::structure(
+                b,
+                format!(
+                    "plate '{name}': wavelength {} nm appears twice (headings on lines {a} and {b}): each wavelength once per plate",
+                    pair[0].wavelength_nm
+                ),
+            ));
+        }
+    }
+    let wavelengths: Vec<f64> = blocks.iter().map(|b| b.wavelength_nm).collect();
+    let (wavelengths, _) = spectrum::ascending(wavelengths);
+    let grid =
+        Arc::new(Grid::new(wavelengths).map_err(|e| Error::structure(first_line, e.to_string()))?);
+    let n = grid.len();
+    // A well is read when any block has a reading for it (a value, a
+    // saturated reading or a bad cell).
+    let mut read = [false; MAX_ROWS * MAX_COLUMNS];
+    for b in &blocks {
+        for (slot, v) in b.values.iter().enumerate() {
+            if !(v.is_nan() || is_empty_cell(*v)) {
+                read[slot] = true;
+            }
+        }
+        for x in &b.bad {
+            read[x.0] = true;
+        }
+    }
+    let mut wells = Vec::new();
+    let mut failures = Vec::new();
+    let mut values = Vec::new();
+    let mut row = Vec::with_capacity(n);
+    for (slot, _) in read.iter().enumerate().filter(|(_, r)| **r) {
+        let well = Well::from_index(slot);
+        row.clear();
+        let mut error = None;
+        for b in &blocks {
+            let v = b.values[slot];
+            if v.is_finite() || is_saturated(v) {
+                row.push(v);
+                continue;
+            }
+            if let Some((_, line, column, raw, expected)) = b.bad.iter().find(|x| x.0 == slot) {
+                error = Some(Error::Parse {
+                    at: crate::error::Location {
+                        line: *line,
+                        column: Some(*column),
+                    },
+                    value: raw.clone(),
+                    expected: expected.clone(),
+                });
+            } else if is_empty_cell(v) {
+                error = Some(Error::Parse {
+                    at: crate::error::Location {
+                        line: b.row_lines[well.row as usize],
+                        column: Some(b.col_fields[well.col as usize] + 1),
+                    },
+                    value: String::new(),
+                    expected: format!(
+                        "a reading for well {well} at {} nm (the cell is empty)",
+                        b.wavelength_nm
+                    ),
+                });
+            } else {
+                error = Some(Error::structure(
+                    b.heading_line,
+                    format!(
+                        "well {well} has no cell in the block for {} nm: every block of a plate must cover the same wells",
+                        b.wavelength_nm
+                    ),
+                ));
+            }
+            break;
+        }
+        match error {
+            Some(error) => failures.push(WellFailure {
+                well: Some(well),
+                label: well.to_string(),
+                error,
+            }),
+            None => {
+                wells.push(well);
+                values.extend_from_slice(&row);
+            }
+        }
+    }
+    let mut all: Vec<Well> = wells.clone();
+    all.extend(failures.iter().filter_map(|f| f.well));
+    Ok(PlateSpectra {
+        name: name.to_string(),
+        format: PlateFormat::holding(&all),
+        grid: Some(grid),
+        wells,
+        absorbance_au: values,
+        failures,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn parse(text: &str) -> Result<PlateSpectra> {
+        parse_grid(text.as_bytes(), 1, "p", Quantity::Absorbance)
+    }
+
+    #[test]
+    fn well_ids_are_read_and_printed() {
+        assert_eq!(Well::parse("A1"), Some(Well { row: 0, col: 0 }));
+        assert_eq!(Well::parse(" b012 "), Some(Well { row: 1, col: 11 }));
+        assert_eq!(Well::parse("P24").unwrap().to_string(), "P24");
+        assert_eq!(Well::parse("Q1"), None);
+        assert_eq!(Well::parse("A25"), None);
+        assert_eq!(Well::parse("A0"), None);
+        assert_eq!(Well::parse("lot-1"), None);
+        assert_eq!(Well::parse(""), None);
+    }
+
+    #[test]
+    fn headings_are_found_with_spaces_commas_and_quotes() {
+        let h = heading(b"plate=P1 wavelength_nm=450").unwrap();
+        assert_eq!(h.plate.as_deref(), Some("P1"));
+        assert!((h.wavelength_nm.unwrap() - 450.0).abs() < 1e-12);
+        let h = heading(b"plate = \"run 7\",wavelength_nm = 450.5,,,").unwrap();
+        assert_eq!(h.plate.as_deref(), Some("run 7"));
+        assert!((h.wavelength_nm.unwrap() - 450.5).abs() < 1e-12);
+        assert!(heading(b"Gain=100").is_none());
+        assert!(heading(b"A,0.1,0.2").is_none());
+        assert_eq!(
+            heading(b"wavelength_nm=abc").unwrap().wavelength_nm,
+            Err("abc".to_string())
+        );
+    }
+
+    #[test]
+    fn two_blocks_make_a_plate_with_metadata_and_trailing_cells_skipped() {
+        let text = "Reader export\nOperator: X\n\nwavelength_nm=500,,,\n,1,2,,\nA,0.5,0.6,,\nB,0.7,0.8\n\nTemperature: 25 C\nwavelength_nm=400\n,1,2\nA,0.1,0.2\nB,0.3,0.4\nend of read\n";
+        let p = parse(text).unwrap();
+        assert_eq!(p.grid.as_ref().unwrap().wavelengths_nm(), &[400.0, 500.0]);
+        assert_eq!(p.wells.len(), 4);
+        assert_eq!(p.wells[1].to_string(), "A2");
+        assert_eq!(p.row(1), &[0.2, 0.6]);
+        assert_eq!(p.row(3), &[0.4, 0.8]);
+        assert_eq!(p.format, PlateFormat::Wells96);
+        assert!(p.failures.is_empty());
+    }
+
+    #[test]
+    fn overflow_words_become_saturated_points() {
+        let text = "wavelength_nm=400\n,1,2,3,4\nA,OVER,>4,Sat.,****\nwavelength_nm=410\n,1,2,3,4\nA,1,1,1,1\n";
+        let p = parse(text).unwrap();
+        assert_eq!(p.wells.len(), 4);
+        for i in 0..4 {
+            assert!(p.row(i)[0].is_infinite(), "well {i}");
+            assert!((p.row(i)[1] - 1.0).abs() < 1e-12);
+        }
+    }
+
+    #[test]
+    fn nan_and_garbled_cells_fail_only_their_well() {
+        let text = "wavelength_nm=400\n,1,2,3\nA,NaN,0.1a,0.2\n";
+        let p = parse(text).unwrap();
+        assert_eq!(p.wells.len(), 1);
+        assert_eq!(p.failures.len(), 2);
+        let e = p.failures[1].error.to_string();
+        assert!(e.starts_with("line 3, column 3 ('0.1a')"), "{e}");
+        assert!(e.contains("overflow marker"), "{e}");
+    }
+
+    #[test]
+    fn semicolon_grid_with_decimal_comma_is_read() {
+        let text = "wavelength_nm=400\n;1;2\nA;0,25;0,5\n";
+        let p = parse(text).unwrap();
+        assert_eq!(p.row(0), &[0.25]);
+        assert_eq!(p.row(1), &[0.5]);
+    }
+
+    #[test]
+    fn a_well_missing_from_one_block_fails_with_the_line() {
+        let text = "wavelength_nm=400\n,1,2\nA,0.1,0.2\nwavelength_nm=410\n,1,2\nA,0.1\n";
+        let p = parse(text).unwrap();
+        assert_eq!(p.wells.len(), 1);
+        assert_eq!(p.failures[0].label, "A2");
+        assert!(
+            p.failures[0].error.to_string().contains("line 4"),
+            "{}",
+            p.failures[0].error
+        );
+    }
+
+    #[test]
+    fn duplicate_wavelength_and_bad_column_numbers_are_errors() {
+        let e = parse("wavelength_nm=400\n,1\nA,1\nwavelength_nm=400\n,1\nA,1\n").unwrap_err();
+        assert!(e.to_string().contains("appears twice"), "{e}");
+        let e = parse("wavelength_nm=400\n,1,x\nA,1,2\n").unwrap_err();
+        assert_eq!(
+            e.to_string(),
+            "line 2, column 3 ('x'): expected a column number 1–24 (the line after the heading on line 1 lists the columns)"
+        );
+        let e = parse("wavelength_nm=4OO\n,1\nA,1\n").unwrap_err();
+        assert!(e.to_string().starts_with("line 1 ('4OO')"), "{e}");
+    }
+
+    #[test]
+    fn a_384_well_grid_is_recognised() {
+        let mut text = String::from("wavelength_nm=400\n");
+        text.push_str(&(1..=24).map(|c| format!(",{c}")).collect::<String>());
+        text.push('\n');
+        for r in 0..16u8 {
+            text.push((b'A' + r) as char);
+            for _ in 0..24 {
+                text.push_str(",0.1");
+            }
+            text.push('\n');
+        }
+        let p = parse(&text).unwrap();
+        assert_eq!(p.wells.len(), 384);
+        assert_eq!(p.format, PlateFormat::Wells384);
+        assert_eq!(p.wells[383].to_string(), "P24");
+    }
+}

@@ -1,0 +1,723 @@
+//! Splitting an input file into plates as it streams in (input stage).
+//!
+//! In: a reader over one input file in any of the three layouts: the
+//! plate-grid layout ([`super::plate`]), or the wide and long spectra
+//! layouts ([`super::spectra`]) with sample identifiers that are wells
+//! (`A1`) or plate-qualified wells (`plate1:A1`). Out: one [`RawPlate`] at a
+//! time, which a worker turns into [`PlateSpectra`] with [`RawPlate::parse`].
+//!
+//! The plate-grid and wide layouts are streamed: only the plate being
+//! gathered is held in memory, so a file of a thousand plates costs no more
+//! memory than one plate. That needs the text of one plate to be together:
+//!
+//! - plate-grid: a heading with a new `plate=` name starts a new plate; a
+//!   heading without a name continues the current plate, unless its
+//!   wavelength is already in it, which starts the next (unnamed) plate.
+//! - wide: a row whose identifier names another plate (`P2:A1` after
+//!   `P1:H12`) starts a new plate; with bare well identifiers, a well that
+//!   repeats starts the next plate.
+//!
+//! A named plate whose text reappears after another plate is reported as an
+//! error (its second part is skipped). Unnamed plates are named after the
+//! file: `run`, `run-2`, `run-3`, …
+//!
+//! The long layout lets a sample's rows sit anywhere in the file, so a long
+//! file is read whole and then split by plate.
+
+use super::fields::{self, Delimiter};
+use super::plate::{self, PlateFormat, PlateSpectra, Well, WellFailure};
+use super::spectra::{self, Layout, Quantity, ReadOptions};
+use crate::error::{Error, Location, Result};
+use std::collections::{HashMap, HashSet, VecDeque};
+use std::io::Read;
+use std::sync::Arc;
+
+/// Bytes read from the input at a time.
+const CHUNK_BYTES: usize = 1 << 20;
+
+/// The layout of an input file.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum InputLayout {
+    /// One grid per wavelength (unblend's plate-grid layout).
+    PlateGrid,
+    /// One row per well (`sample,<nm>,<nm>,...`).
+    Wide,
+    /// One row per point (`sample,wavelength_nm,absorbance`).
+    Long,
+}
+
+impl InputLayout {
+    /// Name used in outputs.
+    pub fn name(self) -> &'static str {
+        match self {
+            InputLayout::PlateGrid => "plate-grid",
+            InputLayout::Wide => "wide",
+            InputLayout::Long => "long",
+        }
+    }
+}
+
+/// The text of one plate, not parsed yet.
+#[derive(Debug)]
+pub struct RawPlate {
+    /// Plate name.
+    pub name: String,
+    /// 1-based line of the plate's first line in its file.
+    pub first_line: usize,
+    kind: RawKind,
+}
+
+#[derive(Debug)]
+enum RawKind {
+    Grid(Vec<u8>),
+    Wide { header: Arc<Vec<u8>>, rows: Vec<u8> },
+    Parsed(Box<PlateSpectra>),
+    Failed(Error),
+}
+
+impl RawPlate {
+    /// A plate that cannot be read, with the reason.
+    pub fn failed(name: String, first_line: usize, error: Error) -> Self {
+        RawPlate {
+            name,
+            first_line,
+            kind: RawKind::Failed(error),
+        }
+    }
+
+    /// Parse the plate. An error means no well of the plate can be used.
+    pub fn parse(self, quantity: Quantity) -> Result<PlateSpectra> {
+        match self.kind {
+            RawKind::Grid(text) => plate::parse_grid(&text, self.first_line, &self.name, quantity),
+            RawKind::Wide { header, rows } => {
+                let mut text = Vec::with_capacity(header.len() + rows.len() + 1);
+                text.extend_from_slice(&header);
+                text.push(b'\n');
+                text.extend_from_slice(&rows);
+                // Rows start on line 2 of `text`; shift messages to the file.
+                let shift = self.first_line.saturating_sub(2);
+                let file = spectra::read(&text, ReadOptions { quantity })
+                    .map_err(|e| shift_lines(e, shift))?;
+                from_spectra(&self.name, file, shift)
+                    .pop()
+                    .ok_or_else(|| Error::structure(self.first_line, "no rows for this plate"))
+            }
+            RawKind::Parsed(p) => Ok(*p),
+            RawKind::Failed(e) => Err(e),
+        }
+    }
+}
+
+/// Move the line numbers of a message by `by` lines.
+pub fn shift_lines(e: Error, by: usize) -> Error {
+    match e {
+        Error::Parse {
+            at,
+            value,
+            expected,
+        } => Error::Parse {
+            at: Location {
+                line: at.line + by,
+                column: at.column,
+            },
+            value,
+            expected,
+        },
+        Error::Structure { at, message } => Error::Structure {
+            at: Location {
+                line: at.line + by,
+                column: at.column,
+            },
+            message,
+        },
+        other => other,
+    }
+}
+
+/// Split a sample identifier into plate and well parts: `P1:A1` →
+/// (`Some("P1")`, `"A1"`); `A1` → (`None`, `"A1"`).
+pub fn split_id(id: &str) -> (Option<&str>, &str) {
+    match id.rsplit_once(':') {
+        Some((p, w)) if !p.trim().is_empty() => (Some(p.trim()), w.trim()),
+        Some((_, w)) => (None, w.trim()),
+        None => (None, id.trim()),
+    }
+}
+
+/// Turn read spectra into plates: samples are grouped by the plate part of
+/// their identifier (or all belong to `default_name`), in order of first
+/// appearance. `shift` moves line numbers in messages.
+fn from_spectra(default_name: &str, file: spectra::SpectraFile, shift: usize) -> Vec<PlateSpectra> {
+    struct Entry {
+        position: usize,
+        well: std::result::Result<Well, Error>,
+        label: String,
+        /// Block and row, or the read error.
+        source: std::result::Result<(usize, usize), Error>,
+    }
+    let mut order: Vec<String> = Vec::new();
+    let mut groups: HashMap<String, Vec<Entry>> = HashMap::new();
+    let mut add = |id: &str,
+                   position: usize,
+                   source: std::result::Result<(usize, usize), Error>| {
+        let (plate, well_text) = split_id(id);
+        let plate = plate.unwrap_or(default_name).to_string();
+        let well = Well::parse(well_text).ok_or_else(|| {
+            Error::Invalid(format!(
+                "sample '{}': expected a well such as A1 or P24, or plate and well such as plate1:B12, as the sample identifier",
+                crate::error::shorten(id.as_bytes())
+            ))
+        });
+        if !groups.contains_key(&plate) {
+            order.push(plate.clone());
+        }
+        groups.entry(plate).or_default().push(Entry {
+            position,
+            well,
+            label: well_text.to_string(),
+            source,
+        });
+    };
+    for (b, block) in file.blocks.iter().enumerate() {
+        for (i, id) in block.ids.iter().enumerate() {
+            add(id, block.positions[i], Ok((b, i)));
+        }
+    }
+    for f in file.failures {
+        add(
+            &f.sample.clone(),
+            f.position,
+            Err(shift_lines(f.error, shift)),
+        );
+    }
+    let mut plates = Vec::new();
+    for name in order {
+        let mut entries = groups.remove(&name).unwrap_or_default();
+        entries.sort_by_key(|e| e.position);
+        // The plate's grid: the block holding most of its wells.
+        let mut count: HashMap<usize, usize> = HashMap::new();
+        for e in &entries {
+            if let Ok((b, _)) = e.source {
+                *count.entry(b).or_default() += 1;
+            }
+        }
+        let main = count
+            .iter()
+            .max_by_key(|(b, c)| (**c, std::cmp::Reverse(**b)))
+            .map(|(b, _)| *b);
+        let mut wells = Vec::new();
+        let mut values = Vec::new();
+        let mut failures = Vec::new();
+        let mut seen: HashSet<Well> = HashSet::new();
+        for e in entries {
+            let failure = |error: Error| WellFailure {
+                well: e.well.as_ref().ok().copied(),
+                label: e.label.clone(),
+                error,
+            };
+            let well = match (&e.well, e.source) {
+                (_, Err(error)) => {
+                    failures.push(failure(error));
+                    continue;
+                }
+                (Err(error), _) => {
+                    failures.push(failure(Error::Invalid(error.to_string())));
+                    continue;
+                }
+                (Ok(w), Ok((b, i))) => {
+                    if Some(b) != main {
+                        let g = &file.blocks[b].grid;
+                        failures.push(failure(Error::Invalid(format!(
+                            "well {w}: its wavelengths ({} points, {}–{} nm) differ from the rest of plate '{name}': every well of a plate must share one grid",
+                            g.len(),
+                            g.min_nm(),
+                            g.max_nm()
+                        ))));
+                        continue;
+                    }
+                    if !seen.insert(*w) {
+                        failures.push(failure(Error::Invalid(format!(
+                            "well {w} appears twice in plate '{name}': the second is not used"
+                        ))));
+                        continue;
+                    }
+                    values.extend_from_slice(file.blocks[b].row(i));
+                    *w
+                }
+            };
+            wells.push(well);
+        }
+        let mut all = wells.clone();
+        all.extend(failures.iter().filter_map(|f| f.well));
+        let grid = main.map(|b| file.blocks[b].grid.clone());
+        plates.push(PlateSpectra {
+            name: name.clone(),
+            format: PlateFormat::holding(&all),
+            grid,
+            wells,
+            absorbance_au: values,
+            failures,
+        });
+    }
+    plates
+}
+
+#[derive(Debug)]
+struct Current {
+    name: String,
+    named: bool,
+    first_line: usize,
+    text: Vec<u8>,
+    /// Grid: wavelengths of the headings (as bits). Wide: wells seen.
+    seen: HashSet<u64>,
+    failed: Option<Error>,
+}
+
+/// Reads one input and hands out its plates one at a time.
+pub struct PlateStream<R: Read> {
+    reader: R,
+    chunk_bytes: usize,
+    layout: InputLayout,
+    stem: String,
+    buf: Vec<u8>,
+    /// 1-based line number of `buf[0]`.
+    buf_line: usize,
+    eof: bool,
+    header: Option<Arc<Vec<u8>>>,
+    delimiter: Delimiter,
+    current: Option<Current>,
+    names: HashSet<String>,
+    unnamed: usize,
+    ready: VecDeque<RawPlate>,
+}
+
+impl<R: Read> PlateStream<R> {
+    /// Start reading: detects the layout from the first part of the input.
+    /// `stem` names unnamed plates (usually the file name without extension).
+    /// An error here means the file cannot be read at all.
+    pub fn open(reader: R, stem: &str, quantity: Quantity) -> Result<Self> {
+        Self::open_with(reader, stem, quantity, CHUNK_BYTES)
+    }
+
+    fn open_with(reader: R, stem: &str, quantity: Quantity, chunk_bytes: usize) -> Result<Self> {
+        let mut s = PlateStream {
+            chunk_bytes,
+            reader,
+            layout: InputLayout::Wide,
+            stem: stem.to_string(),
+            buf: Vec::with_capacity(CHUNK_BYTES * 2),
+            buf_line: 1,
+            eof: false,
+            header: None,
+            delimiter: Delimiter::Comma,
+            current: None,
+            names: HashSet::new(),
+            unnamed: 0,
+            ready: VecDeque::new(),
+        };
+        s.fill()?;
+        if s.buf.starts_with(b"\xEF\xBB\xBF") {
+            s.buf.drain(..3);
+        }
+        if s.buf.iter().all(|b| b.is_ascii_whitespace()) && s.eof {
+            return Err(Error::Empty);
+        }
+        while !s.eof && s.buf.len() < CHUNK_BYTES {
+            s.fill()?;
+        }
+        let probe_end = s.buf.len().min(CHUNK_BYTES);
+        let is_grid = fields::lines(&s.buf[..probe_end]).any(|(_, l)| plate::heading(l).is_some());
+        if is_grid {
+            s.layout = InputLayout::PlateGrid;
+            return Ok(s);
+        }
+        // Wide or long: the first line with content is the header.
+        loop {
+            if let Some(end) = memchr::memchr(b'\n', &s.buf) {
+                let line = &s.buf[..end];
+                let line = line.strip_suffix(b"\r").unwrap_or(line);
+                let d = Delimiter::detect(line);
+                if fields::is_skippable(line, d.byte()) {
+                    s.buf.drain(..=end);
+                    s.buf_line += 1;
+                    continue;
+                }
+                break;
+            }
+            if s.eof {
+                break;
+            }
+            s.fill()?;
+        }
+        let end = memchr::memchr(b'\n', &s.buf).unwrap_or(s.buf.len());
+        let header = s.buf[..end]
+            .strip_suffix(b"\r")
+            .unwrap_or(&s.buf[..end])
+            .to_vec();
+        let header_line = s.buf_line;
+        // Classify with the spectra parser on the header and the next line.
+        let probe_len = memchr::memchr(b'\n', &s.buf[(end + 1).min(s.buf.len())..])
+            .map(|i| end + 1 + i)
+            .unwrap_or(s.buf.len());
+        let probe = s.buf[..probe_len].to_vec();
+        let layout = match spectra::read(&probe, ReadOptions { quantity }) {
+            Ok(f) => f.layout,
+            Err(e) => {
+                let e = shift_lines(e, header_line - 1);
+                if e.to_string().contains("only line") {
+                    return Err(Error::structure(
+                        header_line,
+                        "the header is the only line: expected well spectra after it, or plate-grid blocks with `wavelength_nm=` headings",
+                    ));
+                }
+                return Err(e);
+            }
+        };
+        s.delimiter = Delimiter::detect(&header);
+        s.buf.drain(..(end + 1).min(s.buf.len()));
+        s.buf_line += 1;
+        s.header = Some(Arc::new(header));
+        s.layout = match layout {
+            Layout::Wide => InputLayout::Wide,
+            Layout::Long => InputLayout::Long,
+        };
+        if s.layout == InputLayout::Long {
+            // Read whole: a sample's rows may be anywhere.
+            while !s.eof {
+                s.fill()?;
+            }
+            let mut text = Vec::with_capacity(s.buf.len() + 1024);
+            text.extend(std::iter::repeat_n(b'\n', header_line - 1));
+            text.extend_from_slice(s.header.as_deref().map_or(&[][..], |h| h.as_slice()));
+            text.push(b'\n');
+            text.append(&mut s.buf);
+            let file = spectra::read(&text, ReadOptions { quantity })?;
+            drop(text);
+            let stem = s.stem.clone();
+            for p in from_spectra(&stem, file, 0) {
+                s.ready.push_back(RawPlate {
+                    name: p.name.clone(),
+                    first_line: header_line,
+                    kind: RawKind::Parsed(Box::new(p)),
+                });
+            }
+        }
+        Ok(s)
+    }
+
+    /// The detected layout.
+    pub fn layout(&self) -> InputLayout {
+        self.layout
+    }
+
+    fn fill(&mut self) -> Result<()> {
+        if self.eof {
+            return Ok(());
+        }
+        let start = self.buf.len();
+        let want = self.chunk_bytes;
+        self.buf.resize(start + want, 0);
+        let mut got = 0;
+        while got < want {
+            match self.reader.read(&mut self.buf[start + got..]) {
+                Ok(0) => {
+                    self.eof = true;
+                    break;
+                }
+                Ok(k) => got += k,
+                Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
+                Err(e) => {
+                    self.buf.truncate(start + got);
+                    return Err(Error::io("input", e));
+                }
+            }
+        }
+        self.buf.truncate(start + got);
+        Ok(())
+    }
+
+    fn auto_name(&mut self) -> String {
+        self.unnamed += 1;
+        if self.unnamed == 1 {
+            self.stem.clone()
+        } else {
+            format!("{}-{}", self.stem, self.unnamed)
+        }
+    }
+
+    fn finish(&mut self) {
+        if let Some(c) = self.current.take() {
+            let kind = match c.failed {
+                Some(e) => RawKind::Failed(e),
+                None => match self.layout {
+                    InputLayout::PlateGrid => RawKind::Grid(c.text),
+                    _ => RawKind::Wide {
+                        header: self.header.clone().unwrap_or_default(),
+                        rows: c.text,
+                    },
+                },
+            };
+            self.ready.push_back(RawPlate {
+                name: c.name,
+                first_line: c.first_line,
+                kind,
+            });
+        }
+    }
+
+    fn start(&mut self, name: String, named: bool, line: usize) {
+        self.finish();
+        let failed = (!self.names.insert(name.clone())).then(|| {
+            Error::structure(
+                line,
+                format!(
+                    "plate '{name}' appears again after other plates: keep the text of one plate together (this part is skipped)"
+                ),
+            )
+        });
+        self.current = Some(Current {
+            name,
+            named,
+            first_line: line,
+            text: Vec::new(),
+            seen: HashSet::new(),
+            failed,
+        });
+    }
+
+    /// Route one complete line (without its end) to the plate it belongs to.
+    fn line(&mut self, line: &[u8], line_no: usize) {
+        match self.layout {
+            InputLayout::PlateGrid => self.grid_line(line, line_no),
+            _ => self.wide_line(line, line_no),
+        }
+    }
+
+    fn grid_line(&mut self, line: &[u8], line_no: usize) {
+        if let Some(h) = plate::heading(line) {
+            let bits = h.wavelength_nm.as_ref().ok().map(|w| w.to_bits());
+            let new_plate = match (&self.current, &h.plate) {
+                (None, _) => true,
+                (Some(c), Some(name)) => !(c.named && &c.name == name),
+                (Some(c), None) => bits.is_some_and(|b| c.seen.contains(&b)),
+            };
+            if new_plate {
+                let (name, named) = match h.plate {
+                    Some(n) => (n, true),
+                    None => (self.auto_name(), false),
+                };
+                self.start(name, named, line_no);
+            }
+            if let (Some(c), Some(b)) = (&mut self.current, bits) {
+                c.seen.insert(b);
+            }
+        }
+        if let Some(c) = &mut self.current
+            && c.failed.is_none()
+        {
+            c.text.extend_from_slice(line);
+            c.text.push(b'\n');
+        }
+    }
+
+    fn wide_line(&mut self, line: &[u8], line_no: usize) {
+        let delim = self.delimiter.byte();
+        if fields::is_skippable(line, delim) {
+            if let Some(c) = &mut self.current
+                && c.failed.is_none()
+            {
+                c.text.push(b'\n');
+            }
+            return;
+        }
+        let first = match memchr::memchr(b'"', line) {
+            None => &line[..memchr::memchr(delim, line).unwrap_or(line.len())],
+            Some(_) => {
+                let mut f = Vec::new();
+                fields::split(line, delim, &mut f);
+                f[0]
+            }
+        };
+        let id = fields::text(first);
+        let (plate_name, well_text) = split_id(&id);
+        let key = Well::parse(well_text).map_or_else(
+            || {
+                // Not a well: keep it distinct (it fails when parsed).
+                use std::hash::{Hash, Hasher};
+                let mut h = std::collections::hash_map::DefaultHasher::new();
+                well_text.hash(&mut h);
+                h.finish() | (1 << 63)
+            },
+            |w| w.index() as u64,
+        );
+        let new_plate = match (&self.current, plate_name) {
+            (None, _) => true,
+            (Some(c), Some(p)) => !(c.named && c.name == p),
+            (Some(c), None) => c.named || c.seen.contains(&key),
+        };
+        if new_plate {
+            let (name, named) = match plate_name {
+                Some(p) => (p.to_string(), true),
+                None => (self.auto_name(), false),
+            };
+            self.start(name, named, line_no);
+        }
+        if let Some(c) = &mut self.current {
+            c.seen.insert(key);
+            if c.failed.is_none() {
+                c.text.extend_from_slice(line);
+                c.text.push(b'\n');
+            }
+        }
+    }
+
+    /// The next plate, or `None` at the end of the input. An error is an
+    /// I/O failure: the rest of the input cannot be read.
+    pub fn next_plate(&mut self) -> Result<Option<RawPlate>> {
+        loop {
+            if let Some(p) = self.ready.pop_front() {
+                return Ok(Some(p));
+            }
+            if self.layout == InputLayout::Long {
+                return Ok(None);
+            }
+            // Route every complete line in the buffer.
+            let mut consumed = 0;
+            let mut line_no = self.buf_line;
+            let buf = std::mem::take(&mut self.buf);
+            while let Some(i) = memchr::memchr(b'\n', &buf[consumed..]) {
+                let line = &buf[consumed..consumed + i];
+                let line = line.strip_suffix(b"\r").unwrap_or(line);
+                self.line(line, line_no);
+                line_no += 1;
+                consumed += i + 1;
+                if !self.ready.is_empty() && consumed > self.chunk_bytes / 4 {
+                    break;
+                }
+            }
+            let mut buf = buf;
+            buf.drain(..consumed);
+            self.buf = buf;
+            self.buf_line = line_no;
+            if !self.ready.is_empty() {
+                continue;
+            }
+            if self.eof {
+                if !self.buf.is_empty() {
+                    let rest = std::mem::take(&mut self.buf);
+                    let line = rest.strip_suffix(b"\r").unwrap_or(&rest);
+                    self.line(line, line_no);
+                    self.buf_line += 1;
+                }
+                self.finish();
+                if self.ready.is_empty() {
+                    return Ok(None);
+                }
+                continue;
+            }
+            self.fill()?;
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn plates(text: &str) -> Vec<(String, Result<PlateSpectra>)> {
+        let mut s = PlateStream::open(text.as_bytes(), "run", Quantity::Absorbance).unwrap();
+        let mut out = Vec::new();
+        while let Some(p) = s.next_plate().unwrap() {
+            out.push((p.name.clone(), p.parse(Quantity::Absorbance)));
+        }
+        out
+    }
+
+    #[test]
+    fn unnamed_grid_plates_split_where_a_wavelength_repeats() {
+        let block = |w: u32, v: f64| format!("wavelength_nm={w}\n,1,2\nA,{v},{v}\n\n");
+        let text = format!(
+            "export\n{}{}{}{}",
+            block(400, 0.1),
+            block(410, 0.2),
+            block(400, 0.3),
+            block(410, 0.4)
+        );
+        let p = plates(&text);
+        assert_eq!(p.len(), 2);
+        assert_eq!(p[0].0, "run");
+        assert_eq!(p[1].0, "run-2");
+        let second = p[1].1.as_ref().unwrap();
+        assert_eq!(second.row(0), &[0.3, 0.4]);
+    }
+
+    #[test]
+    fn named_grid_plates_and_a_plate_that_comes_back() {
+        let text = "plate=P1 wavelength_nm=400\n,1\nA,0.1\nplate=P2 wavelength_nm=400\n,1\nA,0.2\nplate=P1 wavelength_nm=410\n,1\nA,0.3\n";
+        let p = plates(text);
+        assert_eq!(p.len(), 3);
+        assert_eq!(p[1].0, "P2");
+        let e = p[2].1.as_ref().unwrap_err().to_string();
+        assert!(e.starts_with("line 7: plate 'P1' appears again"), "{e}");
+    }
+
+    #[test]
+    fn wide_rows_split_by_plate_prefix_with_file_line_numbers() {
+        let text = "sample,400,410\nP1:A1,0.1,0.2\nP1:A2,0.1,0.2\nP2:A1,0.3,x\nP2:A2,0.3,0.4\n";
+        let p = plates(text);
+        assert_eq!(p.len(), 2);
+        let p2 = p[1].1.as_ref().unwrap();
+        assert_eq!(p2.name, "P2");
+        assert_eq!(p2.wells.len(), 1);
+        assert_eq!(
+            p2.failures[0].error.to_string(),
+            "line 4, column 3 ('x'): expected an absorbance (a number)"
+        );
+    }
+
+    #[test]
+    fn bare_wells_repeat_to_start_the_next_plate() {
+        let text = "sample,400,410\nA1,0.1,0.2\nA2,0.1,0.2\nA1,0.3,0.4\nlot-1,1,1\n";
+        let p = plates(text);
+        assert_eq!(p.len(), 2);
+        let p2 = p[1].1.as_ref().unwrap();
+        assert_eq!(p2.name, "run-2");
+        assert_eq!(p2.wells.len(), 1);
+        assert!(p2.failures[0].error.to_string().contains("expected a well"));
+    }
+
+    #[test]
+    fn long_files_are_grouped_by_plate() {
+        let text = "sample,wavelength_nm,absorbance\nP1:A1,400,0.1\nP2:B3,400,0.2\nP1:A1,410,0.3\nP2:B3,410,0.4\n";
+        let p = plates(text);
+        assert_eq!(p.len(), 2);
+        let p2 = p[1].1.as_ref().unwrap();
+        assert_eq!(p2.wells[0].to_string(), "B3");
+        assert_eq!(p2.row(0), &[0.2, 0.4]);
+    }
+
+    #[test]
+    fn small_chunks_give_the_same_plates() {
+        struct Trickle<'a>(&'a [u8]);
+        impl Read for Trickle<'_> {
+            fn read(&mut self, out: &mut [u8]) -> std::io::Result<usize> {
+                let k = self.0.len().min(7).min(out.len());
+                out[..k].copy_from_slice(&self.0[..k]);
+                self.0 = &self.0[k..];
+                Ok(k)
+            }
+        }
+        let text = "plate=P1 wavelength_nm=400\n,1,2\nA,0.1,0.2\nplate=P1 wavelength_nm=410\n,1,2\nA,0.3,0.4\nplate=P2 wavelength_nm=400\n,1,2\nA,0.5,0.6";
+        let mut s =
+            PlateStream::open_with(Trickle(text.as_bytes()), "x", Quantity::Absorbance, 5).unwrap();
+        let mut names = Vec::new();
+        while let Some(p) = s.next_plate().unwrap() {
+            let name = p.name.clone();
+            let spectra = p.parse(Quantity::Absorbance).unwrap();
+            names.push((name, spectra.absorbance_au));
+        }
+        assert_eq!(names.len(), 2);
+        assert_eq!(names[0].1, vec![0.1, 0.3, 0.2, 0.4]);
+        assert_eq!(names[1].1, vec![0.5, 0.6]);
+    }
+}
