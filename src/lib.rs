@@ -19,6 +19,7 @@
 #![warn(missing_docs)]
 
 pub mod atomic;
+pub mod batch;
 pub mod cli;
 pub mod dates;
 pub mod error;

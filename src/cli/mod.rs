@@ -4,6 +4,7 @@
 //! `pub fn run`, then helpers. Flags become engine options through
 //! `TryFrom`, so the engine never depends on clap.
 
+pub mod batch;
 pub mod demo;
 pub mod fit;
 pub mod library;
@@ -44,6 +45,8 @@ pub struct Cli {
 enum Command {
     /// Fit spectra as non-negative sums of reference components.
     Fit(fit::Args),
+    /// Fit plate-reader runs: plate maps, blanks, pathlengths, dilutions, replicates.
+    Batch(batch::Args),
     /// Add, list and show reference components.
     #[command(subcommand)]
     Library(library::Command),
@@ -102,6 +105,7 @@ pub fn main() -> ExitCode {
 pub fn run(cli: Cli) -> Result<u8, Failure> {
     match cli.command {
         Command::Fit(a) => fit::run(a),
+        Command::Batch(a) => batch::run(a),
         Command::Library(c) => library::run(c),
         Command::Demo(a) => demo::run(a),
     }

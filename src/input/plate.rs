@@ -522,9 +522,13 @@ fn assemble(mut blocks: Vec<GridBlock>, name: &str, first_line: usize) -> Result
     // saturated reading or a bad cell).
     let mut read = [false; MAX_ROWS * MAX_COLUMNS];
     for b in &blocks {
-        for (slot, v) in b.values.iter().enumerate() {
-            if !(v.is_nan() || is_empty_cell(*v)) {
-                read[slot] = true;
+        for r in (0..MAX_ROWS).filter(|&r| b.row_lines[r] != 0) {
+            for c in (0..MAX_COLUMNS).filter(|&c| b.col_fields[c] != 0) {
+                let slot = r * MAX_COLUMNS + c;
+                let v = b.values[slot];
+                if !(v.is_nan() || is_empty_cell(v)) {
+                    read[slot] = true;
+                }
             }
         }
         for x in &b.bad {

@@ -7,7 +7,7 @@
 //!
 //! - `role`: `blank`, `sample`, `standard` or `empty`.
 //! - `sample`: the specimen's name; wells that share it are replicates.
-//!   Empty: the well's own name (`B3`).
+//!   Empty: the well's own name (`B3`) for samples and standards.
 //! - `dilution`: the dilution factor of the well's contents relative to
 //!   the specimen (10 = diluted tenfold), ≥ 1 by convention, > 0 required;
 //!   empty = 1.
@@ -204,7 +204,7 @@ pub fn read(bytes: &[u8]) -> Result<PlateMap> {
             "a pathlength in cm, a positive number, or an empty cell",
         )?;
         let sample = match get(c_sample) {
-            s if s.is_empty() => well.to_string(),
+            s if s.is_empty() && matches!(role, Role::Sample | Role::Standard) => well.to_string(),
             s => s,
         };
         let plate = Some(get(c_plate)).filter(|p| !p.is_empty());
@@ -265,7 +265,8 @@ mod tests {
         assert!((all[&w("A2")].dilution - 10.0).abs() < 1e-12);
         assert!((all[&w("A2")].pathlength_cm.unwrap() - 0.55).abs() < 1e-12);
         assert!((all[&w("A3")].dilution - 1.0).abs() < 1e-12);
-        assert_eq!(all[&w("A4")].sample, "A4");
+        assert_eq!(all[&w("A4")].role, Role::Empty);
+        assert_eq!(all[&w("A1")].sample, "");
     }
 
     #[test]

@@ -405,6 +405,11 @@ impl<R: Read> PlateStream<R> {
         Ok(s)
     }
 
+    /// The reader, given back (to finish a checksum, say).
+    pub fn into_inner(self) -> R {
+        self.reader
+    }
+
     /// The detected layout.
     pub fn layout(&self) -> InputLayout {
         self.layout

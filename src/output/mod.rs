@@ -2,6 +2,8 @@
 //! JSON. Units are in every column name; concentrations in CSV and JSON are
 //! always mol/L (mg/L beside them where the molar mass is known).
 
+pub mod batch;
+
 use crate::fit::{FailedSample, FitReport, Outcome, SampleResult};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};

@@ -1,0 +1,313 @@
+//! Replicate statistics: mean, standard deviation, coefficient of variation,
+//! and Grubbs' test for a single outlier.
+//!
+//! Grubbs' test (F. E. Grubbs, "Procedures for detecting outlying
+//! observations in samples", Technometrics 11:1–21, 1969; also ASTM E178 and
+//! ISO 5725-2): for n values with mean x̄ and standard deviation s, the
+//! statistic is G = max |xᵢ − x̄| / s, and the most extreme value is an
+//! outlier at two-sided significance α when
+//!
+//! ```text
+//! G > (n − 1)/√n · √( t² / (n − 2 + t²) ),   t = t_{α/(2n), n−2}
+//! ```
+//!
+//! (t the upper α/(2n) quantile of Student's t with n − 2 degrees of
+//! freedom). The test needs n ≥ 3 and assumes the rest are normal.
+//!
+//! Student's t quantile is found by bisection on its distribution function,
+//! written with the regularised incomplete beta function
+//! (continued fraction, Press et al., *Numerical Recipes*, 3rd ed., §6.4) and
+//! the Lanczos approximation of ln Γ (§6.1).
+
+/// Mean and sample standard deviation (n − 1 in the denominator; `None`
+/// for fewer than two values).
+pub fn mean_sd(values: &[f64]) -> (f64, Option<f64>) {
+    let n = values.len();
+    if n == 0 {
+        return (f64::NAN, None);
+    }
+    let mean = values.iter().sum::<f64>() / n as f64;
+    if n < 2 {
+        return (mean, None);
+    }
+    let ss: f64 = values.iter().map(|v| (v - mean).powi(2)).sum();
+    (mean, Some((ss / (n - 1) as f64).sqrt()))
+}
+
+/// Coefficient of variation in percent, 100·s/x̄; `None` when the mean is
+/// not positive (a CV of a value at zero means nothing).
+pub fn cv_percent(mean: f64, sd: Option<f64>) -> Option<f64> {
+    let sd = sd?;
+    (mean > 0.0 && mean.is_finite() && sd.is_finite()).then(|| 100.0 * sd / mean)
+}
+
+fn ln_gamma(x: f64) -> f64 {
+    // Lanczos, g = 7, n = 9 (coefficients as widely published).
+    const G: f64 = 7.0;
+    const C: [f64; 9] = [
+        0.999_999_999_999_809_9,
+        676.520_368_121_885_1,
+        -1_259.139_216_722_402_8,
+        771.323_428_777_653_1,
+        -176.615_029_162_140_6,
+        12.507_343_278_686_905,
+        -0.138_571_095_265_720_12,
+        9.984_369_578_019_572e-6,
+        1.505_632_735_149_311_6e-7,
+    ];
+    if x < 0.5 {
+        let pi = std::f64::consts::PI;
+        return (pi / (pi * x).sin()).ln() - ln_gamma(1.0 - x);
+    }
+    let x = x - 1.0;
+    let mut a = C[0];
+    let t = x + G + 0.5;
+    for (i, c) in C.iter().enumerate().skip(1) {
+        a += c / (x + i as f64);
+    }
+    0.5 * (2.0 * std::f64::consts::PI).ln() + (x + 0.5) * t.ln() - t + a.ln()
+}
+
+/// Continued fraction of the incomplete beta function (modified Lentz).
+fn beta_cf(a: f64, b: f64, x: f64) -> f64 {
+    const TINY: f64 = 1e-300;
+    let (qab, qap, qam) = (a + b, a + 1.0, a - 1.0);
+    let mut c = 1.0;
+    let mut d = 1.0 - qab * x / qap;
+    if d.abs() < TINY {
+        d = TINY;
+    }
+    d = 1.0 / d;
+    let mut h = d;
+    for m in 1..=300 {
+        let m = m as f64;
+        let m2 = 2.0 * m;
+        let aa = m * (b - m) * x / ((qam + m2) * (a + m2));
+        d = 1.0 + aa * d;
+        if d.abs() < TINY {
+            d = TINY;
+        }
+        c = 1.0 + aa / c;
+        if c.abs() < TINY {
+            c = TINY;
+        }
+        d = 1.0 / d;
+        h *= d * c;
+        let aa = -(a + m) * (qab + m) * x / ((a + m2) * (qap + m2));
+        d = 1.0 + aa * d;
+        if d.abs() < TINY {
+            d = TINY;
+        }
+        c = 1.0 + aa / c;
+        if c.abs() < TINY {
+            c = TINY;
+        }
+        d = 1.0 / d;
+        let del = d * c;
+        h *= del;
+        if (del - 1.0).abs() < 1e-15 {
+            break;
+        }
+    }
+    h
+}
+
+/// Regularised incomplete beta function I_x(a, b).
+fn incomplete_beta(a: f64, b: f64, x: f64) -> f64 {
+    if x <= 0.0 {
+        return 0.0;
+    }
+    if x >= 1.0 {
+        return 1.0;
+    }
+    let ln_front = ln_gamma(a + b) - ln_gamma(a) - ln_gamma(b) + a * x.ln() + b * (1.0 - x).ln();
+    if x < (a + 1.0) / (a + b + 2.0) {
+        ln_front.exp() * beta_cf(a, b, x) / a
+    } else {
+        1.0 - ln_front.exp() * beta_cf(b, a, 1.0 - x) / b
+    }
+}
+
+/// Distribution function of Student's t with `df` degrees of freedom.
+pub fn t_cdf(t: f64, df: f64) -> f64 {
+    let x = df / (df + t * t);
+    let tail = 0.5 * incomplete_beta(0.5 * df, 0.5, x);
+    if t >= 0.0 { 1.0 - tail } else { tail }
+}
+
+/// The `p` quantile (0 < p < 1) of Student's t with `df` degrees of freedom.
+pub fn t_quantile(p: f64, df: f64) -> f64 {
+    if p < 0.5 {
+        return -t_quantile(1.0 - p, df);
+    }
+    let (mut lo, mut hi) = (0.0f64, 1.0f64);
+    while t_cdf(hi, df) < p && hi < 1e12 {
+        lo = hi;
+        hi *= 2.0;
+    }
+    for _ in 0..200 {
+        let mid = 0.5 * (lo + hi);
+        if t_cdf(mid, df) < p {
+            lo = mid;
+        } else {
+            hi = mid;
+        }
+        if hi - lo <= 1e-14 * hi {
+            break;
+        }
+    }
+    0.5 * (lo + hi)
+}
+
+/// Grubbs' two-sided critical value for `n` values at significance `alpha`
+/// (`None` for n < 3, where the test is undefined).
+pub fn grubbs_critical(n: usize, alpha: f64) -> Option<f64> {
+    if n < 3 || !(alpha > 0.0 && alpha < 1.0) {
+        return None;
+    }
+    let nf = n as f64;
+    let t = t_quantile(1.0 - alpha / (2.0 * nf), nf - 2.0);
+    Some((nf - 1.0) / nf.sqrt() * (t * t / (nf - 2.0 + t * t)).sqrt())
+}
+
+/// [`grubbs_critical`], remembered: a batch asks for the same few (n, α)
+/// thousands of times.
+pub fn grubbs_critical_cached(n: usize, alpha: f64) -> Option<f64> {
+    use std::collections::HashMap;
+    use std::sync::{Mutex, OnceLock};
+    type Table = HashMap<(usize, u64), Option<f64>>;
+    static CACHE: OnceLock<Mutex<Table>> = OnceLock::new();
+    let cache = CACHE.get_or_init(|| Mutex::new(HashMap::new()));
+    let key = (n, alpha.to_bits());
+    if let Ok(c) = cache.lock()
+        && let Some(v) = c.get(&key)
+    {
+        return *v;
+    }
+    let v = grubbs_critical(n, alpha);
+    if let Ok(mut c) = cache.lock() {
+        c.insert(key, v);
+    }
+    v
+}
+
+/// The result of Grubbs' test on one set of values.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Grubbs {
+    /// Index of the most extreme value.
+    pub index: usize,
+    /// The statistic G.
+    pub g: f64,
+    /// The critical value at the chosen α.
+    pub critical: f64,
+}
+
+impl Grubbs {
+    /// Whether the most extreme value is an outlier.
+    pub fn is_outlier(&self) -> bool {
+        self.g > self.critical
+    }
+}
+
+/// Run Grubbs' test; `None` when it cannot be run (n < 3, or no spread).
+pub fn grubbs(values: &[f64], alpha: f64) -> Option<Grubbs> {
+    let critical = grubbs_critical_cached(values.len(), alpha)?;
+    let (mean, sd) = mean_sd(values);
+    let sd = sd?;
+    let scale = values.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+    if !(sd > 1e-12 * scale && sd.is_finite()) {
+        return None;
+    }
+    let (index, dev) = values
+        .iter()
+        .enumerate()
+        .map(|(i, v)| (i, (v - mean).abs()))
+        .fold((0, f64::NEG_INFINITY), |b, x| if x.1 > b.1 { x } else { b });
+    Some(Grubbs {
+        index,
+        g: dev / sd,
+        critical,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Relative agreement with scipy's quantiles: bisection stops near
+    /// 1e-14 and the continued fraction converges to about 1e-15.
+    const REL_TOL: f64 = 1e-9;
+
+    #[test]
+    fn t_quantiles_match_scipy() {
+        // scipy.stats.t.ppf(p, df), scipy 1.17.1.
+        let cases = [
+            (1.0, 0.975, 12.706204736174694),
+            (2.0, 0.99, 6.9645567342832715),
+            (5.0, 0.995, 4.032142983555228),
+            (10.0, 0.9, 1.372183641110336),
+            (30.0, 0.999, 3.3851848668293045),
+            (1.0, 0.9916666666666667, 38.188459297025744),
+            (100.0, 0.975, 1.9839715185235518),
+        ];
+        for (df, p, want) in cases {
+            let got = t_quantile(p, df);
+            assert!(
+                ((got - want) / want).abs() < REL_TOL,
+                "df {df} p {p}: {got} vs {want}"
+            );
+        }
+        assert!((t_quantile(0.025, 1.0) + 12.706204736174694).abs() < 1e-8);
+    }
+
+    #[test]
+    fn grubbs_critical_values_match_the_published_table() {
+        // Two-sided α = 0.05: computed with scipy.stats.t.ppf from Grubbs'
+        // (1969) formula; they agree with the ASTM E178 table to its three
+        // decimals (1.155, 1.481, 1.715, 1.887, 2.126, 2.290; recalled from
+        // memory).
+        let cases = [
+            (3, 1.1543048513440386),
+            (4, 1.4812500000000002),
+            (5, 1.7150373123433635),
+            (6, 1.8871451177839336),
+            (8, 2.1266450871954667),
+            (10, 2.2899540844796036),
+            (20, 2.7082456458057584),
+            (50, 3.1282473343309976),
+        ];
+        for (n, want) in cases {
+            let got = grubbs_critical(n, 0.05).unwrap();
+            assert!(
+                ((got - want) / want).abs() < REL_TOL,
+                "n {n}: {got} vs {want}"
+            );
+        }
+        // α = 0.01 (same source).
+        let got = grubbs_critical(10, 0.01).unwrap();
+        assert!(((got - 2.482083249715342) / 2.482083249715342).abs() < REL_TOL);
+        assert!(grubbs_critical(2, 0.05).is_none());
+    }
+
+    #[test]
+    fn a_far_value_is_an_outlier_and_a_close_one_is_not() {
+        let g = grubbs(&[1.00, 1.01, 0.99, 1.02, 1.60], 0.05).unwrap();
+        assert_eq!(g.index, 4);
+        assert!(g.is_outlier());
+        let g = grubbs(&[1.00, 1.01, 0.99, 1.02, 1.03], 0.05).unwrap();
+        assert!(!g.is_outlier());
+        assert!(grubbs(&[1.0, 1.0, 1.0], 0.05).is_none());
+        assert!(grubbs(&[1.0, 2.0], 0.05).is_none());
+    }
+
+    #[test]
+    fn mean_sd_and_cv_follow_their_definitions() {
+        // numpy.std([2, 4, 4, 4, 5, 5, 7, 9], ddof=1) = 2.138089935299395.
+        let (m, s) = mean_sd(&[2.0, 4.0, 4.0, 4.0, 5.0, 5.0, 7.0, 9.0]);
+        assert!((m - 5.0).abs() < 1e-12);
+        assert!((s.unwrap() - 2.138089935299395).abs() < 1e-12);
+        assert!((cv_percent(m, s).unwrap() - 42.7617987059879).abs() < 1e-9);
+        assert_eq!(mean_sd(&[3.0]).1, None);
+        assert_eq!(cv_percent(0.0, Some(1.0)), None);
+    }
+}

@@ -1,0 +1,619 @@
+//! `unblend batch`: plate-reader runs: plate maps, blanks, pathlengths,
+//! dilutions, replicates; per-well and per-sample results.
+
+use super::fit::{BaselineArg, QuantityArg};
+use super::{Failure, exit, library_dir, parse_positive, parse_range_nm};
+use crate::atomic::AtomicFile;
+use crate::batch::run::{self, Event, InputSummary, RunSpec};
+use crate::batch::{BatchOptions, Models, PlateResult, WaterBand};
+use crate::fit::FitOptions;
+use crate::input::platemap;
+use crate::output::batch::{RenderedPlate, SAMPLES_HEADER, WELLS_HEADER, render_plate};
+use crate::reference::{Library, ReferenceSet};
+use sha2::{Digest, Sha256};
+use std::io::{IsTerminal, Write};
+use std::path::{Path, PathBuf};
+use std::sync::atomic::{AtomicU64, Ordering};
+use std::time::Instant;
+
+const AFTER_HELP: &str = "\
+Inputs: the plate-grid layout (blocks headed `wavelength_nm=<nm>`, a grid of rows A–P and
+columns 1–24 under each), or the wide and long layouts of `fit` with well identifiers
+(`A1`, or `plate1:A1`) as sample names. See the README for the layouts and the plate map.
+
+Outputs in --out-dir: wells.csv (per well and component), samples.csv (per sample and
+component: mean, SD, CV% of the undiluted concentration), run.json (everything), and
+run-log.txt (inputs with SHA-256, components, options, version). All are written under
+temporary names and renamed only when the run is complete.
+
+Exit codes:
+  0  success
+  1  failure: nothing was fitted or written (bad plate map, library or option, or no input
+     could be read)
+  2  command-line usage error
+  3  partial: some files, plates or wells could not be read or fitted (listed in the
+     outputs with their errors); the rest were
+
+Results are decision support, not a certified analysis.";
+
+/// Fit every well of one or more plates; blanks, pathlengths, dilutions and
+/// replicates from a plate map.
+#[derive(Debug, clap::Args)]
+#[command(after_help = AFTER_HELP)]
+pub struct Args {
+    /// Input files (plate-grid, wide or long layout); `-` reads standard input.
+    #[arg(required = true, value_name = "INPUT")]
+    pub inputs: Vec<PathBuf>,
+    /// Plate map CSV `well,role,sample,dilution,pathlength_cm` (role: blank, sample,
+    /// standard, empty; optional `plate` column). Without it every well is a sample.
+    #[arg(long, value_name = "MAP.csv")]
+    pub plate_map: Option<PathBuf>,
+    /// Library folder of component files [default: $UNBLEND_LIBRARY or ./library].
+    #[arg(long, value_name = "DIR")]
+    pub library: Option<PathBuf>,
+    /// Components to fit, comma separated [default: every component in the library].
+    #[arg(long, value_delimiter = ',', value_name = "NAMES")]
+    pub components: Vec<String>,
+    /// Pathlength in cm for wells whose map gives none (and without --pathlength-from-water).
+    #[arg(long, default_value = "1", value_parser = parse_positive, value_name = "CM")]
+    pub pathlength_cm: f64,
+    /// Pathlength of each well from the near-infrared water band:
+    /// l = (A(977 nm) − A(900 nm)) / --water-au-per-cm, from the reading before blank
+    /// subtraction. The map's pathlength_cm, where given, wins.
+    #[arg(long)]
+    pub pathlength_from_water: bool,
+    /// A(977 nm) − A(900 nm) of 1 cm of water, AU/cm (about 0.18 at room temperature;
+    /// it depends on temperature).
+    #[arg(long, default_value = "0.18", value_parser = parse_positive, value_name = "AU_PER_CM")]
+    pub water_au_per_cm: f64,
+    /// Baseline terms fitted beside the components (free in sign): offset in AU, slope in AU/nm.
+    #[arg(long, value_enum, default_value_t = BaselineArg::Offset)]
+    pub baseline: BaselineArg,
+    /// Wavelength window LO:HI in nm [default: all wavelengths the plate and every reference cover].
+    #[arg(long, value_parser = parse_range_nm, value_name = "LO:HI")]
+    pub range_nm: Option<(f64, f64)>,
+    /// What the numbers in the inputs are.
+    #[arg(long, value_enum, default_value_t = QuantityArg::Absorbance)]
+    pub quantity: QuantityArg,
+    /// Significance level of the outlier tests (Grubbs, two-sided) on replicates and blanks.
+    #[arg(long, default_value = "0.05", value_parser = parse_alpha, value_name = "ALPHA")]
+    pub outlier_alpha: f64,
+    /// Keep wells flagged as outliers in the blank and the replicate statistics.
+    #[arg(long)]
+    pub keep_outliers: bool,
+    /// Folder for the outputs (created if missing; existing files are replaced).
+    #[arg(long, default_value = "unblend-batch", value_name = "DIR")]
+    pub out_dir: PathBuf,
+    /// Never show the progress bar (it only shows when stderr is a terminal).
+    #[arg(long)]
+    pub no_progress: bool,
+}
+
+fn parse_alpha(s: &str) -> Result<f64, String> {
+    match s.trim().parse::<f64>() {
+        Ok(v) if v > 0.0 && v < 0.5 => Ok(v),
+        _ => Err(format!(
+            "'{s}': expected a significance level between 0 and 0.5, e.g. 0.05"
+        )),
+    }
+}
+
+impl TryFrom<&Args> for BatchOptions {
+    type Error = Failure;
+    // `..FitOptions::default()` keeps this compiling when fit options gain
+    // fields (the diagnostics' options), which then take their defaults.
+    #[allow(clippy::needless_update)]
+    fn try_from(a: &Args) -> Result<Self, Failure> {
+        Ok(BatchOptions {
+            fit: FitOptions {
+                baseline: a.baseline.into(),
+                window_nm: a.range_nm,
+                pathlength_cm: a.pathlength_cm,
+                ..FitOptions::default()
+            },
+            water: a.pathlength_from_water.then(|| WaterBand {
+                au_per_cm: a.water_au_per_cm,
+                ..WaterBand::default()
+            }),
+            outlier_alpha: a.outlier_alpha,
+            keep_outliers: a.keep_outliers,
+        })
+    }
+}
+
+/// Run `unblend batch`.
+pub fn run(args: Args) -> Result<u8, Failure> {
+    let started = Instant::now();
+    let started_utc = now_utc();
+    let options = BatchOptions::try_from(&args)?;
+    if args.inputs.iter().filter(|p| p.as_os_str() == "-").count() > 1 {
+        return Err(Failure {
+            message: "standard input ('-') can be given only once".into(),
+            code: exit::USAGE,
+        });
+    }
+    let (map, map_info) = match &args.plate_map {
+        Some(path) => {
+            let bytes = std::fs::read(path)
+                .map_err(|e| Failure::new(format!("plate map {}: {e}", path.display())))?;
+            let map = platemap::read(&bytes)
+                .map_err(|e| Failure::new(format!("plate map {}: {e}", path.display())))?;
+            let info = format!(
+                "{}  sha256 {}  ({} entries)",
+                path.display(),
+                hex(&Sha256::digest(&bytes)),
+                map.len()
+            );
+            (Some(map), Some(info))
+        }
+        None => (None, None),
+    };
+    let dir = library_dir(args.library.clone());
+    let library = Library::open(&dir)?;
+    let refs = library.select(&args.components)?;
+    std::fs::create_dir_all(&args.out_dir)
+        .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
+    let mut out = Outputs::create(&args.out_dir)?;
+    out.begin(&refs, &options, &args)
+        .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
+
+    let total_bytes: Option<u64> = args
+        .inputs
+        .iter()
+        .map(|p| {
+            (p.as_os_str() != "-")
+                .then(|| std::fs::metadata(p).ok().map(|m| m.len()))
+                .flatten()
+        })
+        .sum();
+    let bar = (!args.no_progress && std::io::stderr().is_terminal()).then(|| {
+        let bar = match total_bytes {
+            Some(t) => indicatif::ProgressBar::new(t),
+            None => indicatif::ProgressBar::new_spinner(),
+        };
+        let style = indicatif::ProgressStyle::with_template(
+            "{spinner} {elapsed_precise} [{wide_bar}] {bytes}/{total_bytes} {msg}",
+        )
+        .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar());
+        bar.set_style(style);
+        bar
+    });
+
+    let mut tally = Tally::default();
+    if map.is_none() {
+        tally.warn("no --plate-map given: every well is a sample named after its well, and no blank is subtracted".into());
+    }
+    let bytes_read = AtomicU64::new(0);
+    let spec = RunSpec {
+        inputs: &args.inputs,
+        map: map.as_ref(),
+        quantity: args.quantity.into(),
+        options: &options,
+        bytes_read: &bytes_read,
+    };
+    let models = Models::new(&refs, options.fit);
+    let result = run::run(&spec, &models, render_plate, |event| {
+        match event {
+            Event::Plate(p, rendered) => {
+                tally.plate(&p);
+                out.plate(&rendered)?;
+            }
+            Event::Input(s) => {
+                if let Some(e) = &s.error {
+                    let msg = format!("{}: {e} (skipped)", s.path);
+                    if let Some(b) = &bar {
+                        b.suspend(|| eprintln!("unblend: error: {msg}"));
+                    } else {
+                        eprintln!("unblend: error: {msg}");
+                    }
+                }
+                tally.inputs.push(s);
+            }
+        }
+        if let Some(b) = &bar {
+            b.set_position(bytes_read.load(Ordering::Relaxed));
+            b.set_message(format!(
+                "{} plates, {} wells",
+                tally.plates, tally.wells_fitted
+            ));
+        }
+        Ok(())
+    });
+    if let Some(b) = &bar {
+        b.finish_and_clear();
+    }
+    result.map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
+    let elapsed_s = started.elapsed().as_secs_f64();
+
+    let any_input = tally
+        .inputs
+        .iter()
+        .any(|s| s.error.is_none() || s.plates > 0);
+    if !any_input {
+        return Err(Failure::new(
+            "no input could be read: nothing was written (errors above)",
+        ));
+    }
+    for w in tally.warnings.iter().take(SHOWN_WARNINGS) {
+        eprintln!("unblend: warning: {w}");
+    }
+    if tally.n_warnings > SHOWN_WARNINGS {
+        eprintln!(
+            "unblend: {} more warning(s) in run-log.txt and run.json",
+            tally.n_warnings - SHOWN_WARNINGS
+        );
+    }
+    let log = LogInfo {
+        started_utc,
+        elapsed_s,
+        map: map_info,
+        library_dir: &dir,
+        refs: &refs,
+        options: &options,
+        args: &args,
+    };
+    let paths = out
+        .finish(&tally, &log)
+        .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
+    let rate = tally.wells_fitted as f64 / elapsed_s.max(1e-9);
+    eprintln!(
+        "unblend: {} plate(s), {} well(s) fitted, {} failed, in {elapsed_s:.2} s ({rate:.0} wells/s); wrote {}",
+        tally.plates,
+        tally.wells_fitted,
+        tally.wells_failed,
+        paths.join(", ")
+    );
+    if tally.failures() > 0 {
+        eprintln!(
+            "unblend: {} file(s), {} plate(s) and {} well(s) could not be used: see the error column of wells.csv and run-log.txt",
+            tally.inputs_failed(),
+            tally.plates_failed,
+            tally.wells_failed
+        );
+    }
+    Ok(if tally.failures() == 0 {
+        exit::OK
+    } else if tally.wells_fitted == 0 {
+        exit::FAILED
+    } else {
+        exit::PARTIAL
+    })
+}
+
+/// Warnings printed to stderr; the rest go to the run log.
+const SHOWN_WARNINGS: usize = 20;
+/// Warnings kept for the run log and JSON (per-plate warnings are also in
+/// each plate's JSON object).
+const KEPT_WARNINGS: usize = 1000;
+
+/// Counters over the run (bounded memory: counts, not rows).
+#[derive(Default)]
+struct Tally {
+    plates: usize,
+    plates_failed: usize,
+    wells_fitted: usize,
+    wells_failed: usize,
+    blanks: usize,
+    blank_outliers: usize,
+    replicate_outliers: usize,
+    saturated: usize,
+    samples: usize,
+    inputs: Vec<InputSummary>,
+    warnings: Vec<String>,
+    n_warnings: usize,
+}
+
+impl Tally {
+    fn warn(&mut self, w: String) {
+        self.n_warnings += 1;
+        if self.warnings.len() < KEPT_WARNINGS && !self.warnings.contains(&w) {
+            self.warnings.push(w);
+        }
+    }
+
+    fn plate(&mut self, p: &PlateResult) {
+        self.plates += 1;
+        if let Some(e) = &p.error {
+            self.plates_failed += 1;
+            self.warn(format!("plate '{}' ({}): {e}", p.plate, p.input));
+        }
+        self.wells_fitted += p.n_fitted();
+        self.wells_failed += p.n_failed();
+        self.blanks += p.blank.wells.len();
+        self.blank_outliers += p.blank.outliers.len();
+        self.samples += p.samples.len();
+        for w in &p.wells {
+            if w.flags
+                .iter()
+                .any(|f| f == crate::batch::FLAG_REPLICATE_OUTLIER)
+            {
+                self.replicate_outliers += 1;
+            }
+            if w.flags.iter().any(|f| f == crate::batch::FLAG_SATURATED) {
+                self.saturated += 1;
+            }
+        }
+        for w in &p.warnings {
+            self.warn(w.clone());
+        }
+    }
+
+    fn inputs_failed(&self) -> usize {
+        self.inputs.iter().filter(|s| s.error.is_some()).count()
+    }
+
+    fn failures(&self) -> usize {
+        self.inputs_failed() + self.plates_failed + self.wells_failed
+    }
+}
+
+/// The four output files, filled as the run goes and committed together.
+struct Outputs {
+    wells: AtomicFile,
+    samples: AtomicFile,
+    json: AtomicFile,
+    log: AtomicFile,
+    first_plate: bool,
+}
+
+struct LogInfo<'a> {
+    started_utc: String,
+    elapsed_s: f64,
+    map: Option<String>,
+    library_dir: &'a Path,
+    refs: &'a ReferenceSet,
+    options: &'a BatchOptions,
+    args: &'a Args,
+}
+
+impl Outputs {
+    fn create(dir: &Path) -> Result<Self, Failure> {
+        Ok(Outputs {
+            wells: AtomicFile::create(&dir.join("wells.csv"))?,
+            samples: AtomicFile::create(&dir.join("samples.csv"))?,
+            json: AtomicFile::create(&dir.join("run.json"))?,
+            log: AtomicFile::create(&dir.join("run-log.txt"))?,
+            first_plate: true,
+        })
+    }
+
+    fn begin(
+        &mut self,
+        refs: &ReferenceSet,
+        options: &BatchOptions,
+        args: &Args,
+    ) -> std::io::Result<()> {
+        writeln!(self.wells, "{WELLS_HEADER}")?;
+        writeln!(self.samples, "{SAMPLES_HEADER}")?;
+        let head = serde_json::json!({
+            "tool": {"name": "unblend", "version": env!("CARGO_PKG_VERSION")},
+            "components": refs.names(),
+            "options": options_json(options, args),
+        });
+        let head = serde_json::to_string(&head).map_err(std::io::Error::other)?;
+        // Open the object and the `plates` array; closed in `finish`.
+        self.json.write_all(&head.as_bytes()[..head.len() - 1])?;
+        self.json.write_all(b",\"plates\":[")?;
+        Ok(())
+    }
+
+    fn plate(&mut self, r: &RenderedPlate) -> std::io::Result<()> {
+        self.wells.write_all(r.wells_csv.as_bytes())?;
+        self.samples.write_all(r.samples_csv.as_bytes())?;
+        if !self.first_plate {
+            self.json.write_all(b",\n")?;
+        }
+        self.first_plate = false;
+        self.json.write_all(r.json.as_bytes())
+    }
+
+    fn finish(mut self, t: &Tally, log: &LogInfo) -> Result<Vec<String>, crate::Error> {
+        let io = |e: std::io::Error| crate::Error::io("output", e);
+        let tail = serde_json::json!({
+            "inputs": t.inputs,
+            "summary": {
+                "plates": t.plates,
+                "plates_failed": t.plates_failed,
+                "wells_fitted": t.wells_fitted,
+                "wells_failed": t.wells_failed,
+                "blank_wells": t.blanks,
+                "blank_outliers": t.blank_outliers,
+                "replicate_outliers": t.replicate_outliers,
+                "saturated_wells": t.saturated,
+                "samples": t.samples,
+                "elapsed_s": log.elapsed_s,
+            },
+            "warnings": t.warnings,
+        });
+        let tail = serde_json::to_string(&tail).map_err(|e| io(std::io::Error::other(e)))?;
+        self.json.write_all(b"],").map_err(io)?;
+        self.json.write_all(&tail.as_bytes()[1..]).map_err(io)?;
+        self.json.write_all(b"\n").map_err(io)?;
+        write_log(&mut self.log, t, log).map_err(io)?;
+        let mut paths = Vec::new();
+        for f in [self.wells, self.samples, self.json, self.log] {
+            paths.push(f.target().display().to_string());
+            f.commit()?;
+        }
+        Ok(paths)
+    }
+}
+
+fn options_json(o: &BatchOptions, a: &Args) -> serde_json::Value {
+    serde_json::json!({
+        "baseline": format!("{:?}", o.fit.baseline).to_lowercase(),
+        "range_nm": o.fit.window_nm.map(|(lo, hi)| [lo, hi]),
+        "quantity": format!("{:?}", a.quantity).to_lowercase(),
+        "pathlength_cm": o.fit.pathlength_cm,
+        "water_band": o.water,
+        "outlier_test": "grubbs-two-sided",
+        "outlier_alpha": o.outlier_alpha,
+        "outlier_min_std_errors": crate::batch::OUTLIER_MIN_STD_ERRORS,
+        "keep_outliers": o.keep_outliers,
+        "plate_map": a.plate_map.as_ref().map(|p| p.display().to_string()),
+    })
+}
+
+fn write_log(w: &mut dyn Write, t: &Tally, l: &LogInfo) -> std::io::Result<()> {
+    let o = l.options;
+    writeln!(w, "unblend batch: run log")?;
+    writeln!(w, "tool:       unblend {}", env!("CARGO_PKG_VERSION"))?;
+    writeln!(w, "started:    {}", l.started_utc)?;
+    let command: Vec<String> = std::env::args().map(|a| shell_word(&a)).collect();
+    writeln!(w, "command:    {}", command.join(" "))?;
+    writeln!(
+        w,
+        "elapsed:    {:.2} s ({:.0} wells/s, {} thread(s))",
+        l.elapsed_s,
+        t.wells_fitted as f64 / l.elapsed_s.max(1e-9),
+        rayon::current_num_threads()
+    )?;
+    writeln!(w, "\ninputs")?;
+    for s in &t.inputs {
+        match (&s.error, &s.sha256) {
+            (None, Some(sha)) => writeln!(
+                w,
+                "  {}  {}  {} plate(s)  {} bytes  sha256 {sha}",
+                s.path,
+                s.layout.unwrap_or("?"),
+                s.plates,
+                s.bytes
+            )?,
+            (e, _) => writeln!(
+                w,
+                "  {}  {} plate(s) read  ERROR: {}",
+                s.path,
+                s.plates,
+                e.as_deref().unwrap_or("not read to the end")
+            )?,
+        }
+    }
+    writeln!(
+        w,
+        "plate map:  {}",
+        l.map
+            .as_deref()
+            .unwrap_or("none (every well a sample, no blank)")
+    )?;
+    writeln!(w, "library:    {}", l.library_dir.display())?;
+    writeln!(w, "components:")?;
+    for c in &l.refs.components {
+        let path = Library::path_for(l.library_dir, &c.name);
+        let sha = std::fs::read(&path)
+            .map(|b| hex(&Sha256::digest(&b)))
+            .unwrap_or_else(|_| "?".into());
+        let (lo, hi) = c.range_nm();
+        writeln!(
+            w,
+            "  {}  {lo}–{hi} nm  {}  sha256 {sha}",
+            c.name,
+            path.display()
+        )?;
+    }
+    writeln!(w, "\noptions")?;
+    writeln!(
+        w,
+        "  range:       {}",
+        o.fit.window_nm.map_or(
+            "every wavelength the plate and all references cover".into(),
+            |(lo, hi)| format!("{lo}–{hi} nm (within what the plate and references cover)")
+        )
+    )?;
+    writeln!(
+        w,
+        "  baseline:    {}",
+        format!("{:?}", o.fit.baseline).to_lowercase()
+    )?;
+    writeln!(
+        w,
+        "  quantity:    {}",
+        format!("{:?}", l.args.quantity).to_lowercase()
+    )?;
+    match o.water {
+        Some(wb) => writeln!(
+            w,
+            "  pathlength:  plate map, else water band l = (A({} nm) − A({} nm)) / {} AU/cm (readings before blank subtraction; the constant depends on temperature), else {} cm",
+            wb.peak_nm, wb.reference_nm, wb.au_per_cm, o.fit.pathlength_cm
+        )?,
+        None => writeln!(
+            w,
+            "  pathlength:  plate map, else {} cm",
+            o.fit.pathlength_cm
+        )?,
+    }
+    writeln!(
+        w,
+        "  outliers:    Grubbs (1969) two-sided, α = {}, and more than {} standard errors from the other replicates; {}",
+        o.outlier_alpha,
+        crate::batch::OUTLIER_MIN_STD_ERRORS,
+        if o.keep_outliers {
+            "flagged wells kept in the statistics"
+        } else {
+            "flagged wells left out of the blank and the statistics"
+        }
+    )?;
+    writeln!(w, "\nresults")?;
+    writeln!(
+        w,
+        "  plates:      {} read, {} could not be read",
+        t.plates, t.plates_failed
+    )?;
+    writeln!(
+        w,
+        "  wells:       {} fitted, {} failed, {} with saturated readings, {} replicate outlier(s)",
+        t.wells_fitted, t.wells_failed, t.saturated, t.replicate_outliers
+    )?;
+    writeln!(
+        w,
+        "  blanks:      {} well(s), {} outlier(s)",
+        t.blanks, t.blank_outliers
+    )?;
+    writeln!(w, "  samples:     {} (per plate)", t.samples)?;
+    writeln!(
+        w,
+        "\noutputs:     wells.csv, samples.csv, run.json, run-log.txt"
+    )?;
+    if !t.warnings.is_empty() {
+        writeln!(w, "\nwarnings")?;
+        for x in &t.warnings {
+            writeln!(w, "  {x}")?;
+        }
+        if t.n_warnings > t.warnings.len() {
+            writeln!(
+                w,
+                "  … {} more (repeats, or past the first {KEPT_WARNINGS}; each plate's own are in run.json)",
+                t.n_warnings - t.warnings.len()
+            )?;
+        }
+    }
+    writeln!(
+        w,
+        "\nResults are decision support, not a certified analysis."
+    )
+}
+
+fn shell_word(s: &str) -> String {
+    if !s.is_empty()
+        && s.chars()
+            .all(|c| c.is_ascii_alphanumeric() || "-_./:=,+".contains(c))
+    {
+        s.to_string()
+    } else {
+        format!("'{}'", s.replace('\'', "'\\''"))
+    }
+}
+
+fn hex(bytes: &[u8]) -> String {
+    bytes.iter().map(|b| format!("{b:02x}")).collect()
+}
+
+/// Now, UTC, as `YYYY-MM-DD HH:MM:SS UTC`.
+fn now_utc() -> String {
+    let secs = std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .map(|d| d.as_secs())
+        .unwrap_or(0);
+    let day = crate::dates::civil_from_days((secs / 86_400) as i64);
+    let s = secs % 86_400;
+    format!("{day} {:02}:{:02}:{:02} UTC", s / 3600, s / 60 % 60, s % 60)
+}
