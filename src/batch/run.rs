@@ -212,7 +212,17 @@ where
             let entries = spec.map.and_then(|m| m.for_plate(&name));
             let result = match raw.parse(spec.quantity) {
                 Ok(spectra) => {
-                    process_plate(spectra, input_name, entries.as_ref(), models, spec.options)
+                    let mut r =
+                        process_plate(spectra, input_name, entries.as_ref(), models, spec.options);
+                    if spec.map.is_some() && entries.is_none() {
+                        r.warnings.insert(
+                            0,
+                            format!(
+                                "plate '{name}' has no entries in the plate map: every well treated as a sample named after its well, no blank subtracted"
+                            ),
+                        );
+                    }
+                    r
                 }
                 Err(e) => PlateResult::failed(&name, input_name, e.to_string()),
             };
