@@ -915,3 +915,267 @@ fn replicates(wells: &mut [WellResult], options: &BatchOptions) -> Vec<SampleSum
     }
     out
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::input::plate::PlateFormat;
+    use crate::reference::{Component, Conditions, Source};
+
+    /// A smooth invented band (Gaussian), ε in L/(mol·cm).
+    fn band(name: &str, centre_nm: f64, peak: f64) -> Component {
+        let w: Vec<f64> = (300..=1000).map(f64::from).collect();
+        let e = w
+            .iter()
+            .map(|x| peak * (-((x - centre_nm) / 40.0).powi(2)).exp())
+            .collect();
+        Component {
+            name: name.into(),
+            molar_mass_g_per_mol: None,
+            note: None,
+            created: String::new(),
+            conditions: Conditions::default(),
+            source: Source {
+                kind: "imported".into(),
+                file: None,
+                sha256: None,
+            },
+            grid: Grid::new(w).unwrap(),
+            epsilon_l_per_mol_cm: e,
+            epsilon_std_error_l_per_mol_cm: None,
+            extra: toml::Table::new(),
+        }
+    }
+
+    fn refs() -> ReferenceSet {
+        ReferenceSet {
+            components: vec![band("a", 450.0, 20_000.0), band("b", 600.0, 15_000.0)],
+        }
+    }
+
+    /// Wavelengths 400–700 nm every 5 nm, then the two water band points.
+    fn grid() -> Vec<f64> {
+        let mut g: Vec<f64> = (0..61).map(|i| 400.0 + 5.0 * i as f64).collect();
+        g.extend([900.0, 977.0]);
+        g
+    }
+
+    /// A(λ) = l·Σ εc + l·water(λ) + plate offset: no noise. Water:
+    /// A(977) − A(900) = 0.18 AU per cm (the default constant).
+    fn well(refs: &ReferenceSet, c: [f64; 2], l_cm: f64) -> Vec<f64> {
+        grid()
+            .iter()
+            .map(|&nm| {
+                let water = if nm > 950.0 {
+                    0.21
+                } else if nm > 800.0 {
+                    0.03
+                } else {
+                    0.0
+                };
+                let s: f64 = refs
+                    .components
+                    .iter()
+                    .zip(c)
+                    .map(|(k, c)| k.epsilon_at(nm).unwrap() * c)
+                    .sum();
+                0.045 + l_cm * (s + water)
+            })
+            .collect()
+    }
+
+    fn plate(rows: Vec<Vec<f64>>, wells: &[&str]) -> PlateSpectra {
+        let g = Arc::new(Grid::new(grid()).unwrap());
+        PlateSpectra {
+            name: "t".into(),
+            format: PlateFormat::Wells96,
+            grid: Some(g),
+            wells: wells.iter().map(|w| Well::parse(w).unwrap()).collect(),
+            absorbance_au: rows.concat(),
+            failures: Vec::new(),
+        }
+    }
+
+    fn entry(role: Role, sample: &str) -> MapEntry {
+        MapEntry {
+            role,
+            sample: sample.into(),
+            dilution: 1.0,
+            pathlength_cm: None,
+            line: 0,
+        }
+    }
+
+    fn map(entries: &[(&str, MapEntry)]) -> HashMap<Well, MapEntry> {
+        entries
+            .iter()
+            .map(|(w, e)| (Well::parse(w).unwrap(), e.clone()))
+            .collect()
+    }
+
+    /// Noise-free data come back to rounding.
+    const EXACT_REL: f64 = 1e-8;
+
+    #[test]
+    fn water_band_returns_the_pathlength_it_was_made_with() {
+        let refs = refs();
+        let c = [5e-6, 3e-6];
+        let paths = [0.31, 0.47, 0.62];
+        let mut rows = vec![well(&refs, [0.0, 0.0], 0.5)];
+        rows.extend(paths.iter().map(|&l| well(&refs, c, l)));
+        let p = plate(rows, &["A1", "A2", "A3", "A4"]);
+        let m = map(&[
+            ("A1", entry(Role::Blank, "")),
+            ("A2", entry(Role::Sample, "x")),
+            ("A3", entry(Role::Sample, "x")),
+            ("A4", entry(Role::Sample, "x")),
+        ]);
+        let options = BatchOptions {
+            water: Some(WaterBand::default()),
+            fit: FitOptions {
+                window_nm: Some((400.0, 700.0)),
+                ..FitOptions::default()
+            },
+            ..BatchOptions::default()
+        };
+        let models = Models::new(&refs, options.fit);
+        let r = process_plate(p, "test", Some(&m), &models, &options);
+        assert!(r.warnings.is_empty(), "{:?}", r.warnings);
+        for (w, want) in r.wells[1..].iter().zip(paths) {
+            assert_eq!(w.pathlength_source, Some(PathlengthSource::WaterBand));
+            let got = w.pathlength_cm.unwrap();
+            assert!(((got - want) / want).abs() < EXACT_REL, "{got} vs {want}");
+            // The blank (0.5 cm of water) is subtracted only over the fit
+            // range, where water does not absorb: concentrations exact.
+            let fit = w.fit.as_ref().unwrap();
+            for (k, want_c) in c.iter().enumerate() {
+                let got_c = fit.components[k].concentration_mol_per_l;
+                assert!(
+                    ((got_c - want_c) / want_c).abs() < 1e-6,
+                    "{got_c} vs {want_c}"
+                );
+            }
+        }
+    }
+
+    #[test]
+    fn map_pathlength_wins_and_missing_water_points_fail_only_those_wells() {
+        let refs = refs();
+        let mut g = grid();
+        g.truncate(61); // no near-infrared points
+        let rows: Vec<Vec<f64>> = [0.5, 0.8]
+            .iter()
+            .map(|&l| {
+                let mut w = well(&refs, [4e-6, 2e-6], l);
+                w.truncate(61);
+                w
+            })
+            .collect();
+        let p = PlateSpectra {
+            name: "t".into(),
+            format: PlateFormat::Wells96,
+            grid: Some(Arc::new(Grid::new(g).unwrap())),
+            wells: vec![Well::parse("A1").unwrap(), Well::parse("A2").unwrap()],
+            absorbance_au: rows.concat(),
+            failures: Vec::new(),
+        };
+        let mut with_path = entry(Role::Sample, "x");
+        with_path.pathlength_cm = Some(0.5);
+        let m = map(&[("A1", with_path), ("A2", entry(Role::Sample, "y"))]);
+        let options = BatchOptions {
+            water: Some(WaterBand::default()),
+            ..BatchOptions::default()
+        };
+        let models = Models::new(&refs, options.fit);
+        let r = process_plate(p, "test", Some(&m), &models, &options);
+        assert_eq!(r.wells[0].pathlength_source, Some(PathlengthSource::Map));
+        let c = r.wells[0].fit.as_ref().unwrap().components[0].concentration_mol_per_l;
+        assert!(((c - 4e-6) / 4e-6).abs() < 1e-6);
+        let e = r.wells[1].error.as_deref().unwrap();
+        assert!(e.contains("--pathlength-from-water needs readings"), "{e}");
+        assert!(r.warnings.iter().any(|w| w.contains("no blank wells")));
+    }
+
+    #[test]
+    fn saturated_points_leave_the_fit_and_flag_the_well() {
+        let refs = refs();
+        let c = [8e-6, 1e-6];
+        let mut sat = well(&refs, c, 1.0);
+        for v in &mut sat[8..12] {
+            *v = f64::INFINITY; // 440–455 nm read as overflow
+        }
+        let p = plate(vec![sat.clone(), sat], &["A1", "A2"]);
+        let options = BatchOptions {
+            fit: FitOptions {
+                window_nm: Some((400.0, 700.0)),
+                ..FitOptions::default()
+            },
+            ..BatchOptions::default()
+        };
+        let models = Models::new(&refs, options.fit);
+        let r = process_plate(p, "test", None, &models, &options);
+        for w in &r.wells {
+            assert!(w.flags.contains(&FLAG_SATURATED.to_string()));
+            assert!(w.notes[0].starts_with("4 of 61 point(s)"), "{}", w.notes[0]);
+            let fit = w.fit.as_ref().unwrap();
+            assert_eq!(fit.n_points, 57);
+            let got = fit.components[0].concentration_mol_per_l;
+            assert!(((got - 8e-6) / 8e-6).abs() < 1e-6, "{got}");
+        }
+    }
+
+    #[test]
+    fn replicates_at_zero_raise_no_outlier_but_a_far_well_does() {
+        let refs = refs();
+        // Component b absent (fitted at zero); component a: 1.0, 1.0, 1.0, 1.3.
+        let rows: Vec<Vec<f64>> = (0..4).map(|i| r_row(&refs, i)).collect();
+        let p = plate(rows, &["B1", "B2", "B3", "B4"]);
+        let m = map(&[
+            ("B1", entry(Role::Sample, "s")),
+            ("B2", entry(Role::Sample, "s")),
+            ("B3", entry(Role::Sample, "s")),
+            ("B4", entry(Role::Sample, "s")),
+        ]);
+        let options = BatchOptions {
+            fit: FitOptions {
+                window_nm: Some((400.0, 700.0)),
+                ..FitOptions::default()
+            },
+            ..BatchOptions::default()
+        };
+        let models = Models::new(&refs, options.fit);
+        let r = process_plate(p, "test", Some(&m), &models, &options);
+        let s = &r.samples[0];
+        assert_eq!(s.outlier_wells, vec!["B4"]);
+        assert_eq!(s.components[0].outlier_wells, vec!["B4"]);
+        assert!(s.components[1].outlier_wells.is_empty());
+        assert_eq!(s.components[0].n_wells, 3);
+        let mean = s.components[0].mean_mol_per_l;
+        assert!(((mean - 5e-6) / 5e-6).abs() < 1e-3, "{mean}");
+        // Kept when asked, still flagged.
+        let keep = BatchOptions {
+            keep_outliers: true,
+            ..options
+        };
+        let rows: Vec<Vec<f64>> = (0..4).map(|i| r_row(&refs, i)).collect();
+        let p = plate(rows, &["B1", "B2", "B3", "B4"]);
+        let r = process_plate(p, "test", Some(&m), &models, &keep);
+        assert_eq!(r.samples[0].components[0].n_wells, 4);
+        assert!(
+            r.wells[3]
+                .flags
+                .contains(&FLAG_REPLICATE_OUTLIER.to_string())
+        );
+    }
+
+    /// Replicate `i` of a sample whose fourth well holds 1.3× the others,
+    /// with a tiny deterministic ripple so the fits are not identical.
+    fn r_row(refs: &ReferenceSet, i: usize) -> Vec<f64> {
+        let k = [1.0, 1.0, 1.0, 1.3][i];
+        let mut w = well(refs, [5e-6 * k, 0.0], 1.0);
+        for (j, v) in w.iter_mut().enumerate() {
+            *v += 1e-4 * (((i * 7 + j * 13) % 11) as f64 - 5.0) / 5.0;
+        }
+        w
+    }
+}
