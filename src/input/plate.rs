@@ -184,10 +184,21 @@ pub struct Heading {
 /// (lowercased); spaces around `=` are allowed; a value runs to the next
 /// space, comma, semicolon or tab, or is quoted.
 pub fn key_values(line: &[u8]) -> Vec<(String, String)> {
+    pairs(line)
+        .map(|(k, v)| {
+            (
+                String::from_utf8_lossy(k).to_ascii_lowercase(),
+                String::from_utf8_lossy(v).trim().to_string(),
+            )
+        })
+        .collect()
+}
+
+/// The `key=value` pairs of a line as byte slices (see [`key_values`]).
+fn pairs(line: &[u8]) -> impl Iterator<Item = (&[u8], &[u8])> {
     let is_key = |b: u8| b.is_ascii_alphanumeric() || b == b'_';
     let is_stop = |b: u8| matches!(b, b' ' | b',' | b';' | b'\t' | b'"');
-    let mut out = Vec::new();
-    for eq in memchr::memchr_iter(b'=', line) {
+    memchr::memchr_iter(b'=', line).filter_map(move |eq| {
         let mut k_end = eq;
         while k_end > 0 && line[k_end - 1] == b' ' {
             k_end -= 1;
@@ -197,7 +208,7 @@ pub fn key_values(line: &[u8]) -> Vec<(String, String)> {
             k_start -= 1;
         }
         if k_start == k_end {
-            continue;
+            return None;
         }
         let mut v_start = eq + 1;
         while v_start < line.len() && line[v_start] == b' ' {
@@ -212,28 +223,28 @@ pub fn key_values(line: &[u8]) -> Vec<(String, String)> {
             let end = rest.iter().position(|&b| is_stop(b)).unwrap_or(rest.len());
             &rest[..end]
         };
-        out.push((
-            String::from_utf8_lossy(&line[k_start..k_end]).to_ascii_lowercase(),
-            String::from_utf8_lossy(value).trim().to_string(),
-        ));
-    }
-    out
+        Some((&line[k_start..k_end], fields::trim(value)))
+    })
 }
 
 /// Read a heading line: `Some` when the line holds `wavelength_nm=`.
 pub fn heading(line: &[u8]) -> Option<Heading> {
     memchr::memchr(b'=', line)?;
-    let pairs = key_values(line);
-    let raw = pairs.iter().find(|(k, _)| k == "wavelength_nm")?.1.clone();
-    let wavelength_nm = match fields::number(raw.as_bytes(), true) {
-        Ok(w) if w > 0.0 => Ok(w),
-        _ => Err(raw),
-    };
-    let plate = pairs
-        .iter()
-        .find(|(k, _)| k == "plate")
-        .map(|(_, v)| v.clone())
-        .filter(|v| !v.is_empty());
+    let mut wavelength = None;
+    let mut plate = None;
+    for (k, v) in pairs(line) {
+        if wavelength.is_none() && k.eq_ignore_ascii_case(b"wavelength_nm") {
+            wavelength = Some(v);
+        } else if plate.is_none() && k.eq_ignore_ascii_case(b"plate") && !v.is_empty() {
+            plate = Some(String::from_utf8_lossy(v).into_owned());
+        }
+    }
+    let raw = wavelength?;
+    let wavelength_nm =
+        match plain_decimal(raw).map_or_else(|| fields::number(raw, true).ok(), Some) {
+            Some(w) if w > 0.0 => Ok(w),
+            _ => Err(String::from_utf8_lossy(raw).into_owned()),
+        };
     Some(Heading {
         wavelength_nm,
         plate,
@@ -248,8 +259,52 @@ enum Cell {
     Missing,
 }
 
+/// Parse a plain decimal such as `0.1234` or `-12.5` (no exponent, no
+/// spaces, at most 15 digits) quickly and exactly: with m < 2^53 and k ≤ 15
+/// both m and 10^k are exact doubles and one IEEE division rounds once, so
+/// m / 10^k is the correctly rounded value (Clinger, PLDI 1990, "fast
+/// path"). Anything else returns `None` for the general parser.
+#[inline]
+fn plain_decimal(raw: &[u8]) -> Option<f64> {
+    const POW10: [f64; 16] = [
+        1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11, 1e12, 1e13, 1e14, 1e15,
+    ];
+    let (negative, digits) = match raw.first()? {
+        b'-' => (true, &raw[1..]),
+        _ => (false, raw),
+    };
+    let mut m: u64 = 0;
+    let mut n_digits = 0usize;
+    let mut n_frac = 0usize;
+    let mut dot = false;
+    for &b in digits {
+        match b {
+            b'0'..=b'9' => {
+                m = m * 10 + u64::from(b - b'0');
+                n_digits += 1;
+                n_frac += usize::from(dot);
+                if n_digits > 15 {
+                    return None;
+                }
+            }
+            b'.' if !dot => dot = true,
+            _ => return None,
+        }
+    }
+    if n_digits == 0 {
+        return None;
+    }
+    let v = m as f64 / POW10[n_frac];
+    Some(if negative { -v } else { v })
+}
+
 /// Read one cell: a number, an overflow marker, empty, or an error message.
 fn cell(raw: &[u8], decimal_comma: bool, quantity: Quantity) -> std::result::Result<Cell, String> {
+    if quantity == Quantity::Absorbance
+        && let Some(v) = plain_decimal(raw)
+    {
+        return Ok(Cell::Value(v));
+    }
     let expected = || {
         format!(
             "{} or an overflow marker (a word such as OVER, or >4)",
@@ -337,6 +392,9 @@ pub fn parse_grid(
         .map(|(n, l)| (n + first_line - 1, l))
         .peekable();
     let mut scratch: Vec<&[u8]> = Vec::new();
+    // Wells with a reading (a value, a saturated reading or a bad cell) in
+    // any block.
+    let mut read = [false; MAX_ROWS * MAX_COLUMNS];
     while let Some((line_no, line)) = lines.next() {
         let Some(h) = heading(line) else {
             continue; // metadata or text between blocks
@@ -457,10 +515,17 @@ pub fn parse_grid(
                 };
                 let slot = row * MAX_COLUMNS + c;
                 block.values[slot] = match cell(raw, decimal_comma, quantity) {
-                    Ok(Cell::Value(v)) => v,
-                    Ok(Cell::Saturated) => f64::INFINITY,
+                    Ok(Cell::Value(v)) => {
+                        read[slot] = true;
+                        v
+                    }
+                    Ok(Cell::Saturated) => {
+                        read[slot] = true;
+                        f64::INFINITY
+                    }
                     Ok(Cell::Missing) => EMPTY_CELL,
                     Err(expected) => {
+                        read[slot] = true;
                         block.bad.push((
                             slot,
                             row_no,
@@ -483,10 +548,50 @@ pub fn parse_grid(
         }
         blocks.push(block);
     }
-    assemble(blocks, name, first_line)
+    assemble(blocks, &read, name, first_line)
 }
 
-fn assemble(mut blocks: Vec<GridBlock>, name: &str, first_line: usize) -> Result<PlateSpectra> {
+/// Why well `slot` has no usable reading in block `b`.
+fn cell_error(b: &GridBlock, slot: usize) -> Error {
+    let well = Well::from_index(slot);
+    if let Some((_, line, column, raw, expected)) = b.bad.iter().find(|x| x.0 == slot) {
+        return Error::Parse {
+            at: crate::error::Location {
+                line: *line,
+                column: Some(*column),
+            },
+            value: raw.clone(),
+            expected: expected.clone(),
+        };
+    }
+    if is_empty_cell(b.values[slot]) {
+        return Error::Parse {
+            at: crate::error::Location {
+                line: b.row_lines[well.row as usize],
+                column: Some(b.col_fields[well.col as usize] + 1),
+            },
+            value: String::new(),
+            expected: format!(
+                "a reading for well {well} at {} nm (the cell is empty)",
+                b.wavelength_nm
+            ),
+        };
+    }
+    Error::structure(
+        b.heading_line,
+        format!(
+            "well {well} has no cell in the block for {} nm: every block of a plate must cover the same wells",
+            b.wavelength_nm
+        ),
+    )
+}
+
+fn assemble(
+    mut blocks: Vec<GridBlock>,
+    read: &[bool; MAX_ROWS * MAX_COLUMNS],
+    name: &str,
+    first_line: usize,
+) -> Result<PlateSpectra> {
     if blocks.is_empty() {
         return Err(Error::structure(
             first_line,
@@ -518,69 +623,26 @@ fn assemble(mut blocks: Vec<GridBlock>, name: &str, first_line: usize) -> Result
     let grid =
         Arc::new(Grid::new(wavelengths).map_err(|e| Error::structure(first_line, e.to_string()))?);
     let n = grid.len();
-    // A well is read when any block has a reading for it (a value, a
-    // saturated reading or a bad cell).
-    let mut read = [false; MAX_ROWS * MAX_COLUMNS];
-    for b in &blocks {
-        for r in (0..MAX_ROWS).filter(|&r| b.row_lines[r] != 0) {
-            for c in (0..MAX_COLUMNS).filter(|&c| b.col_fields[c] != 0) {
-                let slot = r * MAX_COLUMNS + c;
-                let v = b.values[slot];
-                if !(v.is_nan() || is_empty_cell(v)) {
-                    read[slot] = true;
-                }
-            }
-        }
-        for x in &b.bad {
-            read[x.0] = true;
-        }
-    }
-    let mut wells = Vec::new();
-    let mut failures = Vec::new();
-    let mut values = Vec::new();
-    let mut row = Vec::with_capacity(n);
-    for (slot, _) in read.iter().enumerate().filter(|(_, r)| **r) {
-        let well = Well::from_index(slot);
-        row.clear();
-        let mut error = None;
-        for b in &blocks {
+    // Transpose blocks (one per wavelength) into rows (one per well):
+    // each block is read in order, each well's row written in order.
+    let slots: Vec<usize> = (0..MAX_ROWS * MAX_COLUMNS).filter(|&s| read[s]).collect();
+    let mut rows = vec![0.0; slots.len() * n];
+    let mut errors: Vec<Option<Error>> = (0..slots.len()).map(|_| None).collect();
+    for (j, b) in blocks.iter().enumerate() {
+        for (k, &slot) in slots.iter().enumerate() {
             let v = b.values[slot];
             if v.is_finite() || is_saturated(v) {
-                row.push(v);
-                continue;
+                rows[k * n + j] = v;
+            } else if errors[k].is_none() {
+                errors[k] = Some(cell_error(b, slot));
             }
-            if let Some((_, line, column, raw, expected)) = b.bad.iter().find(|x| x.0 == slot) {
-                error = Some(Error::Parse {
-                    at: crate::error::Location {
-                        line: *line,
-                        column: Some(*column),
-                    },
-                    value: raw.clone(),
-                    expected: expected.clone(),
-                });
-            } else if is_empty_cell(v) {
-                error = Some(Error::Parse {
-                    at: crate::error::Location {
-                        line: b.row_lines[well.row as usize],
-                        column: Some(b.col_fields[well.col as usize] + 1),
-                    },
-                    value: String::new(),
-                    expected: format!(
-                        "a reading for well {well} at {} nm (the cell is empty)",
-                        b.wavelength_nm
-                    ),
-                });
-            } else {
-                error = Some(Error::structure(
-                    b.heading_line,
-                    format!(
-                        "well {well} has no cell in the block for {} nm: every block of a plate must cover the same wells",
-                        b.wavelength_nm
-                    ),
-                ));
-            }
-            break;
         }
+    }
+    let mut wells = Vec::with_capacity(slots.len());
+    let mut failures = Vec::new();
+    let mut values = Vec::with_capacity(slots.len() * n);
+    for (k, (&slot, error)) in slots.iter().zip(errors).enumerate() {
+        let well = Well::from_index(slot);
         match error {
             Some(error) => failures.push(WellFailure {
                 well: Some(well),
@@ -589,7 +651,7 @@ fn assemble(mut blocks: Vec<GridBlock>, name: &str, first_line: usize) -> Result
             }),
             None => {
                 wells.push(well);
-                values.extend_from_slice(&row);
+                values.extend_from_slice(&rows[k * n..(k + 1) * n]);
             }
         }
     }
@@ -708,6 +770,45 @@ mod tests {
         );
         let e = parse("wavelength_nm=4OO\n,1\nA,1\n").unwrap_err();
         assert!(e.to_string().starts_with("line 1 ('4OO')"), "{e}");
+    }
+
+    #[test]
+    fn plain_decimals_parse_exactly_as_the_standard_library_does() {
+        // Rust's str::parse::<f64> is correctly rounded: the reference.
+        let mut x: u64 = 12345;
+        for _ in 0..20_000 {
+            x = x
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            let int = (x >> 40) % 100_000;
+            let frac_digits = ((x >> 20) % 9) as usize;
+            let frac = (x >> 8) % 10u64.pow(frac_digits as u32).max(1);
+            let text = if frac_digits == 0 {
+                format!("{int}")
+            } else {
+                format!("{int}.{frac:0frac_digits$}")
+            };
+            for t in [text.clone(), format!("-{text}")] {
+                let want: f64 = t.parse().unwrap();
+                assert_eq!(
+                    plain_decimal(t.as_bytes()).map(f64::to_bits),
+                    Some(want.to_bits()),
+                    "{t}"
+                );
+            }
+        }
+        for t in [
+            "",
+            "-",
+            ".",
+            "1e3",
+            "1.2.3",
+            " 1",
+            "0,5",
+            "1234567890123456",
+        ] {
+            assert_eq!(plain_decimal(t.as_bytes()), None, "{t}");
+        }
     }
 
     #[test]

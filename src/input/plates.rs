@@ -280,7 +280,9 @@ pub struct PlateStream<R: Read> {
     layout: InputLayout,
     stem: String,
     buf: Vec<u8>,
-    /// 1-based line number of `buf[0]`.
+    /// Bytes of `buf` already routed.
+    buf_start: usize,
+    /// 1-based line number of `buf[buf_start]`.
     buf_line: usize,
     eof: bool,
     header: Option<Arc<Vec<u8>>>,
@@ -289,6 +291,7 @@ pub struct PlateStream<R: Read> {
     names: HashSet<String>,
     unnamed: usize,
     ready: VecDeque<RawPlate>,
+    last_plate_bytes: usize,
 }
 
 impl<R: Read> PlateStream<R> {
@@ -306,6 +309,7 @@ impl<R: Read> PlateStream<R> {
             layout: InputLayout::Wide,
             stem: stem.to_string(),
             buf: Vec::with_capacity(CHUNK_BYTES * 2),
+            buf_start: 0,
             buf_line: 1,
             eof: false,
             header: None,
@@ -314,6 +318,7 @@ impl<R: Read> PlateStream<R> {
             names: HashSet::new(),
             unnamed: 0,
             ready: VecDeque::new(),
+            last_plate_bytes: 0,
         };
         s.fill()?;
         if s.buf.starts_with(b"\xEF\xBB\xBF") {
@@ -452,6 +457,7 @@ impl<R: Read> PlateStream<R> {
 
     fn finish(&mut self) {
         if let Some(c) = self.current.take() {
+            self.last_plate_bytes = c.text.len();
             let kind = match c.failed {
                 Some(e) => RawKind::Failed(e),
                 None => match self.layout {
@@ -480,11 +486,13 @@ impl<R: Read> PlateStream<R> {
                 ),
             )
         });
+        // Plates of one file are about the same size: reserve for one.
+        let hint = self.last_plate_bytes + self.last_plate_bytes / 8;
         self.current = Some(Current {
             name,
             named,
             first_line: line,
-            text: Vec::new(),
+            text: Vec::with_capacity(hint),
             seen: HashSet::new(),
             failed,
         });
@@ -522,6 +530,50 @@ impl<R: Read> PlateStream<R> {
         {
             c.text.extend_from_slice(line);
             c.text.push(b'\n');
+        }
+    }
+
+    /// Route the complete lines of `buf` (plate-grid layout) in bulk: only
+    /// lines holding `=` are looked at; the text between headings is copied
+    /// to the current plate as it is. Returns the bytes consumed and the
+    /// next line number.
+    fn route_grid(&mut self, buf: &[u8], mut line_no: usize) -> (usize, usize) {
+        let Some(last) = memchr::memrchr(b'\n', buf) else {
+            return (0, line_no);
+        };
+        let end = last + 1;
+        let mut pos = 0;
+        let mut search = 0;
+        while let Some(i) = memchr::memchr(b'=', &buf[search..end]) {
+            let eq = search + i;
+            let start = memchr::memrchr(b'\n', &buf[pos..eq]).map_or(pos, |j| pos + j + 1);
+            let stop = eq + memchr::memchr(b'\n', &buf[eq..end]).unwrap_or(end - 1 - eq);
+            search = stop + 1;
+            let line = &buf[start..stop];
+            let line = line.strip_suffix(b"\r").unwrap_or(line);
+            if plate::heading(line).is_none() {
+                continue;
+            }
+            self.append(&buf[pos..start]);
+            line_no += memchr::memchr_iter(b'\n', &buf[pos..start]).count();
+            self.grid_line(line, line_no);
+            line_no += 1;
+            pos = stop + 1;
+            if !self.ready.is_empty() && pos > self.chunk_bytes / 4 {
+                return (pos, line_no);
+            }
+        }
+        self.append(&buf[pos..end]);
+        line_no += memchr::memchr_iter(b'\n', &buf[pos..end]).count();
+        (end, line_no)
+    }
+
+    /// Add text to the current plate (dropped before the first heading).
+    fn append(&mut self, text: &[u8]) {
+        if let Some(c) = &mut self.current
+            && c.failed.is_none()
+        {
+            c.text.extend_from_slice(text);
         }
     }
 
@@ -586,11 +638,18 @@ impl<R: Read> PlateStream<R> {
             if self.layout == InputLayout::Long {
                 return Ok(None);
             }
-            // Route every complete line in the buffer.
-            let mut consumed = 0;
+            // Route every complete line in the buffer, from `buf_start`.
+            let mut consumed = self.buf_start;
             let mut line_no = self.buf_line;
             let buf = std::mem::take(&mut self.buf);
-            while let Some(i) = memchr::memchr(b'\n', &buf[consumed..]) {
+            if self.layout == InputLayout::PlateGrid {
+                let (k, l) = self.route_grid(&buf[consumed..], line_no);
+                consumed += k;
+                line_no = l;
+            }
+            while self.layout != InputLayout::PlateGrid
+                && let Some(i) = memchr::memchr(b'\n', &buf[consumed..])
+            {
                 let line = &buf[consumed..consumed + i];
                 let line = line.strip_suffix(b"\r").unwrap_or(line);
                 self.line(line, line_no);
@@ -600,13 +659,15 @@ impl<R: Read> PlateStream<R> {
                     break;
                 }
             }
-            let mut buf = buf;
-            buf.drain(..consumed);
             self.buf = buf;
+            self.buf_start = consumed;
             self.buf_line = line_no;
             if !self.ready.is_empty() {
                 continue;
             }
+            // Everything before `buf_start` is used: drop it before reading on.
+            self.buf.drain(..self.buf_start);
+            self.buf_start = 0;
             if self.eof {
                 if !self.buf.is_empty() {
                     let rest = std::mem::take(&mut self.buf);
