@@ -151,6 +151,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let dir = library_dir(args.library.clone());
     let library = Library::open(&dir)?;
     let refs = library.select(&args.components)?;
+    let created_dir = !args.out_dir.exists();
     std::fs::create_dir_all(&args.out_dir)
         .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
     let mut out = Outputs::create(&args.out_dir)?;
@@ -230,6 +231,10 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         .iter()
         .any(|s| s.error.is_none() || s.plates > 0);
     if !any_input {
+        drop(out);
+        if created_dir {
+            let _ = std::fs::remove_dir(&args.out_dir);
+        }
         return Err(Failure::new(
             "no input could be read: nothing was written (errors above)",
         ));

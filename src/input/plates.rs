@@ -375,7 +375,9 @@ impl<R: Read> PlateStream<R> {
                         "the header is the only line: expected well spectra after it, or plate-grid blocks with `wavelength_nm=` headings",
                     ));
                 }
-                return Err(e);
+                return Err(Error::Invalid(format!(
+                    "{e} (or, for the plate-grid layout, blocks headed by a line with `wavelength_nm=<nm>`)"
+                )));
             }
         };
         s.delimiter = Delimiter::detect(&header);

@@ -60,7 +60,11 @@ fn bench(c: &mut Criterion) {
                 row: (i / 12) as u8,
                 col: (i % 12) as u8,
             };
-            let role = if w.col == 0 { Role::Blank } else { Role::Sample };
+            let role = if w.col == 0 {
+                Role::Blank
+            } else {
+                Role::Sample
+            };
             let entry = MapEntry {
                 role,
                 sample: format!("s{}", (i / 12) * 4 + (i % 12).saturating_sub(1) / 3),
