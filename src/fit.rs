@@ -63,8 +63,9 @@ pub struct ComponentResult {
     pub name: String,
     /// Concentration, mol/L.
     pub concentration_mol_per_l: f64,
-    /// Standard error of the concentration, mol/L.
-    pub std_error_mol_per_l: f64,
+    /// Standard error of the concentration, mol/L; `None` (JSON null) only
+    /// when the fit has as many unknowns as wavelengths, so no noise estimate.
+    pub std_error_mol_per_l: Option<f64>,
     /// Concentration, mg/L (when the molar mass is known).
     #[serde(skip_serializing_if = "Option::is_none", default)]
     pub concentration_mg_per_l: Option<f64>,
@@ -162,6 +163,9 @@ pub const FLAG_ITERATION_LIMIT: &str = "solver-iteration-limit";
 pub const FLAG_HIGH_ABSORBANCE: &str = "high-absorbance";
 /// Flags: the peak absorbance is below [`LOW_SIGNAL_AU`].
 pub const FLAG_LOW_SIGNAL: &str = "low-signal";
+
+/// Flags: as many unknowns as wavelengths, so no standard errors.
+pub const FLAG_NO_ERROR_ESTIMATE: &str = "no-error-estimate";
 
 /// Fit every spectrum of a file.
 pub fn fit_file(
@@ -313,9 +317,11 @@ impl Model {
             .map(|i| ComponentResult {
                 name: self.names[i].clone(),
                 concentration_mol_per_l: conc[i],
-                std_error_mol_per_l: se[i],
+                std_error_mol_per_l: se[i].is_finite().then_some(se[i]),
                 concentration_mg_per_l: self.molar_masses[i].map(|m| conc[i] * m * 1000.0),
-                std_error_mg_per_l: self.molar_masses[i].map(|m| se[i] * m * 1000.0),
+                std_error_mg_per_l: self.molar_masses[i]
+                    .filter(|_| se[i].is_finite())
+                    .map(|m| se[i] * m * 1000.0),
                 mole_fraction: (total > 0.0).then(|| conc[i] / total),
                 mass_fraction: (all_masses && mass_total > 0.0)
                     .then(|| conc[i] * self.molar_masses[i].unwrap_or(0.0) / mass_total),
@@ -334,6 +340,9 @@ impl Model {
         let mut flags = Vec::new();
         if sol.status == Status::IterationLimit {
             flags.push(FLAG_ITERATION_LIMIT.to_string());
+        }
+        if sol.std_error.iter().any(|v| v.is_nan()) {
+            flags.push(FLAG_NO_ERROR_ESTIMATE.to_string());
         }
         if peak > HIGH_ABSORBANCE_AU {
             flags.push(FLAG_HIGH_ABSORBANCE.to_string());

@@ -121,7 +121,7 @@ fn csv_rows(o: &Outcome, out: &mut String) {
                 out.push(',');
                 num(out, c.concentration_mol_per_l);
                 out.push(',');
-                num(out, c.std_error_mol_per_l);
+                opt(out, c.std_error_mol_per_l);
                 out.push(',');
                 opt(out, c.concentration_mg_per_l);
                 out.push(',');
@@ -242,11 +242,14 @@ pub fn write_table(report: &FitReport, w: &mut dyn Write) -> io::Result<()> {
             Outcome::Fitted(s) => {
                 let mut row = vec![s.sample.clone()];
                 for c in &s.components {
-                    row.push(format!(
-                        "{:.3} ± {:.3}",
-                        c.concentration_mol_per_l * unit.factor,
-                        c.std_error_mol_per_l * unit.factor
-                    ));
+                    row.push(match c.std_error_mol_per_l {
+                        Some(se) => format!(
+                            "{:.3} ± {:.3}",
+                            c.concentration_mol_per_l * unit.factor,
+                            se * unit.factor
+                        ),
+                        None => format!("{:.3} ± ?", c.concentration_mol_per_l * unit.factor),
+                    });
                 }
                 row.push(format!("{:.2}", s.residual_rms * 1000.0));
                 row.push(s.r_squared.map_or("-".into(), |r| format!("{r:.5}")));

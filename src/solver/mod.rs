@@ -79,7 +79,8 @@ pub enum Status {
 pub struct Solution {
     /// Coefficients: components (≥ 0) then baseline terms.
     pub x: Vec<f64>,
-    /// Standard error of each coefficient.
+    /// Standard error of each coefficient; NaN when the fit has no degrees
+    /// of freedom left to estimate the noise from.
     pub std_error: Vec<f64>,
     /// Residual sum of squares ‖E·x − a‖².
     pub rss: f64,
@@ -125,9 +126,14 @@ impl Prepared {
                 columns.len()
             )));
         }
-        if n <= p {
+        if n < p {
             return Err(Error::Degenerate(format!(
-                "{n} points for {p} unknowns: expected more points than unknowns"
+                "{n} points for {p} unknowns: expected at least as many points as unknowns"
+            )));
+        }
+        if p > 60 {
+            return Err(Error::Invalid(format!(
+                "{p} columns: at most 60 components and baseline terms are supported"
             )));
         }
         if columns.iter().any(|v| !v.is_finite()) {
@@ -226,6 +232,22 @@ impl Prepared {
         })
     }
 
+    /// Use a given method regardless of the conditioning (tests compare the
+    /// two paths on the same problems).
+    pub fn with_method(mut self, method: Method) -> Self {
+        self.method = method;
+        self.fallback = match method {
+            Method::LawsonHanson => Some(fallback::Projected::new(
+                &self.columns,
+                self.n,
+                self.p,
+                self.n_nonneg,
+            )),
+            Method::NormalEquations => None,
+        };
+        self
+    }
+
     /// Condition number of the column-scaled design (2-norm).
     pub fn condition(&self) -> f64 {
         self.condition
@@ -265,8 +287,15 @@ impl Prepared {
             Some(proj) => proj.solve(self, a)?,
         };
         let n_passive = passive.iter().filter(|&&b| b).count();
-        let dof = (self.n - n_passive).max(1) as f64;
-        let sigma2 = rss.max(0.0) / dof;
+        // With no degrees of freedom left (as many points as unknowns) the
+        // residual says nothing about the noise: standard errors are NaN
+        // here and reported as unknown by the caller.
+        let dof = self.n.saturating_sub(n_passive);
+        let sigma2 = if dof == 0 {
+            f64::NAN
+        } else {
+            rss.max(0.0) / dof as f64
+        };
         let inv_diag = match &self.fallback {
             None => ws.inverse_diag(self, &passive)?,
             Some(proj) => proj.inverse_diag(&passive)?,
@@ -282,7 +311,10 @@ impl Prepared {
             };
             se.push((sigma2 * d.max(0.0)).sqrt() / self.scale[j]);
         }
-        if x.iter().chain(se.iter()).any(|v| !v.is_finite()) || !rss.is_finite() {
+        if x.iter().any(|v| !v.is_finite())
+            || se.iter().any(|v| v.is_infinite())
+            || !rss.is_finite()
+        {
             return Err(Error::Degenerate(
                 "the solver produced a non-finite value: the references or the spectrum are degenerate".into(),
             ));
