@@ -194,6 +194,9 @@ pub fn fit_file(
                     slots[*pos] = Some(r);
                 }
             }
+            // With one grid for the whole file, a model that cannot be built
+            // is a problem of the run, not of each sample: say it once.
+            Err(e) if file.blocks.len() == 1 => return Err(e),
             Err(e) => {
                 let msg = e.to_string();
                 for (pos, id) in block.positions.iter().zip(&block.ids) {

@@ -139,7 +139,8 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let dir = library_dir(args.library.clone());
     let library = Library::open(&dir)?;
     let refs = library.select(&args.components)?;
-    let report = crate::fit::fit_file(&file, &refs, &options)?;
+    let report = crate::fit::fit_file(&file, &refs, &options)
+        .map_err(|e| Failure::new(format!("{shown}: {e}")))?;
     emit(&report, args.format.into(), args.out.as_deref())?;
     Ok(exit_code(&report))
 }
