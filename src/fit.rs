@@ -381,18 +381,68 @@ fn fit_block(
     {
         warnings.push(w);
     }
-    let idx: Vec<usize> = (0..block.len()).collect();
-    let out: Vec<Vec<Outcome>> = idx
-        .par_chunks(CHUNK)
-        .map(|chunk| {
-            let mut ws = model.prepared.workspace();
-            chunk
-                .iter()
-                .map(|&i| {
-                    model.fit_one(&block.ids[i], block.row(i), options.pathlength_cm, &mut ws)
-                })
-                .collect()
-        })
-        .collect();
-    Ok(out.into_iter().flatten().collect())
+    Ok(model.fit_block(block, options.pathlength_cm))
+}
+
+impl Model {
+    /// Fit every spectrum of a block (on this model's grid) in parallel, in
+    /// fixed chunks of [`CHUNK`]; outcomes in block order.
+    pub fn fit_block(&self, block: &Block, pathlength_cm: f64) -> Vec<Outcome> {
+        let idx: Vec<usize> = (0..block.len()).collect();
+        let out: Vec<Vec<Outcome>> = idx
+            .par_chunks(CHUNK)
+            .map(|chunk| {
+                let mut ws = self.prepared.workspace();
+                chunk
+                    .iter()
+                    .map(|&i| self.fit_one(&block.ids[i], block.row(i), pathlength_cm, &mut ws))
+                    .collect()
+            })
+            .collect();
+        out.into_iter().flatten().collect()
+    }
+}
+
+/// Merge a chunk's fitted block and its failed rows into input order.
+pub fn merge_chunk(block: &Block, fitted: Vec<Outcome>, failures: Vec<crate::input::spectra::RowFailure>) -> Vec<Outcome> {
+    let mut all: Vec<(usize, Outcome)> = block.positions.iter().copied().zip(fitted).collect();
+    all.extend(failures.into_iter().map(|f| {
+        (
+            f.position,
+            Outcome::Failed(FailedSample {
+                sample: f.sample,
+                error: f.error.to_string(),
+            }),
+        )
+    }));
+    all.sort_by_key(|(p, _)| *p);
+    all.into_iter().map(|(_, o)| o).collect()
+}
+
+/// Fit a wide file chunk by chunk, handing each chunk's outcomes (in input
+/// order) to `sink`, so memory stays bounded. Returns the run's warnings.
+pub fn fit_stream<R: std::io::Read, E>(
+    stream: &mut crate::input::spectra::WideStream<R>,
+    refs: &ReferenceSet,
+    options: &FitOptions,
+    mut sink: impl FnMut(Vec<Outcome>) -> std::result::Result<(), E>,
+) -> std::result::Result<Vec<String>, StreamError<E>> {
+    let model = Model::new(stream.grid(), refs, options).map_err(StreamError::Engine)?;
+    let warnings: Vec<String> = model.method_warning().into_iter().collect();
+    while let Some(chunk) = stream.next_chunk().map_err(StreamError::Engine)? {
+        let fitted = model.fit_block(&chunk.block, options.pathlength_cm);
+        let outcomes = merge_chunk(&chunk.block, fitted, chunk.failures);
+        stream.recycle(chunk.block);
+        sink(outcomes).map_err(StreamError::Sink)?;
+    }
+    Ok(warnings)
+}
+
+/// Why a streamed fit stopped.
+#[derive(Debug)]
+pub enum StreamError<E> {
+    /// Reading or modelling failed.
+    Engine(Error),
+    /// The sink (writer) failed.
+    Sink(E),
 }

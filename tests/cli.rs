@@ -520,7 +520,7 @@ fn bad_inputs_get_clear_messages_and_exit_codes() {
         },
         Bad {
             what: "infinity",
-            input: b"sample,560,600,640\ns1,0.1,inf,0.3\n",
+            input: b"sample,560,580,600,620,640\ns1,0.1,inf,0.3,0.2,0.1\n",
             extra: &[],
             code: 1,
             message: "NaN and infinity are not allowed",
@@ -555,7 +555,7 @@ fn bad_inputs_get_clear_messages_and_exit_codes() {
         },
         Bad {
             what: "transmittance of zero",
-            input: b"sample,560,600,640\ns1,50,0,40\n",
+            input: b"sample,560,580,600,620,640\ns1,50,0,40,40,40\n",
             extra: &["--quantity", "transmittance-percent"],
             code: 1,
             message: "line 2, column 3 ('0'): expected a transmittance percentage above 0",

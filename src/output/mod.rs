@@ -160,8 +160,12 @@ fn csv_rows(o: &Outcome, out: &mut String) {
 /// with only its name and the `error` column.
 pub fn write_csv(report: &FitReport, w: &mut dyn Write) -> io::Result<()> {
     writeln!(w, "{CSV_HEADER}")?;
-    let parts: Vec<String> = report
-        .outcomes
+    w.write_all(csv_rows_parallel(&report.outcomes).as_bytes())
+}
+
+/// The CSV rows (no header) of some outcomes, formatted in parallel.
+pub fn csv_rows_parallel(outcomes: &[Outcome]) -> String {
+    let parts: Vec<String> = outcomes
         .par_chunks(1024)
         .map(|chunk| {
             let mut s = String::with_capacity(chunk.len() * 400);
@@ -171,10 +175,7 @@ pub fn write_csv(report: &FitReport, w: &mut dyn Write) -> io::Result<()> {
             s
         })
         .collect();
-    for p in parts {
-        w.write_all(p.as_bytes())?;
-    }
-    Ok(())
+    parts.concat()
 }
 
 /// A concentration unit for display.
