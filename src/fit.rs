@@ -404,7 +404,11 @@ impl Model {
 }
 
 /// Merge a chunk's fitted block and its failed rows into input order.
-pub fn merge_chunk(block: &Block, fitted: Vec<Outcome>, failures: Vec<crate::input::spectra::RowFailure>) -> Vec<Outcome> {
+pub fn merge_chunk(
+    block: &Block,
+    fitted: Vec<Outcome>,
+    failures: Vec<crate::input::spectra::RowFailure>,
+) -> Vec<Outcome> {
     let mut all: Vec<(usize, Outcome)> = block.positions.iter().copied().zip(fitted).collect();
     all.extend(failures.into_iter().map(|f| {
         (

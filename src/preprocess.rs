@@ -237,7 +237,8 @@ mod tests {
         assert!(design(&grid, &refs, Baseline::Offset, None).is_ok());
         let e = design(&grid, &refs, Baseline::Linear, None).unwrap_err();
         assert!(
-            e.to_string().contains("at least as many wavelengths as unknowns"),
+            e.to_string()
+                .contains("at least as many wavelengths as unknowns"),
             "{e}"
         );
     }

@@ -135,10 +135,14 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let reader: Box<dyn Read> = if args.input.as_os_str() == "-" {
         Box::new(std::io::stdin().lock())
     } else {
-        Box::new(std::fs::File::open(&args.input).map_err(|e| Failure::new(format!("{shown}: {e}")))?)
+        Box::new(
+            std::fs::File::open(&args.input).map_err(|e| Failure::new(format!("{shown}: {e}")))?,
+        )
     };
     let ctx = |e: crate::Error| Failure::new(format!("{shown}: {e}"));
-    let read_options = ReadOptions { quantity: args.quantity.into() };
+    let read_options = ReadOptions {
+        quantity: args.quantity.into(),
+    };
     match spectra::open(reader, read_options).map_err(ctx)? {
         Opened::Long(file) => {
             let report = crate::fit::fit_file(&file, &refs, &options).map_err(ctx)?;
@@ -186,7 +190,10 @@ fn stream_csv<R: Read>(
         writeln!(w, "{}", output::CSV_HEADER)?;
         let r = fit_stream(stream, refs, options, |chunk: Vec<Outcome>| {
             total += chunk.len();
-            failed += chunk.iter().filter(|o| matches!(o, Outcome::Failed(_))).count();
+            failed += chunk
+                .iter()
+                .filter(|o| matches!(o, Outcome::Failed(_)))
+                .count();
             w.write_all(output::csv_rows_parallel(&chunk).as_bytes())
         });
         match r {
@@ -275,7 +282,10 @@ pub fn emit(
     match out {
         Some(path) => {
             crate::atomic::write_with(path, false, |w| output::write(report, format, w))?;
-            eprintln!("{}", summary(report.outcomes.len(), report.n_failed(), path));
+            eprintln!(
+                "{}",
+                summary(report.outcomes.len(), report.n_failed(), path)
+            );
         }
         None => {
             let stdout = std::io::stdout();

@@ -156,14 +156,20 @@ pub fn read(bytes: &[u8], options: ReadOptions) -> Result<SpectraFile> {
             while let Some(chunk) = stream.next_chunk()? {
                 block.ids.extend(chunk.block.ids);
                 block.positions.extend(chunk.block.positions);
-                block.absorbance_au.extend_from_slice(&chunk.block.absorbance_au);
+                block
+                    .absorbance_au
+                    .extend_from_slice(&chunk.block.absorbance_au);
                 failures.extend(chunk.failures);
             }
             let n_samples = stream.rows_read();
             Ok(SpectraFile {
                 layout: Layout::Wide,
                 delimiter,
-                blocks: if block.is_empty() { Vec::new() } else { vec![block] },
+                blocks: if block.is_empty() {
+                    Vec::new()
+                } else {
+                    vec![block]
+                },
                 failures,
                 n_samples,
             })
@@ -329,7 +335,12 @@ pub fn open<R: Read>(mut reader: R, options: ReadOptions) -> Result<Opened<R>> {
                     .read_to_end(&mut rest)
                     .map_err(|e| Error::io("input", e))?;
             }
-            Ok(Opened::Long(read_long(&rest, header_line, delimiter, options)?))
+            Ok(Opened::Long(read_long(
+                &rest,
+                header_line,
+                delimiter,
+                options,
+            )?))
         }
     }
 }
@@ -679,7 +690,9 @@ fn parse_wide_row<'a>(
                 let v = fields::number(field, decimal_comma)
                     .map_err(|e| e.expected(options.quantity.noun()))
                     .and_then(|v| options.quantity.to_absorbance(v).map_err(str::to_string))
-                    .map_err(|expected| (id.clone(), Error::parse(line_no, col + 2, field, expected)))?;
+                    .map_err(|expected| {
+                        (id.clone(), Error::parse(line_no, col + 2, field, expected))
+                    })?;
                 dst[col] = v;
             }
             id

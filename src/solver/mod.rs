@@ -90,6 +90,18 @@ pub struct Solution {
     pub status: Status,
 }
 
+impl Default for Solution {
+    fn default() -> Self {
+        Solution {
+            x: Vec::new(),
+            std_error: Vec::new(),
+            rss: 0.0,
+            n_passive: 0,
+            status: Status::Converged,
+        }
+    }
+}
+
 /// A design made ready for solving many spectra.
 #[derive(Debug, Clone)]
 pub struct Prepared {
@@ -275,6 +287,14 @@ impl Prepared {
 
     /// Solve one spectrum `a` (length [`Self::n_points`]).
     pub fn solve(&self, a: &[f64], ws: &mut Workspace) -> Result<Solution> {
+        let mut out = Solution::default();
+        self.solve_into(a, ws, &mut out)?;
+        Ok(out)
+    }
+
+    /// Solve one spectrum into `out`, reusing its storage (no allocation on
+    /// the normal-equation path once `out` and `ws` are warm).
+    pub fn solve_into(&self, a: &[f64], ws: &mut Workspace, out: &mut Solution) -> Result<()> {
         if a.len() != self.n {
             return Err(Error::Invalid(format!(
                 "spectrum has {} points, the design {}",
@@ -282,50 +302,70 @@ impl Prepared {
                 self.n
             )));
         }
-        let (xs, rss, passive, status) = match &self.fallback {
-            None => normal::solve(self, a, ws)?,
-            Some(proj) => proj.solve(self, a)?,
+        out.x.clear();
+        out.std_error.clear();
+        let (rss, n_passive, status) = match &self.fallback {
+            None => {
+                let (rss, mask, status) = normal::solve(self, a, ws)?;
+                let n_passive = mask.count_ones() as usize;
+                let sigma2 = sigma2(rss, self.n, n_passive);
+                for j in 0..self.p {
+                    out.x.push(ws.z()[j] / self.scale[j]);
+                }
+                let inv = ws.inverse_diag(self, mask)?;
+                for j in 0..self.p {
+                    let d = if mask & (1 << j) != 0 {
+                        inv[j]
+                    } else {
+                        self.full_inverse_diag[j]
+                    };
+                    out.std_error
+                        .push((sigma2 * d.max(0.0)).sqrt() / self.scale[j]);
+                }
+                (rss, n_passive, status)
+            }
+            Some(proj) => {
+                let (xs, rss, passive, status) = proj.solve(a)?;
+                let n_passive = passive.iter().filter(|&&b| b).count();
+                let sigma2 = sigma2(rss, self.n, n_passive);
+                let inv = proj.inverse_diag(&passive)?;
+                for j in 0..self.p {
+                    out.x.push(xs[j] / self.scale[j]);
+                    let d = if passive[j] {
+                        inv[j]
+                    } else {
+                        self.full_inverse_diag[j]
+                    };
+                    out.std_error
+                        .push((sigma2 * d.max(0.0)).sqrt() / self.scale[j]);
+                }
+                (rss, n_passive, status)
+            }
         };
-        let n_passive = passive.iter().filter(|&&b| b).count();
-        // With no degrees of freedom left (as many points as unknowns) the
-        // residual says nothing about the noise: standard errors are NaN
-        // here and reported as unknown by the caller.
-        let dof = self.n.saturating_sub(n_passive);
-        let sigma2 = if dof == 0 {
-            f64::NAN
-        } else {
-            rss.max(0.0) / dof as f64
-        };
-        let inv_diag = match &self.fallback {
-            None => ws.inverse_diag(self, &passive)?,
-            Some(proj) => proj.inverse_diag(&passive)?,
-        };
-        let mut x = Vec::with_capacity(self.p);
-        let mut se = Vec::with_capacity(self.p);
-        for j in 0..self.p {
-            x.push(xs[j] / self.scale[j]);
-            let d = if passive[j] {
-                inv_diag[j]
-            } else {
-                self.full_inverse_diag[j]
-            };
-            se.push((sigma2 * d.max(0.0)).sqrt() / self.scale[j]);
-        }
-        if x.iter().any(|v| !v.is_finite())
-            || se.iter().any(|v| v.is_infinite())
+        if out.x.iter().any(|v| !v.is_finite())
+            || out.std_error.iter().any(|v| v.is_infinite())
             || !rss.is_finite()
         {
             return Err(Error::Degenerate(
                 "the solver produced a non-finite value: the references or the spectrum are degenerate".into(),
             ));
         }
-        Ok(Solution {
-            x,
-            std_error: se,
-            rss: rss.max(0.0),
-            n_passive,
-            status,
-        })
+        out.rss = rss.max(0.0);
+        out.n_passive = n_passive;
+        out.status = status;
+        Ok(())
+    }
+}
+
+/// Residual variance σ² = RSS / (n − |P|). With no degrees of freedom left
+/// (as many points as unknowns) the residual says nothing about the noise:
+/// NaN, which callers report as an unknown standard error.
+fn sigma2(rss: f64, n: usize, n_passive: usize) -> f64 {
+    let dof = n.saturating_sub(n_passive);
+    if dof == 0 {
+        f64::NAN
+    } else {
+        rss.max(0.0) / dof as f64
     }
 }
 

@@ -23,8 +23,13 @@ fn main() {
             .iter()
             .map(|x| 40_000.0 * (-0.5 * ((x - centre) / 30.0).powi(2)).exp() + 500.0)
             .collect();
-        let c = unblend::reference::Component::from_curve(&format!("band{j}"), w.clone(), e.clone(), "imported")
-            .expect("valid synthetic curve");
+        let c = unblend::reference::Component::from_curve(
+            &format!("band{j}"),
+            w.clone(),
+            e.clone(),
+            "imported",
+        )
+        .expect("valid synthetic curve");
         unblend::reference::Library::add(&lib, &c, true).expect("write component");
         eps.push(e);
     }
@@ -43,7 +48,9 @@ fn main() {
         (state >> 11) as f64 / (1u64 << 53) as f64
     };
     for i in 0..n {
-        let c: Vec<f64> = (0..k).map(|_| if next() < 0.2 { 0.0 } else { 2e-5 * next() }).collect();
+        let c: Vec<f64> = (0..k)
+            .map(|_| if next() < 0.2 { 0.0 } else { 2e-5 * next() })
+            .collect();
         write!(f, "s{i}").unwrap();
         for p in 0..w.len() {
             let mut a = 0.0;
@@ -57,5 +64,10 @@ fn main() {
         writeln!(f).unwrap();
     }
     f.flush().unwrap();
-    eprintln!("wrote {} spectra x {} wavelengths, {k} components, to {}", n, w.len(), out.display());
+    eprintln!(
+        "wrote {} spectra x {} wavelengths, {k} components, to {}",
+        n,
+        w.len(),
+        out.display()
+    );
 }
