@@ -335,11 +335,15 @@ impl Model {
             slope_au_per_nm: (d.baseline.n_terms() == 2).then(|| sol.x[k + 1] / d.half_span_nm),
             reference_nm: d.centre_nm,
         };
-        let sum: f64 = a.iter().sum();
-        let aa: f64 = a.iter().map(|v| v * v).sum();
+        // One pass: sum, sum of squares and peak.
+        let (mut sum, mut aa, mut peak) = (0.0, 0.0, f64::NEG_INFINITY);
+        for &v in a {
+            sum += v;
+            aa += v * v;
+            peak = f64::max(peak, v);
+        }
         let sstot = aa - sum * sum / n as f64;
         let r_squared = (sstot > 0.0 && sstot.is_finite()).then(|| 1.0 - sol.rss / sstot);
-        let peak = a.iter().fold(f64::NEG_INFINITY, |m, &v| m.max(v));
         let mut flags = Vec::new();
         if sol.status == Status::IterationLimit {
             flags.push(FLAG_ITERATION_LIMIT.to_string());
@@ -424,22 +428,47 @@ pub fn merge_chunk(
 }
 
 /// Fit a wide file chunk by chunk, handing each chunk's outcomes (in input
-/// order) to `sink`, so memory stays bounded. Returns the run's warnings.
-pub fn fit_stream<R: std::io::Read, E>(
+/// order) to `sink`, so memory stays bounded. Reading and parsing the next
+/// chunk (on a reader thread) overlaps fitting and writing this one.
+/// Returns the run's warnings.
+pub fn fit_stream<R: std::io::Read + Send, E>(
     stream: &mut crate::input::spectra::WideStream<R>,
     refs: &ReferenceSet,
     options: &FitOptions,
     mut sink: impl FnMut(Vec<Outcome>) -> std::result::Result<(), E>,
 ) -> std::result::Result<Vec<String>, StreamError<E>> {
+    use std::sync::mpsc;
     let model = Model::new(stream.grid(), refs, options).map_err(StreamError::Engine)?;
     let warnings: Vec<String> = model.method_warning().into_iter().collect();
-    while let Some(chunk) = stream.next_chunk().map_err(StreamError::Engine)? {
-        let fitted = model.fit_block(&chunk.block, options.pathlength_cm);
-        let outcomes = merge_chunk(&chunk.block, fitted, chunk.failures);
-        stream.recycle(chunk.block);
-        sink(outcomes).map_err(StreamError::Sink)?;
-    }
-    Ok(warnings)
+    std::thread::scope(|scope| {
+        let (tx, rx) = mpsc::sync_channel::<Result<crate::input::spectra::Chunk>>(1);
+        let (back_tx, back_rx) = mpsc::channel::<Block>();
+        scope.spawn(move || {
+            loop {
+                if let Ok(spare) = back_rx.try_recv() {
+                    stream.recycle(spare);
+                }
+                let item = match stream.next_chunk() {
+                    Ok(Some(c)) => Ok(c),
+                    Ok(None) => break,
+                    Err(e) => Err(e),
+                };
+                let stop = item.is_err();
+                if tx.send(item).is_err() || stop {
+                    break;
+                }
+            }
+        });
+        // Leaving this loop early drops `rx`, which stops the reader.
+        for item in rx {
+            let chunk = item.map_err(StreamError::Engine)?;
+            let fitted = model.fit_block(&chunk.block, options.pathlength_cm);
+            let outcomes = merge_chunk(&chunk.block, fitted, chunk.failures);
+            let _ = back_tx.send(chunk.block);
+            sink(outcomes).map_err(StreamError::Sink)?;
+        }
+        Ok(warnings)
+    })
 }
 
 /// Why a streamed fit stopped.

@@ -132,8 +132,8 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let dir = library_dir(args.library.clone());
     let library = Library::open(&dir)?;
     let refs = library.select(&args.components)?;
-    let reader: Box<dyn Read> = if args.input.as_os_str() == "-" {
-        Box::new(std::io::stdin().lock())
+    let reader: Box<dyn Read + Send> = if args.input.as_os_str() == "-" {
+        Box::new(std::io::stdin())
     } else {
         Box::new(
             std::fs::File::open(&args.input).map_err(|e| Failure::new(format!("{shown}: {e}")))?,
@@ -175,7 +175,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
 
 /// Fit a wide file chunk by chunk and write tidy CSV as it goes, so memory
 /// stays bounded for any number of spectra.
-fn stream_csv<R: Read>(
+fn stream_csv<R: Read + Send>(
     stream: &mut WideStream<R>,
     refs: &ReferenceSet,
     options: &FitOptions,
@@ -186,33 +186,49 @@ fn stream_csv<R: Read>(
     let mut failed = 0usize;
     let mut engine_error: Option<crate::Error> = None;
     let mut warnings = Vec::new();
-    let mut body = |w: &mut dyn Write| -> std::io::Result<()> {
+    let mut body = |w: &mut (dyn Write + Send)| -> std::io::Result<()> {
         writeln!(w, "{}", output::CSV_HEADER)?;
-        let r = fit_stream(stream, refs, options, |chunk: Vec<Outcome>| {
-            total += chunk.len();
-            failed += chunk
-                .iter()
-                .filter(|o| matches!(o, Outcome::Failed(_)))
-                .count();
-            w.write_all(output::csv_rows_parallel(&chunk).as_bytes())
-        });
-        match r {
-            Ok(ws) => {
-                warnings = ws;
+        // Formatting runs here (in parallel); a writer thread does the I/O
+        // so the next chunk's fit overlaps this chunk's write.
+        std::thread::scope(|scope| {
+            let (tx, rx) = std::sync::mpsc::sync_channel::<String>(2);
+            let writer = scope.spawn(move || -> std::io::Result<()> {
+                for text in rx {
+                    w.write_all(text.as_bytes())?;
+                }
                 Ok(())
+            });
+            let r = fit_stream(stream, refs, options, |chunk: Vec<Outcome>| {
+                total += chunk.len();
+                failed += chunk
+                    .iter()
+                    .filter(|o| matches!(o, Outcome::Failed(_)))
+                    .count();
+                tx.send(output::csv_rows_parallel(&chunk))
+                    .map_err(|_| std::io::Error::other("the output writer stopped"))
+            });
+            drop(tx);
+            let written = writer
+                .join()
+                .unwrap_or_else(|_| Err(std::io::Error::other("the output writer failed")));
+            match r {
+                Ok(ws) => {
+                    warnings = ws;
+                    written
+                }
+                // The writer's own error says more than "it stopped".
+                Err(StreamError::Sink(e)) => written.and(Err(e)),
+                Err(StreamError::Engine(e)) => {
+                    engine_error = Some(e);
+                    Err(std::io::Error::other("stopped"))
+                }
             }
-            Err(StreamError::Sink(e)) => Err(e),
-            Err(StreamError::Engine(e)) => {
-                engine_error = Some(e);
-                Err(std::io::Error::other("stopped"))
-            }
-        }
+        })
     };
     let result = match out {
         Some(path) => crate::atomic::write_with(path, false, &mut body).map_err(Failure::from),
         None => {
-            let stdout = std::io::stdout();
-            let mut lock = std::io::BufWriter::with_capacity(1 << 20, stdout.lock());
+            let mut lock = std::io::BufWriter::with_capacity(1 << 20, std::io::stdout());
             match body(&mut lock).and_then(|_| lock.flush()) {
                 Ok(()) => Ok(()),
                 Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => Ok(()),
