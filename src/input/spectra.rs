@@ -928,6 +928,36 @@ mod tests {
     }
 
     #[test]
+    fn fast_and_general_number_paths_agree() {
+        // Plain decimals take the fast path; the others fall back to the
+        // general parser (fast-float2); both must give the same values.
+        let f = read_str(
+            "sample,400,500,600,700\ns1,0.125,-0.5,+.25,3.\ns2,1e-3, 0.5 ,\"0.75\",-2E-1\n",
+        )
+        .unwrap();
+        assert_eq!(f.blocks[0].row(0), &[0.125, -0.5, 0.25, 3.0]);
+        assert_eq!(f.blocks[0].row(1), &[1e-3, 0.5, 0.75, -0.2]);
+        let digits = "0.1234567890123456789";
+        let g = read_str(&format!("sample,400\ns,{digits}\n")).unwrap();
+        assert_eq!(
+            g.blocks[0].row(0)[0].to_bits(),
+            digits.parse::<f64>().unwrap().to_bits()
+        );
+    }
+
+    #[test]
+    fn trailing_delimiters_and_extra_fields_are_told_apart() {
+        let f = read_str("sample,400,500,,\ns1,0.1,0.2,,\ns2,0.1,0.2,0.3\n").unwrap();
+        assert_eq!(f.blocks[0].ids, vec!["s1"]);
+        assert!(
+            f.failures[0]
+                .error
+                .to_string()
+                .contains("4 fields but the header has 3")
+        );
+    }
+
+    #[test]
     fn long_layout_duplicate_wavelength_fails_the_sample() {
         let f = read_str("sample,wavelength_nm,absorbance\ns1,400,0.1\ns1,400,0.2\ns2,400,0.3\n")
             .unwrap();
