@@ -299,3 +299,76 @@ fn pathlength_scales_concentration_inversely() {
     assert!(rel(r1.components[0].concentration_mol_per_l, 1e-5) < 1e-10);
     assert!(rel(r1.components[1].concentration_mol_per_l, 2e-5) < 1e-10);
 }
+
+/// Two bands 0.005 nm apart: column-scaled condition number about 2e4 (> 1e4),
+/// so the normal equations are not trusted and the Lawson–Hanson path
+/// solves, with a warning; exact data are still recovered.
+#[test]
+fn poorly_conditioned_set_falls_back_to_lawson_hanson() {
+    let w: Vec<f64> = (400..=700).map(f64::from).collect();
+    let refs = ReferenceSet {
+        components: vec![
+            Component::from_curve("a", w.clone(), band(&w, 550.0, 40.0, 30000.0), "imported")
+                .expect("valid"),
+            Component::from_curve("b", w.clone(), band(&w, 550.005, 40.0, 30000.0), "imported")
+                .expect("valid"),
+            Component::from_curve("c", w.clone(), band(&w, 450.0, 30.0, 20000.0), "imported")
+                .expect("valid"),
+        ],
+    };
+    let options = FitOptions {
+        baseline: Baseline::None,
+        ..FitOptions::default()
+    };
+    let grid = Grid::new(w.clone()).expect("valid");
+    let model = Model::new(&grid, &refs, &options).expect("model builds");
+    assert_eq!(
+        model.prepared.method(),
+        unblend::solver::Method::LawsonHanson
+    );
+    assert!(model.prepared.condition() > unblend::solver::FALLBACK_CONDITION);
+    assert!(
+        model
+            .method_warning()
+            .expect("a warning")
+            .contains("poorly conditioned")
+    );
+    let a: Vec<f64> = (0..w.len())
+        .map(|p| {
+            refs.components[0].epsilon_l_per_mol_cm[p] * 4e-6
+                + refs.components[1].epsilon_l_per_mol_cm[p] * 6e-6
+                + refs.components[2].epsilon_l_per_mol_cm[p] * 1e-5
+        })
+        .collect();
+    let mut ws = model.prepared.workspace();
+    let Outcome::Fitted(r) = model.fit_one("s", &a, 1.0, &mut ws) else {
+        panic!("fit failed")
+    };
+    // The well-separated component is exact; the collinear pair's sum is
+    // (their individual split is what the conditioning makes uncertain).
+    assert!(rel(r.components[2].concentration_mol_per_l, 1e-5) < 1e-8);
+    let pair = r.components[0].concentration_mol_per_l + r.components[1].concentration_mol_per_l;
+    assert!(rel(pair, 1e-5) < 1e-6, "{pair}");
+    assert!(r.solver == "lawson-hanson");
+}
+
+#[test]
+fn identical_references_are_refused_naming_the_pair() {
+    let w: Vec<f64> = (400..=700).map(f64::from).collect();
+    let e = band(&w, 550.0, 40.0, 30000.0);
+    let refs = ReferenceSet {
+        components: vec![
+            Component::from_curve("twin-a", w.clone(), e.clone(), "imported").expect("valid"),
+            Component::from_curve("twin-b", w.clone(), e, "imported").expect("valid"),
+        ],
+    };
+    let grid = Grid::new(w).expect("valid");
+    let err = Model::new(&grid, &refs, &FitOptions::default())
+        .err()
+        .expect("refused");
+    let msg = err.to_string();
+    assert!(
+        msg.contains("cannot tell 'twin-a' and 'twin-b' apart"),
+        "{msg}"
+    );
+}
