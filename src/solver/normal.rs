@@ -35,6 +35,8 @@ pub struct Workspace {
     /// The passive set `z` was last solved for.
     z_mask: Option<u64>,
     r: Vec<f64>,
+    /// The last solution, reused between spectra (see `Prepared::solve_here`).
+    pub(crate) solution: Option<super::Solution>,
     x: Vec<f64>,
     z: Vec<f64>,
     tmp: Vec<f64>,
@@ -55,6 +57,7 @@ impl Workspace {
             last_mask: None,
             z_mask: None,
             r: vec![0.0; p],
+            solution: Some(super::Solution::default()),
             x: vec![0.0; p],
             z: vec![0.0; p],
             tmp: vec![0.0; p],
