@@ -145,8 +145,9 @@ pub struct Undiluted {
     pub name: String,
     /// Concentration in the specimen, mol/L.
     pub concentration_mol_per_l: f64,
-    /// Its standard error, mol/L.
-    pub std_error_mol_per_l: f64,
+    /// Its standard error, mol/L (`None` when the fit has no noise
+    /// estimate).
+    pub std_error_mol_per_l: Option<f64>,
     /// Concentration in the specimen, mg/L (molar mass known).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub concentration_mg_per_l: Option<f64>,
@@ -685,7 +686,7 @@ pub fn process_plate(
                     .map(|c| Undiluted {
                         name: c.name.clone(),
                         concentration_mol_per_l: c.concentration_mol_per_l * entry.dilution,
-                        std_error_mol_per_l: c.std_error_mol_per_l * entry.dilution,
+                        std_error_mol_per_l: c.std_error_mol_per_l.map(|v| v * entry.dilution),
                         concentration_mg_per_l: c
                             .concentration_mg_per_l
                             .map(|v| v * entry.dilution),
@@ -840,7 +841,10 @@ fn replicates(wells: &mut [WellResult], options: &BatchOptions) -> Vec<SampleSum
             let (others_mean, _) = stats::mean_sd(&others);
             let u = &wells[i].undiluted[c];
             let gap = (u.concentration_mol_per_l - others_mean).abs();
-            if gap <= OUTLIER_MIN_STD_ERRORS * u.std_error_mol_per_l {
+            // Without a standard error (no noise estimate) Grubbs' test decides alone.
+            if u.std_error_mol_per_l
+                .is_some_and(|se| gap <= OUTLIER_MIN_STD_ERRORS * se)
+            {
                 continue;
             }
             per_comp_flags[c].push(i);

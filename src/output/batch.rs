@@ -85,13 +85,13 @@ fn well_rows(out: &mut String, plate: &str, w: &WellResult) {
                 out.push(',');
                 num(out, c.concentration_mol_per_l);
                 out.push(',');
-                num(out, c.std_error_mol_per_l);
+                opt(out, c.std_error_mol_per_l);
                 out.push(',');
                 num(out, w.dilution_factor);
                 out.push(',');
                 num(out, u.concentration_mol_per_l);
                 out.push(',');
-                num(out, u.std_error_mol_per_l);
+                opt(out, u.std_error_mol_per_l);
                 out.push(',');
                 opt(out, u.concentration_mg_per_l);
                 out.push(',');
