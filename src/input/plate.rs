@@ -38,7 +38,7 @@
 use super::fields::{self, Delimiter};
 use super::spectra::Quantity;
 use crate::error::{Error, Result};
-use crate::spectrum::{self, Grid};
+use crate::spectrum::Grid;
 use std::sync::Arc;
 
 /// Largest number of rows (A–P) of a supported plate.
@@ -351,6 +351,83 @@ fn cell(raw: &[u8], decimal_comma: bool, quantity: Quantity) -> std::result::Res
     }
 }
 
+/// Read a grid row of plain decimals in one pass: `A,0.123,-0.004,...`
+/// (a row letter, then cells that [`plain_decimal`] reads; trailing empty
+/// cells allowed). Fills `out` with the cells after the letter and returns
+/// the letter and the number of cells, or `None` when anything else is in
+/// the row (spaces, quotes, empty or overflow cells, decimal commas): the
+/// general path then reads it.
+#[inline]
+fn fast_row(line: &[u8], delim: u8, out: &mut [f64; MAX_COLUMNS + 1]) -> Option<(u8, usize)> {
+    const POW10: [f64; 16] = [
+        1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11, 1e12, 1e13, 1e14, 1e15,
+    ];
+    let letter = *line.first()?;
+    if !letter.is_ascii_alphabetic() || line.get(1) != Some(&delim) {
+        return None;
+    }
+    let n = line.len();
+    let mut i = 2;
+    let mut k = 0;
+    loop {
+        let negative = i < n && line[i] == b'-';
+        i += usize::from(negative);
+        let (mut m, mut n_digits, mut n_frac, mut dot) = (0u64, 0usize, 0usize, false);
+        while i < n {
+            let b = line[i];
+            let d = b.wrapping_sub(b'0');
+            if d < 10 {
+                m = m * 10 + u64::from(d);
+                n_digits += 1;
+                n_frac += usize::from(dot);
+            } else if b == b'.' && !dot {
+                dot = true;
+            } else {
+                break;
+            }
+            i += 1;
+        }
+        if n_digits == 0 {
+            // Only trailing empty cells may follow.
+            let rest_empty = !negative && !dot && line[i..].iter().all(|&b| b == delim);
+            return (rest_empty && k > 0).then_some((letter, k));
+        }
+        if n_digits > 15 || k == out.len() {
+            return None;
+        }
+        let v = m as f64 / POW10[n_frac];
+        out[k] = if negative { -v } else { v };
+        k += 1;
+        if i == n {
+            return Some((letter, k));
+        }
+        if line[i] != delim {
+            return None;
+        }
+        i += 1;
+    }
+}
+
+/// Split a grid row into fields. Rows are short and have many fields, so a
+/// plain byte loop beats a vectorised search per field; a row with quotes
+/// goes to the quote-aware splitter.
+#[inline]
+fn split_row<'a>(line: &'a [u8], delim: u8, out: &mut Vec<&'a [u8]>) {
+    if line.contains(&b'"') {
+        fields::split(line, delim, out);
+        return;
+    }
+    out.clear();
+    let mut start = 0;
+    for (i, &b) in line.iter().enumerate() {
+        if b == delim {
+            out.push(&line[start..i]);
+            start = i + 1;
+        }
+    }
+    out.push(&line[start..]);
+}
+
 /// Encoding of a block's cells: a finite value is a reading, `+inf` a
 /// saturated reading; these two mark "no cell" and "empty cell".
 const NO_CELL: f64 = f64::NAN;
@@ -369,8 +446,6 @@ pub fn is_saturated(v: f64) -> bool {
 struct GridBlock {
     wavelength_nm: f64,
     heading_line: usize,
-    /// Per well slot (row-major 16 × 24), encoded as above.
-    values: Vec<f64>,
     /// Line of each row, 0 when the row is absent.
     row_lines: [usize; MAX_ROWS],
     /// 0-based field of each column in a row line, 0 when absent.
@@ -395,6 +470,9 @@ pub fn parse_grid(
     // Wells with a reading (a value, a saturated reading or a bad cell) in
     // any block.
     let mut read = [false; MAX_ROWS * MAX_COLUMNS];
+    // Each well's cells, one per block so far (block order).
+    let mut per_slot: Vec<Vec<f64>> = vec![Vec::new(); MAX_ROWS * MAX_COLUMNS];
+    let mut fast = [0.0f64; MAX_COLUMNS + 1];
     while let Some((line_no, line)) = lines.next() {
         let Some(h) = heading(line) else {
             continue; // metadata or text between blocks
@@ -464,10 +542,10 @@ pub fn parse_grid(
                 "no column numbers after the heading: expected a line such as `,1,2,3,...,12`",
             ));
         }
+        let block_index = blocks.len();
         let mut block = GridBlock {
             wavelength_nm,
             heading_line: line_no,
-            values: vec![NO_CELL; MAX_ROWS * MAX_COLUMNS],
             row_lines: [0; MAX_ROWS],
             col_fields: [0; MAX_COLUMNS],
             bad: Vec::new(),
@@ -481,7 +559,28 @@ pub fn parse_grid(
             if fields::is_skippable(row_line, delim) {
                 break;
             }
-            fields::split(row_line, delim, &mut scratch);
+            // Fast path: a row letter and plain decimals (the usual export).
+            if quantity == Quantity::Absorbance
+                && let Some((letter, k)) = fast_row(row_line, delim, &mut fast)
+            {
+                let row = (letter.to_ascii_uppercase() - b'A') as usize;
+                if row < MAX_ROWS && !rows_seen[row] {
+                    rows_seen[row] = true;
+                    block.row_lines[row] = row_no;
+                    any_row = true;
+                    lines.next();
+                    for (j, &c) in columns.iter().enumerate().take(k) {
+                        let slot = row * MAX_COLUMNS + c;
+                        read[slot] = true;
+                        let v = &mut per_slot[slot];
+                        v.resize(block_index, NO_CELL);
+                        v.push(fast[j]);
+                    }
+                    continue;
+                }
+                // A bad or repeated row letter: the general path says so.
+            }
+            split_row(row_line, delim, &mut scratch);
             let label = fields::text(scratch[0]);
             let label = label.trim();
             let row = match label.as_bytes() {
@@ -514,7 +613,7 @@ pub fn parse_grid(
                     break; // short row: the remaining wells have no reading
                 };
                 let slot = row * MAX_COLUMNS + c;
-                block.values[slot] = match cell(raw, decimal_comma, quantity) {
+                let value = match cell(raw, decimal_comma, quantity) {
                     Ok(Cell::Value(v)) => {
                         read[slot] = true;
                         v
@@ -536,6 +635,11 @@ pub fn parse_grid(
                         EMPTY_CELL
                     }
                 };
+                // Store by well as we go (no transpose later): pad the
+                // blocks this well had no cell in, then add this one.
+                let v = &mut per_slot[slot];
+                v.resize(block_index, NO_CELL);
+                v.push(value);
             }
         }
         if !any_row {
@@ -548,11 +652,11 @@ pub fn parse_grid(
         }
         blocks.push(block);
     }
-    assemble(blocks, &read, name, first_line)
+    assemble(blocks, per_slot, &read, name, first_line)
 }
 
 /// Why well `slot` has no usable reading in block `b`.
-fn cell_error(b: &GridBlock, slot: usize) -> Error {
+fn cell_error(b: &GridBlock, slot: usize, value: f64) -> Error {
     let well = Well::from_index(slot);
     if let Some((_, line, column, raw, expected)) = b.bad.iter().find(|x| x.0 == slot) {
         return Error::Parse {
@@ -564,7 +668,7 @@ fn cell_error(b: &GridBlock, slot: usize) -> Error {
             expected: expected.clone(),
         };
     }
-    if is_empty_cell(b.values[slot]) {
+    if is_empty_cell(value) {
         return Error::Parse {
             at: crate::error::Location {
                 line: b.row_lines[well.row as usize],
@@ -587,7 +691,8 @@ fn cell_error(b: &GridBlock, slot: usize) -> Error {
 }
 
 fn assemble(
-    mut blocks: Vec<GridBlock>,
+    blocks: Vec<GridBlock>,
+    mut per_slot: Vec<Vec<f64>>,
     read: &[bool; MAX_ROWS * MAX_COLUMNS],
     name: &str,
     first_line: usize,
@@ -600,58 +705,52 @@ fn assemble(
             ),
         ));
     }
-    blocks.sort_by(|a, b| a.wavelength_nm.total_cmp(&b.wavelength_nm));
-    for pair in blocks.windows(2) {
-        if (pair[1].wavelength_nm - pair[0].wavelength_nm).abs()
-            <= 1e-9 * pair[0].wavelength_nm.abs()
-        {
+    let mut order: Vec<usize> = (0..blocks.len()).collect();
+    order.sort_by(|&a, &b| blocks[a].wavelength_nm.total_cmp(&blocks[b].wavelength_nm));
+    for pair in order.windows(2) {
+        let (x, y) = (&blocks[pair[0]], &blocks[pair[1]]);
+        if (y.wavelength_nm - x.wavelength_nm).abs() <= 1e-9 * x.wavelength_nm.abs() {
             let (a, b) = (
-                pair[0].heading_line.min(pair[1].heading_line),
-                pair[0].heading_line.max(pair[1].heading_line),
+                x.heading_line.min(y.heading_line),
+                x.heading_line.max(y.heading_line),
             );
             return Err(Error::structure(
                 b,
                 format!(
                     "plate '{name}': wavelength {} nm appears twice (headings on lines {a} and {b}): each wavelength once per plate",
-                    pair[0].wavelength_nm
+                    x.wavelength_nm
                 ),
             ));
         }
     }
-    let wavelengths: Vec<f64> = blocks.iter().map(|b| b.wavelength_nm).collect();
-    let (wavelengths, _) = spectrum::ascending(wavelengths);
+    let wavelengths: Vec<f64> = order.iter().map(|&i| blocks[i].wavelength_nm).collect();
     let grid =
         Arc::new(Grid::new(wavelengths).map_err(|e| Error::structure(first_line, e.to_string()))?);
     let n = grid.len();
-    // Transpose blocks (one per wavelength) into rows (one per well):
-    // each block is read in order, each well's row written in order.
-    let slots: Vec<usize> = (0..MAX_ROWS * MAX_COLUMNS).filter(|&s| read[s]).collect();
-    let mut rows = vec![0.0; slots.len() * n];
-    let mut errors: Vec<Option<Error>> = (0..slots.len()).map(|_| None).collect();
-    for (j, b) in blocks.iter().enumerate() {
-        for (k, &slot) in slots.iter().enumerate() {
-            let v = b.values[slot];
-            if v.is_finite() || is_saturated(v) {
-                rows[k * n + j] = v;
-            } else if errors[k].is_none() {
-                errors[k] = Some(cell_error(b, slot));
-            }
-        }
-    }
-    let mut wells = Vec::with_capacity(slots.len());
+    let in_order = order.iter().enumerate().all(|(k, &i)| k == i);
+    let mut wells = Vec::new();
     let mut failures = Vec::new();
-    let mut values = Vec::with_capacity(slots.len() * n);
-    for (k, (&slot, error)) in slots.iter().zip(errors).enumerate() {
+    let mut values = Vec::new();
+    for slot in (0..MAX_ROWS * MAX_COLUMNS).filter(|&s| read[s]) {
         let well = Well::from_index(slot);
-        match error {
-            Some(error) => failures.push(WellFailure {
+        let cells = &mut per_slot[slot];
+        cells.resize(n, NO_CELL);
+        let bad = order
+            .iter()
+            .find(|&&i| !(cells[i].is_finite() || is_saturated(cells[i])));
+        match bad {
+            Some(&i) => failures.push(WellFailure {
                 well: Some(well),
                 label: well.to_string(),
-                error,
+                error: cell_error(&blocks[i], slot, cells[i]),
             }),
             None => {
                 wells.push(well);
-                values.extend_from_slice(&rows[k * n..(k + 1) * n]);
+                if in_order {
+                    values.extend_from_slice(cells);
+                } else {
+                    values.extend(order.iter().map(|&i| cells[i]));
+                }
             }
         }
     }
@@ -809,6 +908,38 @@ mod tests {
         ] {
             assert_eq!(plain_decimal(t.as_bytes()), None, "{t}");
         }
+    }
+
+    #[test]
+    fn fast_rows_match_the_general_path_or_step_aside() {
+        let mut out = [0.0; MAX_COLUMNS + 1];
+        assert_eq!(
+            fast_row(b"B,0.5,-0.25,3,,", b',', &mut out),
+            Some((b'B', 3))
+        );
+        assert_eq!(&out[..3], &[0.5, -0.25, 3.0]);
+        for line in [
+            &b"B,0.5,OVER"[..],
+            b"B, 0.5",
+            b"B,0.5,,0.7",
+            b"B,\"0.5\"",
+            b"AB,0.5",
+            b"B;0,5",
+            b"B,",
+            b"B,1e-3",
+        ] {
+            assert_eq!(
+                fast_row(line, b',', &mut out),
+                None,
+                "{}",
+                String::from_utf8_lossy(line)
+            );
+        }
+        // Same plate either way: a file the fast path reads and one it does not.
+        let fast = parse("wavelength_nm=400\n,1,2\nA,0.1,0.2\nB,0.3,0.4\n").unwrap();
+        let slow = parse("wavelength_nm=400\n,1,2\nA, 0.1,0.2\nB,0.3 ,0.4\n").unwrap();
+        assert_eq!(fast.absorbance_au, slow.absorbance_au);
+        assert_eq!(fast.wells, slow.wells);
     }
 
     #[test]
