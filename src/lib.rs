@@ -21,6 +21,7 @@
 pub mod atomic;
 pub mod cli;
 pub mod dates;
+pub mod diagnostics;
 pub mod error;
 pub mod fit;
 pub mod input;

@@ -1,5 +1,6 @@
 //! `unblend fit`: fit spectra against reference components.
 
+use super::diagnostic_args::DiagnosticArgs;
 use super::{Failure, exit, library_dir, parse_positive, parse_range_nm};
 use crate::fit::{FitOptions, FitReport};
 use crate::input::spectra::{self, Quantity, ReadOptions};
@@ -41,6 +42,12 @@ pub struct Args {
     /// Write the results to FILE (atomically) instead of standard output.
     #[arg(long, value_name = "FILE")]
     pub out: Option<PathBuf>,
+    /// Library folder of candidate components to try on flagged samples (one extra component at a time, F-test).
+    #[arg(long, value_name = "DIR")]
+    pub screen_with: Option<PathBuf>,
+    /// Residual tests and saturation masking.
+    #[command(flatten)]
+    pub checks: DiagnosticArgs,
 }
 
 /// `--baseline` values.
@@ -139,7 +146,28 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let dir = library_dir(args.library.clone());
     let library = Library::open(&dir)?;
     let refs = library.select(&args.components)?;
-    let report = crate::fit::fit_file(&file, &refs, &options)?;
+    let mut checks = args.checks.options();
+    if let Some(dir) = &args.screen_with {
+        if args.checks.no_diagnostics {
+            return Err(Failure::new(
+                "--screen-with tries candidates on samples the residual tests flag: drop --no-diagnostics",
+            ));
+        }
+        let candidates = Library::open(dir)?;
+        for e in &candidates.broken {
+            eprintln!("unblend: warning: screening library: {e}");
+        }
+        if candidates.components.is_empty() {
+            return Err(Failure::new(format!(
+                "--screen-with {}: no readable component files (*.toml) there",
+                dir.display()
+            )));
+        }
+        checks.candidates = Some(crate::reference::ReferenceSet {
+            components: candidates.components,
+        });
+    }
+    let report = crate::fit::fit_file_with(&file, &refs, &options, &checks)?;
     emit(&report, args.format.into(), args.out.as_deref())?;
     Ok(exit_code(&report))
 }

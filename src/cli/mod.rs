@@ -5,6 +5,7 @@
 //! `TryFrom`, so the engine never depends on clap.
 
 pub mod demo;
+pub mod diagnostic_args;
 pub mod fit;
 pub mod library;
 

@@ -2,6 +2,8 @@
 //! JSON. Units are in every column name; concentrations in CSV and JSON are
 //! always mol/L (mg/L beside them where the molar mass is known).
 
+pub mod notes;
+
 use crate::fit::{FailedSample, FitReport, Outcome, SampleResult};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
@@ -80,7 +82,8 @@ pub fn write(report: &FitReport, format: Format, w: &mut dyn Write) -> io::Resul
     }
 }
 
-/// Column names of the tidy CSV.
+/// Column names of the tidy CSV (the residual-check columns of
+/// [`notes::CSV_EXTRA_HEADER`] follow).
 pub const CSV_HEADER: &str = "sample,component,concentration_mol_per_l,std_error_mol_per_l,concentration_mg_per_l,std_error_mg_per_l,mole_fraction,mass_fraction,baseline_offset_au,baseline_slope_au_per_nm,residual_rms_au,r_squared,range_low_nm,range_high_nm,n_points,pathlength_cm,solver,flags,error";
 
 /// Quote a CSV field when it needs it.
@@ -111,6 +114,7 @@ fn csv_rows(o: &Outcome, out: &mut String) {
             out.push_str(&csv_field(&f.sample));
             out.push_str(&",".repeat(18));
             out.push_str(&csv_field(&f.error));
+            out.push_str(&",".repeat(notes::CSV_EXTRA_COLUMNS));
             out.push('\n');
         }
         Outcome::Fitted(s) => {
@@ -150,7 +154,9 @@ fn csv_rows(o: &Outcome, out: &mut String) {
                 out.push_str(&s.solver);
                 out.push(',');
                 out.push_str(&s.flags.join(" "));
-                out.push_str(",\n");
+                out.push(',');
+                notes::csv_extra(s, out);
+                out.push('\n');
             }
         }
     }
@@ -159,7 +165,7 @@ fn csv_rows(o: &Outcome, out: &mut String) {
 /// Tidy CSV: one row per sample and component; a failed sample is one row
 /// with only its name and the `error` column.
 pub fn write_csv(report: &FitReport, w: &mut dyn Write) -> io::Result<()> {
-    writeln!(w, "{CSV_HEADER}")?;
+    writeln!(w, "{CSV_HEADER},{}", notes::CSV_EXTRA_HEADER)?;
     let parts: Vec<String> = report
         .outcomes
         .par_chunks(1024)
@@ -311,6 +317,7 @@ pub fn write_table(report: &FitReport, w: &mut dyn Write) -> io::Result<()> {
             first.range_nm[0], first.range_nm[1], first.n_points, first.pathlength_cm, first.solver
         )?;
     }
+    notes::write_notes(report, &unit, w)?;
     if !errors.is_empty() {
         writeln!(w, "\nnot fitted:")?;
         for e in errors {
