@@ -22,6 +22,7 @@ pub mod atomic;
 pub mod cli;
 pub mod dates;
 pub mod diagnostics;
+pub mod discover;
 pub mod error;
 pub mod fit;
 pub mod input;

@@ -6,6 +6,7 @@
 
 pub mod demo;
 pub mod diagnostic_args;
+pub mod discover;
 pub mod fit;
 pub mod library;
 
@@ -50,6 +51,8 @@ enum Command {
     Library(library::Command),
     /// Run the fit on the built-in demo data (an invented ink workshop).
     Demo(demo::Args),
+    /// Recover the spectrum of an unknown absorber shared by flagged samples.
+    Discover(discover::Args),
 }
 
 /// An error for the user, with the exit code it should give.
@@ -105,6 +108,7 @@ pub fn run(cli: Cli) -> Result<u8, Failure> {
         Command::Fit(a) => fit::run(a),
         Command::Library(c) => library::run(c),
         Command::Demo(a) => demo::run(a),
+        Command::Discover(a) => discover::run(a),
     }
 }
 
