@@ -452,9 +452,8 @@ fn masking_keeps_strong_samples_with_stray_light_within_a_few_percent() {
         assert!(m.flags.iter().any(|f| f == "saturation-masked"));
         assert!(!m.flags.iter().any(|f| f == "dilute-and-remeasure"));
         assert!(m.masking.as_ref().unwrap().n_masked > 0);
-        for j in 0..3 {
-            let rel =
-                |s: &SampleResult| (s.components[j].concentration_mol_per_l / t[j] - 1.0).abs();
+        for (j, tj) in t.iter().enumerate() {
+            let rel = |s: &SampleResult| (s.components[j].concentration_mol_per_l / tj - 1.0).abs();
             worst_masked = worst_masked.max(rel(m));
             worst_unmasked = worst_unmasked.max(rel(u));
         }
