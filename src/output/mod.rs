@@ -82,9 +82,9 @@ pub fn write(report: &FitReport, format: Format, w: &mut dyn Write) -> io::Resul
     }
 }
 
-/// Column names of the tidy CSV (the residual-check columns of
-/// [`notes::CSV_EXTRA_HEADER`] follow).
-pub const CSV_HEADER: &str = "sample,component,concentration_mol_per_l,std_error_mol_per_l,concentration_mg_per_l,std_error_mg_per_l,mole_fraction,mass_fraction,baseline_offset_au,baseline_slope_au_per_nm,residual_rms_au,r_squared,range_low_nm,range_high_nm,n_points,pathlength_cm,solver,flags,error";
+/// Column names of the tidy CSV; the residual-check columns (from
+/// `noise_au` on, see [`notes`]) come after `error`.
+pub const CSV_HEADER: &str = "sample,component,concentration_mol_per_l,std_error_mol_per_l,concentration_mg_per_l,std_error_mg_per_l,mole_fraction,mass_fraction,baseline_offset_au,baseline_slope_au_per_nm,residual_rms_au,r_squared,range_low_nm,range_high_nm,n_points,pathlength_cm,solver,flags,error,noise_au,reduced_chi_squared,durbin_watson,alarm_p_value,band_centre_nm,band_fwhm_nm,band_peak_au,band_signal_fraction,n_masked,screen_candidate,screen_concentration_mol_per_l,screen_p_value";
 
 /// Quote a CSV field when it needs it.
 pub fn csv_field(s: &str) -> std::borrow::Cow<'_, str> {
@@ -125,7 +125,7 @@ fn csv_rows(o: &Outcome, out: &mut String) {
                 out.push(',');
                 num(out, c.concentration_mol_per_l);
                 out.push(',');
-                num(out, c.std_error_mol_per_l);
+                opt(out, c.std_error_mol_per_l);
                 out.push(',');
                 opt(out, c.concentration_mg_per_l);
                 out.push(',');
@@ -165,9 +165,13 @@ fn csv_rows(o: &Outcome, out: &mut String) {
 /// Tidy CSV: one row per sample and component; a failed sample is one row
 /// with only its name and the `error` column.
 pub fn write_csv(report: &FitReport, w: &mut dyn Write) -> io::Result<()> {
-    writeln!(w, "{CSV_HEADER},{}", notes::CSV_EXTRA_HEADER)?;
-    let parts: Vec<String> = report
-        .outcomes
+    writeln!(w, "{CSV_HEADER}")?;
+    w.write_all(csv_rows_parallel(&report.outcomes).as_bytes())
+}
+
+/// The CSV rows (no header) of some outcomes, formatted in parallel.
+pub fn csv_rows_parallel(outcomes: &[Outcome]) -> String {
+    let parts: Vec<String> = outcomes
         .par_chunks(1024)
         .map(|chunk| {
             let mut s = String::with_capacity(chunk.len() * 400);
@@ -177,10 +181,7 @@ pub fn write_csv(report: &FitReport, w: &mut dyn Write) -> io::Result<()> {
             s
         })
         .collect();
-    for p in parts {
-        w.write_all(p.as_bytes())?;
-    }
-    Ok(())
+    parts.concat()
 }
 
 /// A concentration unit for display.
@@ -248,11 +249,14 @@ pub fn write_table(report: &FitReport, w: &mut dyn Write) -> io::Result<()> {
             Outcome::Fitted(s) => {
                 let mut row = vec![s.sample.clone()];
                 for c in &s.components {
-                    row.push(format!(
-                        "{:.3} ± {:.3}",
-                        c.concentration_mol_per_l * unit.factor,
-                        c.std_error_mol_per_l * unit.factor
-                    ));
+                    row.push(match c.std_error_mol_per_l {
+                        Some(se) => format!(
+                            "{:.3} ± {:.3}",
+                            c.concentration_mol_per_l * unit.factor,
+                            se * unit.factor
+                        ),
+                        None => format!("{:.3} ± ?", c.concentration_mol_per_l * unit.factor),
+                    });
                 }
                 row.push(format!("{:.2}", s.residual_rms * 1000.0));
                 row.push(s.r_squared.map_or("-".into(), |r| format!("{r:.5}")));

@@ -4,10 +4,7 @@
 use crate::fit::{FitReport, Outcome, SampleResult};
 use std::io::{self, Write};
 
-/// Columns appended to the tidy CSV (after `error`).
-pub const CSV_EXTRA_HEADER: &str = "noise_au,reduced_chi_squared,durbin_watson,alarm_p_value,band_centre_nm,band_fwhm_nm,band_peak_au,band_signal_fraction,n_masked,screen_candidate,screen_concentration_mol_per_l,screen_p_value";
-
-/// Number of columns in [`CSV_EXTRA_HEADER`].
+/// Number of residual-check columns at the end of [`super::CSV_HEADER`].
 pub const CSV_EXTRA_COLUMNS: usize = 12;
 
 fn num(out: &mut String, v: Option<f64>) {
