@@ -59,7 +59,7 @@ pub const SIGNAL_MARGIN: f64 = 1.2;
 pub const DEFAULT_PEAK_EPSILON: f64 = 10_000.0;
 
 /// Default limit on alternating least-squares iterations.
-pub const DEFAULT_MAX_ITERATIONS: usize = 500;
+pub const DEFAULT_MAX_ITERATIONS: usize = 3000;
 
 /// Relative change of the total RSS below which the iterations stop.
 const RSS_TOLERANCE: f64 = 1e-9;

@@ -515,6 +515,13 @@ fn discovery_recovers_the_unknown_spectrum_and_improves_the_fit() {
     .unwrap();
     assert_eq!(found.n_signals, 1, "{:?}", found.singular_values_au);
     let r = correlation(&found.epsilon_l_per_mol_cm, &unknown().epsilon_l_per_mol_cm);
+    eprintln!(
+        "discovery: shape correlation {r:.4}, {} samples, {} iterations, RSS {:.1} % lower, ambiguity {:?}",
+        found.samples.len(),
+        found.iterations,
+        100.0 * found.rss_reduction_fraction,
+        found.ambiguity
+    );
     assert!(r > 0.95, "shape correlation {r}");
     assert!(found.rss_reduction_fraction > 0.5);
     let still = found.samples.iter().filter(|s| s.flagged_after).count();
