@@ -320,6 +320,8 @@ pub struct SerialMoments {
     gram: Vec<f64>,
     b: Vec<f64>,
     c: Vec<f64>,
+    /// The moments with every column free (the usual case), computed once.
+    all_free: Option<(f64, f64, usize)>,
 }
 
 impl SerialMoments {
@@ -355,12 +357,28 @@ impl SerialMoments {
                 }
             }
         }
-        SerialMoments { n, p, gram, b, c }
+        let mut m = SerialMoments {
+            n,
+            p,
+            gram,
+            b,
+            c,
+            all_free: None,
+        };
+        m.all_free = m.compute(&vec![true; p]);
+        m
     }
 
     /// Exact mean and variance of d under white noise for the columns in
     /// `passive` (the free parameters), and the residual degrees of freedom.
     pub fn durbin_watson(&self, passive: &[bool]) -> Option<(f64, f64, usize)> {
+        if passive.iter().all(|b| *b) {
+            return self.all_free;
+        }
+        self.compute(passive)
+    }
+
+    fn compute(&self, passive: &[bool]) -> Option<(f64, f64, usize)> {
         let idx: Vec<usize> = (0..self.p).filter(|&j| passive[j]).collect();
         let m = idx.len();
         let n = self.n;

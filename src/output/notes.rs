@@ -100,7 +100,7 @@ pub fn notes(s: &SampleResult, unit: &super::DisplayUnit) -> Vec<String> {
         );
         if let Some(b) = &d.band {
             line.push_str(&format!(
-                "; unexplained absorbance {}–{} nm, centre {:.0} nm, FWHM {:.0} nm, peak {:.4} AU at {} nm, {:.1} % of the signal",
+                "; unexplained absorbance {}–{} nm, centre {:.0} nm, FWHM {:.0} nm, peak {:.4} AU at {} nm, {:.2} % of the signal",
                 b.low_nm,
                 b.high_nm,
                 b.centre_nm,
