@@ -255,11 +255,18 @@ pub fn pseudo_residuals(wavelengths_nm: &[f64], r: &[f64]) -> Vec<f64> {
         return Vec::new();
     }
     let w = wavelengths_nm;
+    // On an even step a = b = 1/2 and the norm is √1.5: skip the divisions.
+    let even = 1.0 / 1.5f64.sqrt();
     (1..n - 1)
         .map(|i| {
-            let a = (w[i + 1] - w[i]) / (w[i + 1] - w[i - 1]);
-            let b = 1.0 - a;
-            (a * r[i - 1] + b * r[i + 1] - r[i]) / (a * a + b * b + 1.0).sqrt()
+            let (h1, h2) = (w[i] - w[i - 1], w[i + 1] - w[i]);
+            if (h1 - h2).abs() <= 1e-9 * h1 {
+                (0.5 * (r[i - 1] + r[i + 1]) - r[i]) * even
+            } else {
+                let a = h2 / (h1 + h2);
+                let b = 1.0 - a;
+                (a * r[i - 1] + b * r[i + 1] - r[i]) / (a * a + b * b + 1.0).sqrt()
+            }
         })
         .collect()
 }
@@ -289,13 +296,17 @@ pub fn durbin_watson(r: &[f64]) -> Option<f64> {
 
 /// Wald–Wolfowitz runs test for too few runs of residual signs.
 pub fn runs_test(r: &[f64]) -> Option<RunsTest> {
-    let signs: Vec<bool> = r.iter().filter(|v| **v != 0.0).map(|v| *v > 0.0).collect();
-    let n1 = signs.iter().filter(|s| **s).count() as f64;
-    let n2 = signs.len() as f64 - n1;
+    // Signs of a noisy residual are random, so count without branches; exact
+    // zeros (no sign) are rare and take the filtered path.
+    let (n1, n2, runs) = if r.contains(&0.0) {
+        let kept: Vec<f64> = r.iter().copied().filter(|v| *v != 0.0).collect();
+        sign_runs(&kept)
+    } else {
+        sign_runs(r)
+    };
     if n1 < 1.0 || n2 < 1.0 {
         return None;
     }
-    let runs = 1 + signs.windows(2).filter(|p| p[0] != p[1]).count();
     let n = n1 + n2;
     let mu = 1.0 + 2.0 * n1 * n2 / n;
     let var = 2.0 * n1 * n2 * (2.0 * n1 * n2 - n) / (n * n * (n - 1.0));
@@ -308,6 +319,22 @@ pub fn runs_test(r: &[f64]) -> Option<RunsTest> {
         expected_runs: mu,
         p_value: stats::normal_cdf(z),
     })
+}
+
+/// (positive count, negative count, runs) of a residual without zeros.
+fn sign_runs(r: &[f64]) -> (f64, f64, usize) {
+    let Some(first) = r.first() else {
+        return (0.0, 0.0, 0);
+    };
+    let mut prev = usize::from(*first > 0.0);
+    let (mut pos, mut changes) = (prev, 0usize);
+    for v in &r[1..] {
+        let s = usize::from(*v > 0.0);
+        pos += s;
+        changes += s ^ prev;
+        prev = s;
+    }
+    (pos as f64, (r.len() - pos) as f64, changes + 1)
 }
 
 /// The pieces of the Durbin–Watson moments that depend only on the design:
@@ -689,6 +716,9 @@ mod tests {
         assert_eq!(t.runs, 4);
         // μ = 1 + 2·3·3/6 = 4 (Wald & Wolfowitz 1940).
         assert!((t.expected_runs - 4.0).abs() < 1e-12);
+        // An exact zero has no sign and is left out.
+        let z = runs_test(&[1.0, 2.0, 0.0, -1.0, -1.0, 3.0, -2.0]).unwrap();
+        assert_eq!(z, t);
     }
 
     #[test]

@@ -118,6 +118,9 @@ fn csv_rows(o: &Outcome, out: &mut String) {
             out.push('\n');
         }
         Outcome::Fitted(s) => {
+            // The residual-check columns are the same on every row of a sample.
+            let mut extra = String::new();
+            notes::csv_extra(s, &mut extra);
             for c in &s.components {
                 out.push_str(&csv_field(&s.sample));
                 out.push(',');
@@ -155,7 +158,7 @@ fn csv_rows(o: &Outcome, out: &mut String) {
                 out.push(',');
                 out.push_str(&s.flags.join(" "));
                 out.push(',');
-                notes::csv_extra(s, out);
+                out.push_str(&extra);
                 out.push('\n');
             }
         }
