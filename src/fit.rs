@@ -162,6 +162,9 @@ pub const FLAG_ITERATION_LIMIT: &str = "solver-iteration-limit";
 pub const FLAG_HIGH_ABSORBANCE: &str = "high-absorbance";
 /// Flags: the peak absorbance is below [`LOW_SIGNAL_AU`].
 pub const FLAG_LOW_SIGNAL: &str = "low-signal";
+/// Flags: a concentration lies above the top of its component's calibrated
+/// range (the highest standard used by `unblend calibrate`).
+pub const FLAG_BEYOND_CALIBRATED_RANGE: &str = "beyond-calibrated-range";
 
 /// Fit every spectrum of a file.
 pub fn fit_file(
@@ -227,6 +230,8 @@ pub struct Model {
     pub prepared: Prepared,
     molar_masses: Vec<Option<f64>>,
     names: Vec<String>,
+    /// Top of each component's calibrated range, mol/L (calibrated ones).
+    calibrated_max_mol_per_l: Vec<Option<f64>>,
 }
 
 impl Model {
@@ -257,7 +262,24 @@ impl Model {
                 .map(|c| c.molar_mass_g_per_mol)
                 .collect(),
             names: refs.names().iter().map(|s| s.to_string()).collect(),
+            calibrated_max_mol_per_l: refs
+                .components
+                .iter()
+                .map(|c| c.calibration().map(|k| k.concentration_max_mol_per_l))
+                .collect(),
         })
+    }
+
+    /// `collinear-references` warnings for this model's reference set over
+    /// its range (see [`crate::separability`]).
+    pub fn separability_warnings(&self) -> Vec<String> {
+        let analysis = crate::separability::analyse(&self.design);
+        crate::separability::collinearity_warnings(
+            &analysis,
+            &self.names,
+            self.design.range_nm(),
+            self.design.baseline,
+        )
     }
 
     /// A warning to show when this model was solved with the fallback.
@@ -341,6 +363,13 @@ impl Model {
         if peak < LOW_SIGNAL_AU {
             flags.push(FLAG_LOW_SIGNAL.to_string());
         }
+        if conc
+            .iter()
+            .zip(&self.calibrated_max_mol_per_l)
+            .any(|(c, max)| max.is_some_and(|m| *c > m))
+        {
+            flags.push(FLAG_BEYOND_CALIBRATED_RANGE.to_string());
+        }
         let (lo, hi) = d.range_nm();
         SampleResult {
             sample: sample.to_string(),
@@ -364,10 +393,14 @@ fn fit_block(
     warnings: &mut Vec<String>,
 ) -> Result<Vec<Outcome>> {
     let model = Model::new(&block.grid, refs, options)?;
-    if let Some(w) = model.method_warning()
-        && !warnings.contains(&w)
+    for w in model
+        .method_warning()
+        .into_iter()
+        .chain(model.separability_warnings())
     {
-        warnings.push(w);
+        if !warnings.contains(&w) {
+            warnings.push(w);
+        }
     }
     let idx: Vec<usize> = (0..block.len()).collect();
     let out: Vec<Vec<Outcome>> = idx

@@ -4,6 +4,7 @@
 //! `pub fn run`, then helpers. Flags become engine options through
 //! `TryFrom`, so the engine never depends on clap.
 
+pub mod calibrate;
 pub mod demo;
 pub mod fit;
 pub mod library;
@@ -44,9 +45,11 @@ pub struct Cli {
 enum Command {
     /// Fit spectra as non-negative sums of reference components.
     Fit(fit::Args),
-    /// Add, list and show reference components.
+    /// Add, list, show and check reference components.
     #[command(subcommand)]
     Library(library::Command),
+    /// Make a reference component from a blank and a series of standards.
+    Calibrate(calibrate::Args),
     /// Run the fit on the built-in demo data (an invented ink workshop).
     Demo(demo::Args),
 }
@@ -103,6 +106,7 @@ pub fn run(cli: Cli) -> Result<u8, Failure> {
     match cli.command {
         Command::Fit(a) => fit::run(a),
         Command::Library(c) => library::run(c),
+        Command::Calibrate(a) => calibrate::run(a),
         Command::Demo(a) => demo::run(a),
     }
 }
