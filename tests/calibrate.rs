@@ -858,7 +858,7 @@ fn concentration_file_naming_an_absent_sample_is_an_error() {
         &spectra,
         &conc,
         &[],
-        "'std-99 (line 7)' that the spectra file does not have",
+        "'std-99' (line 7) that the spectra file does not have",
     );
 }
 

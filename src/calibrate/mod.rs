@@ -477,8 +477,14 @@ fn band_maximum(
 }
 
 fn list_names(names: &[String]) -> String {
-    let shown: Vec<String> = names.iter().take(5).map(|n| format!("'{n}'")).collect();
-    let more = names.len().saturating_sub(5);
+    let quoted: Vec<String> = names.iter().map(|n| format!("'{n}'")).collect();
+    join_some(&quoted)
+}
+
+/// The first five items, then how many more.
+fn join_some(items: &[String]) -> String {
+    let shown: Vec<&str> = items.iter().take(5).map(String::as_str).collect();
+    let more = items.len().saturating_sub(5);
     if more > 0 {
         format!("{} and {more} more", shown.join(", "))
     } else {
@@ -543,7 +549,7 @@ pub fn calibrate(
         .collect();
     if !unlisted.is_empty() {
         return Err(Error::Invalid(format!(
-            "the concentration file has no row for {} in the spectra file: give every spectrum a row (role `exclude` leaves one out on purpose)",
+            "the concentration file has no row for {} of the spectra file: give every spectrum a row (role `exclude` leaves one out on purpose)",
             list_names(&unlisted)
         )));
     }
@@ -552,12 +558,12 @@ pub fn calibrate(
         .filter(|s| {
             !located.contains_key(s.sample.as_str()) && !failed.contains_key(s.sample.as_str())
         })
-        .map(|s| format!("{} (line {})", s.sample, s.line))
+        .map(|s| format!("'{}' (line {})", s.sample, s.line))
         .collect();
     if !absent.is_empty() {
         return Err(Error::Invalid(format!(
             "the concentration file names {} that the spectra file does not have: check the sample names",
-            list_names(&absent)
+            join_some(&absent)
         )));
     }
 
@@ -1229,7 +1235,7 @@ mod tests {
             &Provenance::default(),
         )
         .unwrap_err();
-        assert!(e.to_string().contains("'zz (line 6)'"), "{e}");
+        assert!(e.to_string().contains("'zz' (line 6)"), "{e}");
     }
 
     #[test]

@@ -208,15 +208,27 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             };
             let text = serde_json::to_string_pretty(&summary)
                 .map_err(|e| Failure::new(format!("json: {e}")))?;
-            println!("{text}");
+            print_stdout(&format!("{text}\n"))?;
         }
-        ReportFormat::Table => print_summary(&args, &table.unit, &result, written.as_deref()),
+        ReportFormat::Table => print_summary(&args, &table.unit, &result, written.as_deref())?,
     }
     Ok(if result.unreadable.is_empty() {
         exit::OK
     } else {
         exit::PARTIAL
     })
+}
+
+/// Write text to standard output; a reader that went away (a closed pipe)
+/// is not an error.
+pub(crate) fn print_stdout(text: &str) -> Result<(), Failure> {
+    let mut lock = std::io::stdout().lock();
+    match lock.write_all(text.as_bytes()).and_then(|_| lock.flush()) {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => {
+            Err(Failure::new(format!("standard output: {e}")))
+        }
+        _ => Ok(()),
+    }
 }
 
 fn shown(path: &Path) -> String {
@@ -270,7 +282,14 @@ fn print_summary(
     unit: &ConcentrationUnit,
     result: &CalibrationResult,
     written: Option<&Path>,
-) {
+) -> Result<(), Failure> {
+    let mut out = String::new();
+    macro_rules! say {
+        ($($t:tt)*) => {{
+            out.push_str(&format!($($t)*));
+            out.push('\n');
+        }};
+    }
     let c = &result.calibration;
     let m = args.molar_mass;
     let used = result
@@ -278,7 +297,7 @@ fn print_summary(
         .iter()
         .filter(|w| w.excluded.is_none())
         .count();
-    println!(
+    say!(
         "calibrated '{}' from {} standards at {} concentrations ({} blank{} subtracted), pathlength {} cm",
         args.name,
         c.n_standards,
@@ -287,18 +306,18 @@ fn print_summary(
         if c.n_blanks == 1 { "" } else { "s" },
         c.pathlength_cm
     );
-    println!(
+    say!(
         "  concentrations  {} to {}",
         in_unit(c.concentration_min_mol_per_l, unit, m),
         in_unit(c.concentration_max_mol_per_l, unit, m)
     );
-    println!(
+    say!(
         "  wavelengths     {}–{} nm, {used} of {} used",
         c.range_nm[0],
         c.range_nm[1],
         result.wavelengths.len()
     );
-    println!(
+    say!(
         "  band maximum    {} nm: ε = {} ± {} L/(mol·cm), R² = {:.5}, residual SD {:.5} AU",
         c.band_max_nm,
         sig(c.epsilon_at_band_max_l_per_mol_cm),
@@ -311,7 +330,7 @@ fn print_summary(
     } else {
         "not significantly different from 0"
     };
-    println!(
+    say!(
         "  intercept       {:.5} ± {:.5} AU at {} nm (t test p = {:.3}, {verdict})",
         c.intercept_at_band_max_au,
         c.intercept_std_error_at_band_max_au,
@@ -319,7 +338,7 @@ fn print_summary(
         c.intercept_p_value
     );
     match &c.lack_of_fit {
-        Some(l) => println!(
+        Some(l) => say!(
             "  lack of fit     F = {:.2} ({}, {} df), p = {:.3}{}",
             l.f_statistic,
             l.df_lack_of_fit,
@@ -332,18 +351,18 @@ fn print_summary(
             }
         ),
         None => {
-            println!("  lack of fit     not tested (needs replicates at 3 or more concentrations)")
+            say!("  lack of fit     not tested (needs replicates at 3 or more concentrations)")
         }
     }
-    println!(
+    say!(
         "  calibrated range up to {} and {:.3} AU: `fit` flags concentrations above it with beyond-calibrated-range",
         in_unit(c.concentration_max_mol_per_l, unit, m),
         c.max_absorbance_au
     );
     if !c.excluded_standards.is_empty() || !c.excluded_wavelengths.is_empty() {
-        println!("  left out:");
+        say!("  left out:");
         for e in &c.excluded_standards {
-            println!(
+            say!(
                 "    {} ({}): {}",
                 e.sample,
                 in_unit(e.concentration_mol_per_l, unit, m),
@@ -351,16 +370,17 @@ fn print_summary(
             );
         }
         for e in &c.excluded_wavelengths {
-            println!("    {}–{} nm: {}", e.range_nm[0], e.range_nm[1], e.reason);
+            say!("    {}–{} nm: {}", e.range_nm[0], e.range_nm[1], e.reason);
         }
     }
     for u in &result.unreadable {
-        println!("  unreadable:     {}: {}", u.sample, u.error);
+        say!("  unreadable:     {}: {}", u.sample, u.error);
     }
     match written {
-        Some(p) => println!("wrote {}", p.display()),
-        None => println!("(dry run: nothing written)"),
+        Some(p) => say!("wrote {}", p.display()),
+        None => say!("(dry run: nothing written)"),
     }
+    print_stdout(&out)
 }
 
 /// The line at every wavelength as CSV.

@@ -1,7 +1,7 @@
 //! `unblend library add|list|show|check`: manage reference components and
 //! check that a set of them can be told apart.
 
-use super::calibrate::{ReportFormat, sig};
+use super::calibrate::{ReportFormat, print_stdout, sig};
 use super::fit::BaselineArg;
 use super::{Failure, exit, library_dir, parse_positive, parse_range_nm};
 use crate::reference::{Component, Conditions, Library, Source};
@@ -360,9 +360,9 @@ fn check(a: CheckArgs) -> Result<u8, Failure> {
         ReportFormat::Json => {
             let text = serde_json::to_string_pretty(&report)
                 .map_err(|e| Failure::new(format!("json: {e}")))?;
-            println!("{text}");
+            print_stdout(&format!("{text}\n"))?;
         }
-        ReportFormat::Table => print_check(&report),
+        ReportFormat::Table => print_check(&report)?,
     }
     Ok(exit::OK)
 }
@@ -382,10 +382,17 @@ fn concentration_unit(typical: f64) -> (&'static str, f64) {
     ("nmol/L", 1e9)
 }
 
-fn print_check(r: &CheckReport) {
+fn print_check(r: &CheckReport) -> Result<(), Failure> {
+    let mut out = String::new();
+    macro_rules! say {
+        ($($t:tt)*) => {{
+            out.push_str(&format!($($t)*));
+            out.push('\n');
+        }};
+    }
     let fmt_cond = |c: Option<f64>| c.map_or("infinite".into(), |c| format!("{c:.3}"));
-    println!("reference set: {}", r.components.join(", "));
-    println!(
+    say!("reference set: {}", r.components.join(", "));
+    say!(
         "range {}–{} nm, {} readings {} nm apart, baseline {}, pathlength {} cm, noise {} AU per reading",
         r.range_nm[0],
         r.range_nm[1],
@@ -395,7 +402,7 @@ fn print_check(r: &CheckReport) {
         r.pathlength_cm,
         r.noise_au
     );
-    println!(
+    say!(
         "condition number {} (columns scaled to unit length; fit would solve with {})",
         fmt_cond(r.condition_number),
         r.solver
@@ -427,10 +434,10 @@ fn print_check(r: &CheckReport) {
             cell(c.calibrated_max_mol_per_l),
         ]);
     }
-    println!();
-    print_aligned(&rows);
+    say!("");
+    out.push_str(&format_aligned(&rows));
     if !r.pairs.is_empty() {
-        println!();
+        say!("");
         let mut pairs: Vec<_> = r.pairs.iter().collect();
         pairs.sort_by(|a, b| b.cosine.total_cmp(&a.cosine));
         let mut rows = vec![vec![
@@ -455,18 +462,18 @@ fn print_check(r: &CheckReport) {
                 },
             ]);
         }
-        print_aligned(&rows);
+        out.push_str(&format_aligned(&rows));
     }
     let whole_is_best = r.best_range.as_ref().is_some_and(|b| {
         (b.range_nm[0] - r.range_nm[0]).abs() < 1e-9 && (b.range_nm[1] - r.range_nm[1]).abs() < 1e-9
     });
     if whole_is_best {
-        println!(
+        say!(
             "\nbest conditioning: the whole range (no window at least {:.0} nm wide is better conditioned)",
             r.best_range.as_ref().map_or(0.0, |b| b.min_width_nm)
         );
     } else if let Some(b) = &r.best_range {
-        println!(
+        say!(
             "\nbest conditioning over windows at least {:.0} nm wide: {}–{} nm (condition {:.3} with the columns scaled as over the whole range, vs {} over {}–{} nm; {} there on its own scaling)",
             b.min_width_nm,
             b.range_nm[0],
@@ -477,19 +484,20 @@ fn print_check(r: &CheckReport) {
             r.range_nm[1],
             fmt_cond(b.condition_number)
         );
-        println!(
+        say!(
             "(more wavelengths never raise the predicted errors at constant noise; a better-conditioned range is less sensitive to errors in the references)"
         );
     }
-    println!();
+    say!("");
     if r.warnings.is_empty() {
-        println!("verdict: separable over this range (no collinear pairs)");
+        say!("verdict: separable over this range (no collinear pairs)");
     } else {
-        println!(
+        say!(
             "verdict: {} warning(s), printed on standard error",
             r.warnings.len()
         );
     }
+    print_stdout(&out)
 }
 
 fn peak(c: &Component) -> (f64, f64) {
@@ -508,6 +516,12 @@ fn hex(bytes: &[u8]) -> String {
 
 /// Print rows as a left-aligned table (first row is the header).
 pub fn print_aligned(rows: &[Vec<String>]) {
+    print!("{}", format_aligned(rows));
+}
+
+/// Format rows as a left-aligned table (first row is the header, then a
+/// rule).
+pub fn format_aligned(rows: &[Vec<String>]) -> String {
     let ncol = rows.iter().map(Vec::len).max().unwrap_or(0);
     let mut width = vec![0; ncol];
     for r in rows {
@@ -515,16 +529,20 @@ pub fn print_aligned(rows: &[Vec<String>]) {
             width[i] = width[i].max(c.chars().count());
         }
     }
+    let mut out = String::new();
     for (k, r) in rows.iter().enumerate() {
         let mut s = String::new();
         for (i, c) in r.iter().enumerate() {
             s.push_str(c);
             s.push_str(&" ".repeat(width[i] - c.chars().count() + 2));
         }
-        println!("{}", s.trim_end());
+        out.push_str(s.trim_end());
+        out.push('\n');
         if k == 0 {
             let rule: Vec<String> = width.iter().map(|w| "-".repeat(*w)).collect();
-            println!("{}", rule.join("  "));
+            out.push_str(&rule.join("  "));
+            out.push('\n');
         }
     }
+    out
 }

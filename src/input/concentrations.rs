@@ -80,11 +80,13 @@ impl ConcentrationUnit {
                 self.label()
             ))),
         };
+        // Dividing by an exact power of ten rounds once: 5 umol/L becomes
+        // the double nearest 5e-6, where multiplying by 1e-6 would not.
         match self {
             Self::MolPerL => Ok(value),
-            Self::MmolPerL => Ok(value * 1e-3),
-            Self::UmolPerL => Ok(value * 1e-6),
-            Self::MgPerL => molar(value * 1e-3),
+            Self::MmolPerL => Ok(value / 1e3),
+            Self::UmolPerL => Ok(value / 1e6),
+            Self::MgPerL => molar(value / 1e3),
             Self::GPerL => molar(value),
         }
     }
@@ -490,6 +492,13 @@ mod tests {
         assert_eq!(t.unit, ConcentrationUnit::UmolPerL);
         let s = t.standards(None).unwrap();
         assert!((s[0].concentration_mol_per_l - 1e-5).abs() < 1e-18);
+        let t = read_str("sample,concentration_umol_per_l\ns1,5\n").unwrap();
+        assert_eq!(
+            t.standards(None).unwrap()[0]
+                .concentration_mol_per_l
+                .to_bits(),
+            5e-6f64.to_bits()
+        );
         let t = read_str("sample,concentration (mM)\ns1,2\n").unwrap();
         assert_eq!(t.unit, ConcentrationUnit::MmolPerL);
     }
