@@ -402,7 +402,12 @@ fn nadh_series_returns_6220_at_340_nm_in_a_half_centimetre_cell() {
         "0.5",
         "--library",
         &d.lib(),
+        "--out",
+        &p(&d.path("lines.csv")),
     ]);
+    let lines = std::fs::read_to_string(d.path("lines.csv")).unwrap();
+    assert!(lines.starts_with("wavelength_nm,epsilon_l_per_mol_cm,std_error_l_per_mol_cm,"));
+    assert_eq!(lines.lines().count(), w.len() + 1);
     let c = &j.calibration;
     assert_eq!((c.n_standards, c.n_levels, c.n_blanks), (10, 5, 2));
     assert_eq!(c.concentration_unit, "umol/L");

@@ -1218,6 +1218,119 @@ mod tests {
     }
 
     #[test]
+    fn wavelengths_where_the_blank_is_opaque_are_left_out() {
+        // Solvent cut-off: below 410 nm the blank (and so every reading)
+        // is above 2 AU.
+        let w = [400.0, 405.0, 410.0, 420.0, 430.0];
+        let solvent = [2.5, 2.2, 0.1, 0.02, 0.0];
+        let mut rows = vec![("blank", solvent.to_vec())];
+        let mut conc = String::from("sample,concentration\nblank,0\n");
+        let names = ["s1", "s2", "s3", "s4"];
+        for (i, name) in names.iter().enumerate() {
+            let c = 2e-5 * (i + 1) as f64;
+            rows.push((*name, solvent.iter().map(|b| b + 5000.0 * c).collect()));
+            conc.push_str(&format!("{name},{c}\n"));
+        }
+        let file = spectra_csv(&w, &rows);
+        let r = calibrate(
+            &file,
+            &standards(&conc),
+            &CalibrationOptions::default(),
+            &Provenance::default(),
+        )
+        .unwrap();
+        let ex = &r.calibration.excluded_wavelengths;
+        assert_eq!(ex.len(), 1, "{ex:?}");
+        let nm = |r: [f64; 2]| (r[0].round() as i64, r[1].round() as i64);
+        assert_eq!(nm(ex[0].range_nm), (400, 405));
+        assert!(
+            ex[0].reason.contains("the blank reads above"),
+            "{}",
+            ex[0].reason
+        );
+        assert_eq!(nm(r.calibration.range_nm), (410, 430));
+        let c = r
+            .component("dye", None, None, Conditions::default())
+            .unwrap();
+        assert_eq!(c.grid.wavelengths_nm(), &[410.0, 420.0, 430.0]);
+    }
+
+    #[test]
+    fn band_that_changes_shape_at_the_top_loses_its_flank() {
+        // The top standard's band shifts (as on aggregation): its maximum
+        // stays on the line, one flank reads 15 % low, the other 12 % high
+        // (not enough to move the band maximum to that flank).
+        let w = [480.0, 490.0, 500.0, 510.0, 520.0];
+        let eps = [3000.0, 4000.0, 5000.0, 4000.0, 3000.0];
+        let mut rows = vec![("blank", vec![0.0; 5])];
+        let mut conc = String::from("sample,concentration\nblank,0\n");
+        let names = ["s1", "s2", "s3", "s4", "s5"];
+        for (i, name) in names.iter().enumerate() {
+            let c = 2e-5 * (i + 1) as f64;
+            let mut a: Vec<f64> = eps.iter().map(|e| e * c).collect();
+            if i == names.len() - 1 {
+                a[1] *= 0.85;
+                a[3] *= 1.12;
+            }
+            rows.push((*name, a));
+            conc.push_str(&format!("{name},{c}\n"));
+        }
+        let file = spectra_csv(&w, &rows);
+        let r = calibrate(
+            &file,
+            &standards(&conc),
+            &CalibrationOptions::default(),
+            &Provenance::default(),
+        )
+        .unwrap();
+        assert!(r.calibration.excluded_standards.is_empty());
+        let ex = &r.calibration.excluded_wavelengths;
+        assert_eq!(ex.len(), 2, "{ex:?}");
+        assert_eq!(
+            (ex[0].range_nm, ex[1].range_nm),
+            ([490.0, 490.0], [510.0, 510.0])
+        );
+        assert!(ex[0].reason.contains("bends away"), "{}", ex[0].reason);
+        assert!(r.warnings.iter().any(|w| w.contains("interpolated across")));
+    }
+
+    #[test]
+    fn standards_on_different_wavelengths_are_an_error() {
+        let text = "sample,wavelength_nm,absorbance\n\
+                    b,400,0\nb,410,0\ns1,400,0.1\ns1,410,0.1\n\
+                    s2,400,0.2\ns2,410,0.2\ns3,400,0.3\ns3,420,0.3\n";
+        let file = spectra::read(text.as_bytes(), ReadOptions::default()).unwrap();
+        let e = calibrate(
+            &file,
+            &standards("sample,concentration\nb,0\ns1,1e-5\ns2,2e-5\ns3,3e-5\n"),
+            &CalibrationOptions::default(),
+            &Provenance::default(),
+        )
+        .unwrap_err();
+        assert!(e.to_string().contains("different wavelengths"), "{e}");
+    }
+
+    #[test]
+    fn excluded_role_is_left_out_and_named() {
+        let (file, _) = clean_series(&[2e-5, 4e-5, 6e-5, 8e-5]);
+        let std = standards(
+            "sample,concentration,role\nblank,0,\ns0,2e-5,\ns1,4e-5,\ns2,6e-5,\ns3,8e-5,exclude\n",
+        );
+        let r = calibrate(
+            &file,
+            &std,
+            &CalibrationOptions::default(),
+            &Provenance::default(),
+        )
+        .unwrap();
+        let ex = &r.calibration.excluded_standards;
+        assert_eq!(ex.len(), 1);
+        assert_eq!(ex[0].sample, "s3");
+        assert!(ex[0].reason.contains("role `exclude`"));
+        assert_eq!(r.calibration.n_standards, 3);
+    }
+
+    #[test]
     fn samples_must_match_both_ways() {
         let (file, _) = clean_series(&[2e-5, 4e-5, 6e-5]);
         let e = calibrate(
