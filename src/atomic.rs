@@ -29,7 +29,7 @@ pub fn temp_path(target: &Path) -> PathBuf {
 /// is left untouched (safe against concurrent writers).
 pub fn write_with<F>(target: &Path, no_clobber: bool, fill: F) -> Result<()>
 where
-    F: FnOnce(&mut dyn Write) -> std::io::Result<()>,
+    F: FnOnce(&mut (dyn Write + Send)) -> std::io::Result<()>,
 {
     let shown = target.display().to_string();
     let tmp = temp_path(target);

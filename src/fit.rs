@@ -63,8 +63,9 @@ pub struct ComponentResult {
     pub name: String,
     /// Concentration, mol/L.
     pub concentration_mol_per_l: f64,
-    /// Standard error of the concentration, mol/L.
-    pub std_error_mol_per_l: f64,
+    /// Standard error of the concentration, mol/L; `None` (JSON null) only
+    /// when the fit has as many unknowns as wavelengths, so no noise estimate.
+    pub std_error_mol_per_l: Option<f64>,
     /// Concentration, mg/L (when the molar mass is known).
     #[serde(skip_serializing_if = "Option::is_none", default)]
     pub concentration_mg_per_l: Option<f64>,
@@ -166,6 +167,9 @@ pub const FLAG_LOW_SIGNAL: &str = "low-signal";
 /// range (the highest standard used by `unblend calibrate`).
 pub const FLAG_BEYOND_CALIBRATED_RANGE: &str = "beyond-calibrated-range";
 
+/// Flags: as many unknowns as wavelengths, so no standard errors.
+pub const FLAG_NO_ERROR_ESTIMATE: &str = "no-error-estimate";
+
 /// Fit every spectrum of a file.
 pub fn fit_file(
     file: &SpectraFile,
@@ -193,6 +197,9 @@ pub fn fit_file(
                     slots[*pos] = Some(r);
                 }
             }
+            // With one grid for the whole file, a model that cannot be built
+            // is a problem of the run, not of each sample: say it once.
+            Err(e) if file.blocks.len() == 1 => return Err(e),
             Err(e) => {
                 let msg = e.to_string();
                 for (pos, id) in block.positions.iter().zip(&block.ids) {
@@ -335,9 +342,11 @@ impl Model {
             .map(|i| ComponentResult {
                 name: self.names[i].clone(),
                 concentration_mol_per_l: conc[i],
-                std_error_mol_per_l: se[i],
+                std_error_mol_per_l: se[i].is_finite().then_some(se[i]),
                 concentration_mg_per_l: self.molar_masses[i].map(|m| conc[i] * m * 1000.0),
-                std_error_mg_per_l: self.molar_masses[i].map(|m| se[i] * m * 1000.0),
+                std_error_mg_per_l: self.molar_masses[i]
+                    .filter(|_| se[i].is_finite())
+                    .map(|m| se[i] * m * 1000.0),
                 mole_fraction: (total > 0.0).then(|| conc[i] / total),
                 mass_fraction: (all_masses && mass_total > 0.0)
                     .then(|| conc[i] * self.molar_masses[i].unwrap_or(0.0) / mass_total),
@@ -348,14 +357,21 @@ impl Model {
             slope_au_per_nm: (d.baseline.n_terms() == 2).then(|| sol.x[k + 1] / d.half_span_nm),
             reference_nm: d.centre_nm,
         };
-        let sum: f64 = a.iter().sum();
-        let aa: f64 = a.iter().map(|v| v * v).sum();
+        // One pass: sum, sum of squares and peak.
+        let (mut sum, mut aa, mut peak) = (0.0, 0.0, f64::NEG_INFINITY);
+        for &v in a {
+            sum += v;
+            aa += v * v;
+            peak = f64::max(peak, v);
+        }
         let sstot = aa - sum * sum / n as f64;
         let r_squared = (sstot > 0.0 && sstot.is_finite()).then(|| 1.0 - sol.rss / sstot);
-        let peak = a.iter().fold(f64::NEG_INFINITY, |m, &v| m.max(v));
         let mut flags = Vec::new();
         if sol.status == Status::IterationLimit {
             flags.push(FLAG_ITERATION_LIMIT.to_string());
+        }
+        if sol.std_error.iter().any(|v| v.is_nan()) {
+            flags.push(FLAG_NO_ERROR_ESTIMATE.to_string());
         }
         if peak > HIGH_ABSORBANCE_AU {
             flags.push(FLAG_HIGH_ABSORBANCE.to_string());
@@ -402,18 +418,97 @@ fn fit_block(
             warnings.push(w);
         }
     }
-    let idx: Vec<usize> = (0..block.len()).collect();
-    let out: Vec<Vec<Outcome>> = idx
-        .par_chunks(CHUNK)
-        .map(|chunk| {
-            let mut ws = model.prepared.workspace();
-            chunk
-                .iter()
-                .map(|&i| {
-                    model.fit_one(&block.ids[i], block.row(i), options.pathlength_cm, &mut ws)
-                })
-                .collect()
-        })
-        .collect();
-    Ok(out.into_iter().flatten().collect())
+    Ok(model.fit_block(block, options.pathlength_cm))
+}
+
+impl Model {
+    /// Fit every spectrum of a block (on this model's grid) in parallel, in
+    /// fixed chunks of [`CHUNK`]; outcomes in block order.
+    pub fn fit_block(&self, block: &Block, pathlength_cm: f64) -> Vec<Outcome> {
+        let idx: Vec<usize> = (0..block.len()).collect();
+        let out: Vec<Vec<Outcome>> = idx
+            .par_chunks(CHUNK)
+            .map(|chunk| {
+                let mut ws = self.prepared.workspace();
+                chunk
+                    .iter()
+                    .map(|&i| self.fit_one(&block.ids[i], block.row(i), pathlength_cm, &mut ws))
+                    .collect()
+            })
+            .collect();
+        out.into_iter().flatten().collect()
+    }
+}
+
+/// Merge a chunk's fitted block and its failed rows into input order.
+pub fn merge_chunk(
+    block: &Block,
+    fitted: Vec<Outcome>,
+    failures: Vec<crate::input::spectra::RowFailure>,
+) -> Vec<Outcome> {
+    let mut all: Vec<(usize, Outcome)> = block.positions.iter().copied().zip(fitted).collect();
+    all.extend(failures.into_iter().map(|f| {
+        (
+            f.position,
+            Outcome::Failed(FailedSample {
+                sample: f.sample,
+                error: f.error.to_string(),
+            }),
+        )
+    }));
+    all.sort_by_key(|(p, _)| *p);
+    all.into_iter().map(|(_, o)| o).collect()
+}
+
+/// Fit a wide file chunk by chunk, handing each chunk's outcomes (in input
+/// order) to `sink`, so memory stays bounded. Reading and parsing the next
+/// chunk (on a reader thread) overlaps fitting and writing this one.
+/// Returns the run's warnings.
+pub fn fit_stream<R: std::io::Read + Send, E>(
+    stream: &mut crate::input::spectra::WideStream<R>,
+    refs: &ReferenceSet,
+    options: &FitOptions,
+    mut sink: impl FnMut(Vec<Outcome>) -> std::result::Result<(), E>,
+) -> std::result::Result<Vec<String>, StreamError<E>> {
+    use std::sync::mpsc;
+    let model = Model::new(stream.grid(), refs, options).map_err(StreamError::Engine)?;
+    let warnings: Vec<String> = model.method_warning().into_iter().collect();
+    std::thread::scope(|scope| {
+        let (tx, rx) = mpsc::sync_channel::<Result<crate::input::spectra::Chunk>>(1);
+        let (back_tx, back_rx) = mpsc::channel::<Block>();
+        scope.spawn(move || {
+            loop {
+                if let Ok(spare) = back_rx.try_recv() {
+                    stream.recycle(spare);
+                }
+                let item = match stream.next_chunk() {
+                    Ok(Some(c)) => Ok(c),
+                    Ok(None) => break,
+                    Err(e) => Err(e),
+                };
+                let stop = item.is_err();
+                if tx.send(item).is_err() || stop {
+                    break;
+                }
+            }
+        });
+        // Leaving this loop early drops `rx`, which stops the reader.
+        for item in rx {
+            let chunk = item.map_err(StreamError::Engine)?;
+            let fitted = model.fit_block(&chunk.block, options.pathlength_cm);
+            let outcomes = merge_chunk(&chunk.block, fitted, chunk.failures);
+            let _ = back_tx.send(chunk.block);
+            sink(outcomes).map_err(StreamError::Sink)?;
+        }
+        Ok(warnings)
+    })
+}
+
+/// Why a streamed fit stopped.
+#[derive(Debug)]
+pub enum StreamError<E> {
+    /// Reading or modelling failed.
+    Engine(Error),
+    /// The sink (writer) failed.
+    Sink(E),
 }

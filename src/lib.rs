@@ -13,9 +13,6 @@
 //! [`input`] (CSV parsers) → [`spectrum`] and [`reference`] (validated model)
 //! → [`preprocess`] (range, interpolation, baseline) → [`solver`] (NNLS) →
 //! [`fit`] (results and flags) → [`output`] (table, CSV, JSON).
-#![deny(clippy::float_cmp)]
-// Index loops read like the formulas they implement in the numeric code.
-#![allow(clippy::needless_range_loop)]
 #![warn(missing_docs)]
 
 pub mod atomic;

@@ -141,9 +141,9 @@ pub fn design(
             describe()
         )));
     }
-    if n <= p {
+    if n < p {
         return Err(Error::NoOverlap(format!(
-            "{n} wavelength(s) in common ({}) for {p} unknowns ({} component(s) and {} baseline term(s)): expected more wavelengths than unknowns; {}",
+            "{n} wavelength(s) in common ({}) for {p} unknowns ({} component(s) and {} baseline term(s)): expected at least as many wavelengths as unknowns (--baseline none removes the baseline unknowns); {}",
             fmt_range((w[start], w[end - 1])),
             refs.components.len(),
             baseline.n_terms(),
@@ -234,9 +234,11 @@ mod tests {
             components: vec![comp("a", 400.0, 600.0)],
         };
         let grid = Grid::new(vec![450.0, 500.0]).unwrap();
+        assert!(design(&grid, &refs, Baseline::Offset, None).is_ok());
         let e = design(&grid, &refs, Baseline::Linear, None).unwrap_err();
         assert!(
-            e.to_string().contains("more wavelengths than unknowns"),
+            e.to_string()
+                .contains("at least as many wavelengths as unknowns"),
             "{e}"
         );
     }

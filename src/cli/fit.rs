@@ -1,11 +1,11 @@
 //! `unblend fit`: fit spectra against reference components.
 
 use super::{Failure, exit, library_dir, parse_positive, parse_range_nm};
-use crate::fit::{FitOptions, FitReport};
-use crate::input::spectra::{self, Quantity, ReadOptions};
+use crate::fit::{FitOptions, FitReport, Outcome, StreamError, fit_stream};
+use crate::input::spectra::{self, Opened, Quantity, ReadOptions, WideStream};
 use crate::output::{self, Format};
 use crate::preprocess::Baseline;
-use crate::reference::Library;
+use crate::reference::{Library, ReferenceSet};
 use clap::ValueEnum;
 use std::io::{Read, Write};
 use std::path::PathBuf;
@@ -123,25 +123,153 @@ impl TryFrom<&Args> for FitOptions {
 /// Run `unblend fit`.
 pub fn run(args: Args) -> Result<u8, Failure> {
     let options = FitOptions::try_from(&args)?;
+    let format: Format = args.format.into();
     let shown = if args.input.as_os_str() == "-" {
         "standard input".to_string()
     } else {
         args.input.display().to_string()
     };
-    let bytes = read_input(&args.input)?;
-    let file = spectra::read(
-        &bytes,
-        ReadOptions {
-            quantity: args.quantity.into(),
-        },
-    )
-    .map_err(|e| Failure::new(format!("{shown}: {e}")))?;
     let dir = library_dir(args.library.clone());
     let library = Library::open(&dir)?;
     let refs = library.select(&args.components)?;
-    let report = crate::fit::fit_file(&file, &refs, &options)?;
-    emit(&report, args.format.into(), args.out.as_deref())?;
-    Ok(exit_code(&report))
+    let reader: Box<dyn Read + Send> = if args.input.as_os_str() == "-" {
+        Box::new(std::io::stdin())
+    } else {
+        Box::new(
+            std::fs::File::open(&args.input).map_err(|e| Failure::new(format!("{shown}: {e}")))?,
+        )
+    };
+    let ctx = |e: crate::Error| Failure::new(format!("{shown}: {e}"));
+    let read_options = ReadOptions {
+        quantity: args.quantity.into(),
+    };
+    match spectra::open(reader, read_options).map_err(ctx)? {
+        Opened::Long(file) => {
+            let report = crate::fit::fit_file(&file, &refs, &options).map_err(ctx)?;
+            emit(&report, format, args.out.as_deref())?;
+            Ok(exit_code(&report))
+        }
+        Opened::Wide(mut stream) if format == Format::Csv => {
+            stream_csv(&mut stream, &refs, &options, args.out.as_deref(), &shown)
+        }
+        Opened::Wide(mut stream) => {
+            let mut outcomes = Vec::new();
+            let warnings = fit_stream(&mut stream, &refs, &options, |chunk| {
+                outcomes.extend(chunk);
+                Ok::<(), ()>(())
+            })
+            .map_err(|e| match e {
+                StreamError::Engine(e) => ctx(e),
+                StreamError::Sink(()) => Failure::new("internal: result collection failed"),
+            })?;
+            let report = FitReport {
+                outcomes,
+                warnings,
+                component_names: refs.names().iter().map(|s| s.to_string()).collect(),
+            };
+            emit(&report, format, args.out.as_deref())?;
+            Ok(exit_code(&report))
+        }
+    }
+}
+
+/// Fit a wide file chunk by chunk and write tidy CSV as it goes, so memory
+/// stays bounded for any number of spectra.
+fn stream_csv<R: Read + Send>(
+    stream: &mut WideStream<R>,
+    refs: &ReferenceSet,
+    options: &FitOptions,
+    out: Option<&std::path::Path>,
+    shown: &str,
+) -> Result<u8, Failure> {
+    let mut total = 0usize;
+    let mut failed = 0usize;
+    let mut engine_error: Option<crate::Error> = None;
+    let mut warnings = Vec::new();
+    let mut body = |w: &mut (dyn Write + Send)| -> std::io::Result<()> {
+        writeln!(w, "{}", output::CSV_HEADER)?;
+        // Formatting runs here (in parallel); a writer thread does the I/O
+        // so the next chunk's fit overlaps this chunk's write.
+        std::thread::scope(|scope| {
+            let (tx, rx) = std::sync::mpsc::sync_channel::<String>(2);
+            let writer = scope.spawn(move || -> std::io::Result<()> {
+                for text in rx {
+                    w.write_all(text.as_bytes())?;
+                }
+                Ok(())
+            });
+            let r = fit_stream(stream, refs, options, |chunk: Vec<Outcome>| {
+                total += chunk.len();
+                failed += chunk
+                    .iter()
+                    .filter(|o| matches!(o, Outcome::Failed(_)))
+                    .count();
+                tx.send(output::csv_rows_parallel(&chunk))
+                    .map_err(|_| std::io::Error::other("the output writer stopped"))
+            });
+            drop(tx);
+            let written = writer
+                .join()
+                .unwrap_or_else(|_| Err(std::io::Error::other("the output writer failed")));
+            match r {
+                Ok(ws) => {
+                    warnings = ws;
+                    written
+                }
+                // The writer's own error says more than "it stopped".
+                Err(StreamError::Sink(e)) => written.and(Err(e)),
+                Err(StreamError::Engine(e)) => {
+                    engine_error = Some(e);
+                    Err(std::io::Error::other("stopped"))
+                }
+            }
+        })
+    };
+    let result = match out {
+        Some(path) => crate::atomic::write_with(path, false, &mut body).map_err(Failure::from),
+        None => {
+            let mut lock = std::io::BufWriter::with_capacity(1 << 20, std::io::stdout());
+            match body(&mut lock).and_then(|_| lock.flush()) {
+                Ok(()) => Ok(()),
+                Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => Ok(()),
+                Err(e) => Err(Failure::new(format!("standard output: {e}"))),
+            }
+        }
+    };
+    if let Some(e) = engine_error {
+        return Err(Failure::new(format!("{shown}: {e}")));
+    }
+    result?;
+    for w in &warnings {
+        eprintln!("unblend: warning: {w}");
+    }
+    if let Some(path) = out {
+        eprintln!("{}", summary(total, failed, path));
+    }
+    Ok(code_for(total, failed))
+}
+
+fn summary(total: usize, failed: usize, path: &std::path::Path) -> String {
+    format!(
+        "unblend: wrote {} of {total} samples to {}{}",
+        total - failed,
+        path.display(),
+        if failed > 0 {
+            format!(" ({failed} not fitted, listed in the file)")
+        } else {
+            String::new()
+        }
+    )
+}
+
+fn code_for(total: usize, failed: usize) -> u8 {
+    if failed == 0 {
+        exit::OK
+    } else if failed == total {
+        exit::FAILED
+    } else {
+        exit::PARTIAL
+    }
 }
 
 /// Read a file, or standard input for `-`.
@@ -170,16 +298,9 @@ pub fn emit(
     match out {
         Some(path) => {
             crate::atomic::write_with(path, false, |w| output::write(report, format, w))?;
-            let n = report.outcomes.len();
             eprintln!(
-                "unblend: wrote {} of {n} samples to {}{}",
-                n - report.n_failed(),
-                path.display(),
-                if report.n_failed() > 0 {
-                    format!(" ({} not fitted, listed in the file)", report.n_failed())
-                } else {
-                    String::new()
-                }
+                "{}",
+                summary(report.outcomes.len(), report.n_failed(), path)
             );
         }
         None => {
@@ -198,12 +319,5 @@ pub fn emit(
 
 /// The exit code a report deserves.
 pub fn exit_code(report: &FitReport) -> u8 {
-    let failed = report.n_failed();
-    if failed == 0 {
-        exit::OK
-    } else if failed == report.outcomes.len() {
-        exit::FAILED
-    } else {
-        exit::PARTIAL
-    }
+    code_for(report.outcomes.len(), report.n_failed())
 }

@@ -15,6 +15,7 @@ use crate::error::{Error, Result};
 use crate::spectrum::{self, Grid};
 use rayon::prelude::*;
 use std::collections::HashMap;
+use std::io::Read;
 use std::sync::Arc;
 
 /// What the numbers in the file measure; converted to decadic absorbance on
@@ -138,40 +139,340 @@ pub struct SpectraFile {
     pub n_samples: usize,
 }
 
-/// Read a spectra file from its bytes.
+/// Read a whole spectra file from its bytes (both layouts).
 pub fn read(bytes: &[u8], options: ReadOptions) -> Result<SpectraFile> {
-    let bytes = fields::strip_bom(bytes);
-    let mut header = None;
-    for (number, line) in fields::lines(bytes) {
-        let delim = Delimiter::detect(line);
-        if !fields::is_skippable(line, delim.byte()) {
-            header = Some((number, line, delim));
-            break;
+    match open(bytes, options)? {
+        Opened::Long(file) => Ok(file),
+        Opened::Wide(mut stream) => {
+            let grid = stream.grid().clone();
+            let delimiter = stream.header.delimiter;
+            let mut block = Block {
+                grid,
+                ids: Vec::new(),
+                positions: Vec::new(),
+                absorbance_au: Vec::new(),
+            };
+            let mut failures = Vec::new();
+            while let Some(chunk) = stream.next_chunk()? {
+                block.ids.extend(chunk.block.ids);
+                block.positions.extend(chunk.block.positions);
+                block
+                    .absorbance_au
+                    .extend_from_slice(&chunk.block.absorbance_au);
+                failures.extend(chunk.failures);
+            }
+            let n_samples = stream.rows_read();
+            Ok(SpectraFile {
+                layout: Layout::Wide,
+                delimiter,
+                blocks: if block.is_empty() {
+                    Vec::new()
+                } else {
+                    vec![block]
+                },
+                failures,
+                n_samples,
+            })
         }
     }
-    let Some((header_line, header_bytes, delimiter)) = header else {
-        return Err(Error::Empty);
+}
+
+/// A spectra file opened for reading: a wide file streams in chunks; a
+/// long file (whose samples may be spread over the file) is read whole.
+pub enum Opened<R: Read> {
+    /// Wide layout, read chunk by chunk.
+    Wide(WideStream<R>),
+    /// Long layout, read completely.
+    Long(SpectraFile),
+}
+
+/// Lines per chunk of a wide stream. Fixed (not tied to byte counts or
+/// threads), so chunking never depends on the machine.
+pub const LINES_PER_CHUNK: usize = 8192;
+
+/// What the header of a wide file says.
+#[derive(Debug, Clone)]
+pub struct WideHeader {
+    /// The wavelength grid (ascending).
+    pub grid: Arc<Grid>,
+    /// Whether the file's wavelengths run descending (values are reversed).
+    pub reversed: bool,
+    /// Fields per row: the sample name and one per wavelength.
+    pub n_fields: usize,
+    /// The delimiter.
+    pub delimiter: Delimiter,
+    /// The header's line number.
+    pub header_line: usize,
+}
+
+/// One chunk of a wide stream.
+#[derive(Debug)]
+pub struct Chunk {
+    /// The spectra read (positions count from the start of the file).
+    pub block: Block,
+    /// Rows that could not be read.
+    pub failures: Vec<RowFailure>,
+}
+
+/// A wide-layout file read in chunks of [`LINES_PER_CHUNK`] lines, so memory
+/// stays bounded however long the file is. Rows are parsed in parallel.
+pub struct WideStream<R: Read> {
+    reader: R,
+    /// The header.
+    pub header: WideHeader,
+    options: ReadOptions,
+    buf: Vec<u8>,
+    start: usize,
+    eof: bool,
+    next_line: usize,
+    rows: usize,
+    spare: Vec<f64>,
+}
+
+const READ_SIZE: usize = 1 << 20;
+
+/// Read more bytes into `buf`; returns false at end of input.
+fn fill<R: Read>(reader: &mut R, buf: &mut Vec<u8>) -> Result<bool> {
+    let old = buf.len();
+    buf.resize(old + READ_SIZE, 0);
+    loop {
+        match reader.read(&mut buf[old..]) {
+            Ok(n) => {
+                buf.truncate(old + n);
+                return Ok(n > 0);
+            }
+            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => continue,
+            Err(e) => {
+                buf.truncate(old);
+                return Err(Error::io("input", e));
+            }
+        }
+    }
+}
+
+/// Open a spectra file: read up to its header, detect delimiter and layout.
+pub fn open<R: Read>(mut reader: R, options: ReadOptions) -> Result<Opened<R>> {
+    let mut buf = Vec::new();
+    let mut eof = false;
+    let mut pos = 0usize; // start of the line being examined
+    let mut line_no = 0usize;
+    let mut bom_checked = false;
+    let (header_line, header_end, body_start, delimiter) = loop {
+        if !bom_checked && (buf.len() >= 3 || eof) {
+            if buf.starts_with(b"\xEF\xBB\xBF") {
+                pos = 3;
+            }
+            bom_checked = true;
+        }
+        if bom_checked {
+            if let Some(i) = memchr::memchr(b'\n', &buf[pos..]) {
+                line_no += 1;
+                let line = &buf[pos..pos + i];
+                let line = line.strip_suffix(b"\r").unwrap_or(line);
+                let d = Delimiter::detect(line);
+                if !fields::is_skippable(line, d.byte()) {
+                    break (line_no, pos + line.len(), pos + i + 1, d);
+                }
+                pos += i + 1;
+                continue;
+            }
+            if eof {
+                let line = &buf[pos..];
+                let line = line.strip_suffix(b"\r").unwrap_or(line);
+                let d = Delimiter::detect(line);
+                if line.is_empty() || fields::is_skippable(line, d.byte()) {
+                    return Err(Error::Empty);
+                }
+                line_no += 1;
+                break (line_no, pos + line.len(), buf.len(), d);
+            }
+        }
+        if !fill(&mut reader, &mut buf)? {
+            eof = true;
+        }
     };
-    // The body starts after the newline that ends the header line.
-    let offset = header_bytes.as_ptr() as usize - bytes.as_ptr() as usize + header_bytes.len();
-    let body = match memchr::memchr(b'\n', &bytes[offset..]) {
-        Some(i) => &bytes[offset + i + 1..],
-        None => &bytes[bytes.len()..],
-    };
+    let header_bytes = &buf[pos..header_end];
     let mut raw = Vec::new();
     fields::split(header_bytes, delimiter.byte(), &mut raw);
     fields::trim_trailing_empty(&mut raw);
     let names: Vec<String> = raw.iter().map(|f| fields::text(f).into_owned()).collect();
     match classify_header(&names, header_line, delimiter)? {
-        HeaderKind::Wide(wavelengths) => read_wide(
-            body,
-            header_line,
-            delimiter,
-            wavelengths,
-            names.len(),
-            options,
-        ),
-        HeaderKind::Long => read_long(body, header_line, delimiter, options),
+        HeaderKind::Wide(wavelengths) => {
+            let (ascending, reversed) = spectrum::ascending(wavelengths);
+            let grid = Arc::new(
+                Grid::new(ascending)
+                    .map_err(|e| Error::structure(header_line, format!("header: {e}")))?,
+            );
+            let mut stream = WideStream {
+                reader,
+                header: WideHeader {
+                    grid,
+                    reversed,
+                    n_fields: names.len(),
+                    delimiter,
+                    header_line,
+                },
+                options,
+                buf,
+                start: body_start,
+                eof,
+                next_line: header_line + 1,
+                rows: 0,
+                spare: Vec::new(),
+            };
+            if !stream.has_rows()? {
+                return Err(Error::structure(
+                    header_line,
+                    "the header is the only line: expected at least one spectrum row after it",
+                ));
+            }
+            Ok(Opened::Wide(stream))
+        }
+        HeaderKind::Long => {
+            let mut rest = buf.split_off(body_start);
+            if !eof {
+                reader
+                    .read_to_end(&mut rest)
+                    .map_err(|e| Error::io("input", e))?;
+            }
+            Ok(Opened::Long(read_long(
+                &rest,
+                header_line,
+                delimiter,
+                options,
+            )?))
+        }
+    }
+}
+
+impl<R: Read> WideStream<R> {
+    /// The wavelength grid every row shares.
+    pub fn grid(&self) -> &Arc<Grid> {
+        &self.header.grid
+    }
+
+    /// Number of data rows read so far (good and failed).
+    pub fn rows_read(&self) -> usize {
+        self.rows
+    }
+
+    /// Hand back a block's storage for reuse by the next chunk.
+    pub fn recycle(&mut self, block: Block) {
+        self.spare = block.absorbance_au;
+    }
+
+    /// Whether any data line follows (reads ahead as needed).
+    fn has_rows(&mut self) -> Result<bool> {
+        loop {
+            let delim = self.header.delimiter.byte();
+            let rest = &self.buf[self.start..];
+            let mut offset = 0;
+            for i in memchr::memchr_iter(b'\n', rest) {
+                if !fields::is_skippable(&rest[offset..i], delim) {
+                    return Ok(true);
+                }
+                offset = i + 1;
+            }
+            if self.eof {
+                return Ok(!fields::is_skippable(&rest[offset..], delim));
+            }
+            if !fill(&mut self.reader, &mut self.buf)? {
+                self.eof = true;
+            }
+        }
+    }
+
+    /// Read the next chunk of up to [`LINES_PER_CHUNK`] lines; `None` at the
+    /// end of the file.
+    pub fn next_chunk(&mut self) -> Result<Option<Chunk>> {
+        // Drop consumed bytes, then read until the chunk's lines are complete.
+        if self.start > 0 {
+            self.buf.drain(..self.start);
+            self.start = 0;
+        }
+        let mut newlines = memchr::memchr_iter(b'\n', &self.buf).count();
+        while newlines < LINES_PER_CHUNK && !self.eof {
+            let old = self.buf.len();
+            if fill(&mut self.reader, &mut self.buf)? {
+                newlines += memchr::memchr_iter(b'\n', &self.buf[old..]).count();
+            } else {
+                self.eof = true;
+            }
+        }
+        if self.buf.is_empty() {
+            return Ok(None);
+        }
+        let end = if newlines >= LINES_PER_CHUNK {
+            memchr::memchr_iter(b'\n', &self.buf)
+                .nth(LINES_PER_CHUNK - 1)
+                .map_or(self.buf.len(), |i| i + 1)
+        } else {
+            self.buf.len()
+        };
+        let delim = self.header.delimiter.byte();
+        let first_line = self.next_line;
+        let mut lines: Vec<(usize, &[u8])> = Vec::with_capacity(LINES_PER_CHUNK);
+        let mut count = 0;
+        for (n, line) in fields::lines(&self.buf[..end]) {
+            count = n;
+            if !fields::is_skippable(line, delim) {
+                lines.push((first_line + n - 1, line));
+            }
+        }
+        self.next_line += count;
+        self.start = end;
+        let n = self.header.grid.len();
+        let mut values = std::mem::take(&mut self.spare);
+        values.clear();
+        values.resize(lines.len() * n, 0.0);
+        let header = &self.header;
+        let options = self.options;
+        let parsed: Vec<std::result::Result<String, (String, Error)>> = values
+            .par_chunks_mut(n)
+            .zip(lines.par_iter())
+            .with_min_len(64)
+            .map_init(Vec::new, |scratch, (dst, &(line_no, line))| {
+                parse_wide_row(line, line_no, header, options, dst, scratch)
+            })
+            .collect();
+        let base = self.rows;
+        self.rows += parsed.len();
+        let mut ids = Vec::with_capacity(parsed.len());
+        let mut positions = Vec::with_capacity(parsed.len());
+        let mut failures = Vec::new();
+        let mut kept = 0;
+        for (i, row) in parsed.into_iter().enumerate() {
+            match row {
+                Ok(id) => {
+                    if kept != i {
+                        values.copy_within(i * n..(i + 1) * n, kept * n);
+                    }
+                    kept += 1;
+                    ids.push(id);
+                    positions.push(base + i);
+                }
+                Err((sample, error)) => failures.push(RowFailure {
+                    position: base + i,
+                    sample,
+                    error,
+                }),
+            }
+        }
+        values.truncate(kept * n);
+        if lines.is_empty() && self.eof && self.start >= self.buf.len() {
+            self.buf.clear();
+            self.start = 0;
+            return Ok(None);
+        }
+        Ok(Some(Chunk {
+            block: Block {
+                grid: self.header.grid.clone(),
+                ids,
+                positions,
+                absorbance_au: values,
+            },
+            failures,
+        }))
     }
 }
 
@@ -249,139 +550,158 @@ fn classify_header(names: &[String], line: usize, delimiter: Delimiter) -> Resul
     Ok(HeaderKind::Wide(wavelengths))
 }
 
-fn read_wide(
-    body: &[u8],
-    header_line: usize,
-    delimiter: Delimiter,
-    wavelengths: Vec<f64>,
-    n_fields: usize,
-    options: ReadOptions,
-) -> Result<SpectraFile> {
-    let (ascending, reversed) = spectrum::ascending(wavelengths);
-    let grid = Arc::new(
-        Grid::new(ascending).map_err(|e| Error::structure(header_line, format!("header: {e}")))?,
-    );
-    // Collect the data lines with their numbers, then parse them in parallel.
-    let delim = delimiter.byte();
-    let rows: Vec<(usize, &[u8])> = fields::lines(body)
-        .map(|(n, l)| (n + header_line, l))
-        .filter(|(_, l)| !fields::is_skippable(l, delim))
-        .collect();
-    if rows.is_empty() {
-        return Err(Error::structure(
-            header_line,
-            "the header is the only line: expected at least one spectrum row after it",
-        ));
+/// Powers of ten exactly representable as f64.
+const POW10: [f64; 23] = [
+    1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11, 1e12, 1e13, 1e14, 1e15, 1e16,
+    1e17, 1e18, 1e19, 1e20, 1e21, 1e22,
+];
+
+/// Fast path for a plain decimal (`-12.345`) starting at `pos` and ending at
+/// the delimiter or the end of the line. Returns the value and the index
+/// after it, or `None` for anything else (exponent, spaces, quotes, many
+/// digits), which the general path then reads. The result is exact: an
+/// integer below 2⁵³ divided by an exact power of ten is correctly rounded
+/// (Clinger, PLDI 1990).
+#[inline]
+fn fast_decimal(line: &[u8], mut i: usize, delim: u8, decimal_comma: bool) -> Option<(f64, usize)> {
+    let len = line.len();
+    let neg = i < len && line[i] == b'-';
+    if i < len && (line[i] == b'-' || line[i] == b'+') {
+        i += 1;
     }
-    let n = grid.len();
-    let parsed: Vec<RowResult> = rows
-        .par_iter()
-        .with_min_len(256)
-        .map_init(Vec::new, |scratch, &(line_no, line)| {
-            parse_wide_row(
-                line,
-                line_no,
-                delim,
-                delimiter.allows_decimal_comma(),
-                n,
-                n_fields,
-                reversed,
-                options,
-                scratch,
-            )
-        })
-        .collect();
-    let mut ids = Vec::with_capacity(parsed.len());
-    let mut positions = Vec::with_capacity(parsed.len());
-    let mut values = Vec::with_capacity(parsed.len() * n);
-    let mut failures = Vec::new();
-    let total = parsed.len();
-    for (position, row) in parsed.into_iter().enumerate() {
-        match row {
-            Ok((id, v)) => {
-                ids.push(id);
-                positions.push(position);
-                values.extend_from_slice(&v);
+    let mut mant: u64 = 0;
+    let mut digits = 0u32;
+    let mut frac = 0usize;
+    let mut point = false;
+    while i < len {
+        let b = line[i];
+        if b.is_ascii_digit() {
+            if digits >= 18 {
+                return None;
             }
-            Err((sample, error)) => failures.push(RowFailure {
-                position,
-                sample,
-                error,
-            }),
+            mant = mant * 10 + u64::from(b - b'0');
+            digits += 1;
+            if point {
+                frac += 1;
+            }
+        } else if !point && (b == b'.' || (decimal_comma && b == b',')) {
+            point = true;
+        } else {
+            break;
         }
+        i += 1;
     }
-    let blocks = if ids.is_empty() {
-        Vec::new()
-    } else {
-        vec![Block {
-            grid,
-            ids,
-            positions,
-            absorbance_au: values,
-        }]
-    };
-    Ok(SpectraFile {
-        layout: Layout::Wide,
-        delimiter,
-        blocks,
-        failures,
-        n_samples: total,
-    })
+    if digits == 0 || (i < len && line[i] != delim) || frac > 22 {
+        return None;
+    }
+    let v = mant as f64 / POW10[frac];
+    Some((if neg { -v } else { v }, i))
 }
 
-/// A parsed wide row: the sample and its values, or the sample and why not.
-type RowResult = std::result::Result<(String, Vec<f64>), (String, Error)>;
+/// Read a row's values with the fast path; `None` if any field needs the
+/// general parser. Returns the end of the sample-name field.
+fn fast_row(line: &[u8], delim: u8, decimal_comma: bool, dst: &mut [f64]) -> Option<usize> {
+    let id_end = memchr::memchr(delim, line)?;
+    if line[..id_end].contains(&b'"') {
+        return None;
+    }
+    let n = dst.len();
+    let mut pos = id_end + 1;
+    for (k, slot) in dst.iter_mut().enumerate() {
+        let (v, next) = fast_decimal(line, pos, delim, decimal_comma)?;
+        *slot = v;
+        if k + 1 < n {
+            if next >= line.len() {
+                return None;
+            }
+            pos = next + 1;
+        } else if next < line.len()
+            && !line[next..]
+                .iter()
+                .all(|&b| b == delim || b == b' ' || b == b'\t')
+        {
+            return None;
+        }
+    }
+    Some(id_end)
+}
 
-#[allow(clippy::too_many_arguments)]
+/// Parse one wide row into `dst` (one value per wavelength, ascending).
+/// Returns the sample name, or the sample name and what is wrong.
 fn parse_wide_row<'a>(
     line: &'a [u8],
     line_no: usize,
-    delim: u8,
-    decimal_comma: bool,
-    n: usize,
-    n_fields: usize,
-    reversed: bool,
+    header: &WideHeader,
     options: ReadOptions,
+    dst: &mut [f64],
     scratch: &mut Vec<&'a [u8]>,
-) -> RowResult {
-    fields::split(line, delim, scratch);
-    fields::trim_trailing_empty(scratch);
-    let id = fields::text(scratch[0]).into_owned();
-    let id_or_line = if id.is_empty() {
-        format!("(line {line_no})")
-    } else {
-        id.clone()
+) -> std::result::Result<String, (String, Error)> {
+    let delim = header.delimiter.byte();
+    let decimal_comma = header.delimiter.allows_decimal_comma();
+    let n = dst.len();
+    let n_fields = header.n_fields;
+    let id = match fast_row(line, delim, decimal_comma, dst) {
+        Some(id_end) => {
+            let id = fields::text(&line[..id_end]).into_owned();
+            if id.is_empty() {
+                return Err((
+                    format!("(line {line_no})"),
+                    Error::parse(line_no, 1, b"", "a sample name in the first column"),
+                ));
+            }
+            if !matches!(options.quantity, Quantity::Absorbance) {
+                for (k, v) in dst.iter_mut().enumerate() {
+                    match options.quantity.to_absorbance(*v) {
+                        Ok(a) => *v = a,
+                        Err(expected) => {
+                            // Find the field again for the message.
+                            fields::split(line, delim, scratch);
+                            let raw = scratch.get(k + 1).copied().unwrap_or(b"");
+                            return Err((id, Error::parse(line_no, k + 2, raw, expected)));
+                        }
+                    }
+                }
+            }
+            id
+        }
+        None => {
+            fields::split(line, delim, scratch);
+            fields::trim_trailing_empty(scratch);
+            let id = fields::text(scratch[0]).into_owned();
+            if id.is_empty() {
+                return Err((
+                    format!("(line {line_no})"),
+                    Error::parse(line_no, 1, b"", "a sample name in the first column"),
+                ));
+            }
+            if scratch.len() != n_fields {
+                return Err((
+                    id,
+                    Error::structure(
+                        line_no,
+                        format!(
+                            "{} fields but the header has {n_fields}: expected a sample name and {n} values",
+                            scratch.len()
+                        ),
+                    ),
+                ));
+            }
+            for (col, field) in scratch[1..].iter().enumerate() {
+                let v = fields::number(field, decimal_comma)
+                    .map_err(|e| e.expected(options.quantity.noun()))
+                    .and_then(|v| options.quantity.to_absorbance(v).map_err(str::to_string))
+                    .map_err(|expected| {
+                        (id.clone(), Error::parse(line_no, col + 2, field, expected))
+                    })?;
+                dst[col] = v;
+            }
+            id
+        }
     };
-    if id.is_empty() {
-        return Err((
-            id_or_line,
-            Error::parse(line_no, 1, b"", "a sample name in the first column"),
-        ));
+    if header.reversed {
+        dst.reverse();
     }
-    if scratch.len() != n_fields {
-        return Err((
-            id_or_line,
-            Error::structure(
-                line_no,
-                format!(
-                    "{} fields but the header has {n_fields}: expected a sample name and {n} values",
-                    scratch.len()
-                ),
-            ),
-        ));
-    }
-    let mut values = Vec::with_capacity(n);
-    for (col, field) in scratch[1..].iter().enumerate() {
-        let v = fields::number(field, decimal_comma)
-            .map_err(|e| e.expected(options.quantity.noun()))
-            .and_then(|v| options.quantity.to_absorbance(v).map_err(str::to_string))
-            .map_err(|expected| (id.clone(), Error::parse(line_no, col + 2, field, expected)))?;
-        values.push(v);
-    }
-    if reversed {
-        values.reverse();
-    }
-    Ok((id, values))
+    Ok(id)
 }
 
 fn read_long(
@@ -605,6 +925,36 @@ mod tests {
         assert!((f.blocks[0].row(0)[0] - 1.0).abs() < 1e-12);
         let f = read("sample,400\ns,0\n".as_bytes(), opts).unwrap();
         assert!(f.failures[0].error.to_string().contains("above 0"));
+    }
+
+    #[test]
+    fn fast_and_general_number_paths_agree() {
+        // Plain decimals take the fast path; the others fall back to the
+        // general parser (fast-float2); both must give the same values.
+        let f = read_str(
+            "sample,400,500,600,700\ns1,0.125,-0.5,+.25,3.\ns2,1e-3, 0.5 ,\"0.75\",-2E-1\n",
+        )
+        .unwrap();
+        assert_eq!(f.blocks[0].row(0), &[0.125, -0.5, 0.25, 3.0]);
+        assert_eq!(f.blocks[0].row(1), &[1e-3, 0.5, 0.75, -0.2]);
+        let digits = "0.1234567890123456789";
+        let g = read_str(&format!("sample,400\ns,{digits}\n")).unwrap();
+        assert_eq!(
+            g.blocks[0].row(0)[0].to_bits(),
+            digits.parse::<f64>().unwrap().to_bits()
+        );
+    }
+
+    #[test]
+    fn trailing_delimiters_and_extra_fields_are_told_apart() {
+        let f = read_str("sample,400,500,,\ns1,0.1,0.2,,\ns2,0.1,0.2,0.3\n").unwrap();
+        assert_eq!(f.blocks[0].ids, vec!["s1"]);
+        assert!(
+            f.failures[0]
+                .error
+                .to_string()
+                .contains("4 fields but the header has 3")
+        );
     }
 
     #[test]

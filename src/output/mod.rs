@@ -121,7 +121,7 @@ fn csv_rows(o: &Outcome, out: &mut String) {
                 out.push(',');
                 num(out, c.concentration_mol_per_l);
                 out.push(',');
-                num(out, c.std_error_mol_per_l);
+                opt(out, c.std_error_mol_per_l);
                 out.push(',');
                 opt(out, c.concentration_mg_per_l);
                 out.push(',');
@@ -160,8 +160,12 @@ fn csv_rows(o: &Outcome, out: &mut String) {
 /// with only its name and the `error` column.
 pub fn write_csv(report: &FitReport, w: &mut dyn Write) -> io::Result<()> {
     writeln!(w, "{CSV_HEADER}")?;
-    let parts: Vec<String> = report
-        .outcomes
+    w.write_all(csv_rows_parallel(&report.outcomes).as_bytes())
+}
+
+/// The CSV rows (no header) of some outcomes, formatted in parallel.
+pub fn csv_rows_parallel(outcomes: &[Outcome]) -> String {
+    let parts: Vec<String> = outcomes
         .par_chunks(1024)
         .map(|chunk| {
             let mut s = String::with_capacity(chunk.len() * 400);
@@ -171,10 +175,7 @@ pub fn write_csv(report: &FitReport, w: &mut dyn Write) -> io::Result<()> {
             s
         })
         .collect();
-    for p in parts {
-        w.write_all(p.as_bytes())?;
-    }
-    Ok(())
+    parts.concat()
 }
 
 /// A concentration unit for display.
@@ -242,11 +243,14 @@ pub fn write_table(report: &FitReport, w: &mut dyn Write) -> io::Result<()> {
             Outcome::Fitted(s) => {
                 let mut row = vec![s.sample.clone()];
                 for c in &s.components {
-                    row.push(format!(
-                        "{:.3} ± {:.3}",
-                        c.concentration_mol_per_l * unit.factor,
-                        c.std_error_mol_per_l * unit.factor
-                    ));
+                    row.push(match c.std_error_mol_per_l {
+                        Some(se) => format!(
+                            "{:.3} ± {:.3}",
+                            c.concentration_mol_per_l * unit.factor,
+                            se * unit.factor
+                        ),
+                        None => format!("{:.3} ± ?", c.concentration_mol_per_l * unit.factor),
+                    });
                 }
                 row.push(format!("{:.2}", s.residual_rms * 1000.0));
                 row.push(s.r_squared.map_or("-".into(), |r| format!("{r:.5}")));

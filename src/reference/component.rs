@@ -281,6 +281,55 @@ pub fn validate_name(name: &str) -> Result<()> {
 }
 
 impl Component {
+    /// A component from a curve alone (no provenance beyond `source_kind`),
+    /// validated like a file: name, ascending finite wavelengths, ε ≥ 0 and
+    /// not all zero.
+    pub fn from_curve(
+        name: &str,
+        wavelengths_nm: Vec<f64>,
+        epsilon_l_per_mol_cm: Vec<f64>,
+        source_kind: &str,
+    ) -> Result<Self> {
+        validate_name(name)?;
+        if wavelengths_nm.len() != epsilon_l_per_mol_cm.len() {
+            return Err(Error::Invalid(format!(
+                "component '{name}': {} wavelengths but {} ε values",
+                wavelengths_nm.len(),
+                epsilon_l_per_mol_cm.len()
+            )));
+        }
+        if epsilon_l_per_mol_cm
+            .iter()
+            .any(|e| !e.is_finite() || *e < 0.0)
+        {
+            return Err(Error::Invalid(format!(
+                "component '{name}': ε must be finite and ≥ 0"
+            )));
+        }
+        if epsilon_l_per_mol_cm.iter().all(|e| *e <= 0.0) {
+            return Err(Error::Invalid(format!(
+                "component '{name}': every ε value is zero: a reference must absorb somewhere"
+            )));
+        }
+        let grid = Grid::new(wavelengths_nm)?;
+        Ok(Component {
+            name: name.to_string(),
+            molar_mass_g_per_mol: None,
+            note: None,
+            created: crate::dates::today_utc(),
+            conditions: Conditions::default(),
+            source: Source {
+                kind: source_kind.to_string(),
+                file: None,
+                sha256: None,
+            },
+            grid,
+            epsilon_l_per_mol_cm,
+            epsilon_std_error_l_per_mol_cm: None,
+            extra: toml::Table::new(),
+        })
+    }
+
     /// Read a component from the text of its file. `path` is used in messages.
     pub fn from_toml(text: &str, path: &str) -> Result<Self> {
         let bad = |message: String| Error::ComponentFile {

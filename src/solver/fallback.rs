@@ -7,7 +7,7 @@
 //! The crate panics on empty or degenerate input, so inputs are checked
 //! first and the call runs under `catch_unwind`.
 
-use super::{Prepared, Status};
+use super::Status;
 use crate::error::{Error, Result};
 use nalgebra::{DMatrix, DVector};
 use ndarray::{Array1, Array2};
@@ -56,11 +56,7 @@ impl Projected {
         }
     }
 
-    pub(crate) fn solve(
-        &self,
-        _prep: &Prepared,
-        a: &[f64],
-    ) -> Result<(Vec<f64>, f64, Vec<bool>, Status)> {
+    pub(crate) fn solve(&self, a: &[f64]) -> Result<(Vec<f64>, f64, Vec<bool>, Status)> {
         let (n, p, nn) = (self.n, self.p, self.nn);
         let f = p - nn;
         let av = DVector::from_column_slice(a);

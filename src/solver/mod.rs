@@ -79,7 +79,8 @@ pub enum Status {
 pub struct Solution {
     /// Coefficients: components (≥ 0) then baseline terms.
     pub x: Vec<f64>,
-    /// Standard error of each coefficient.
+    /// Standard error of each coefficient; NaN when the fit has no degrees
+    /// of freedom left to estimate the noise from.
     pub std_error: Vec<f64>,
     /// Residual sum of squares ‖E·x − a‖².
     pub rss: f64,
@@ -87,6 +88,18 @@ pub struct Solution {
     pub n_passive: usize,
     /// How the solve ended.
     pub status: Status,
+}
+
+impl Default for Solution {
+    fn default() -> Self {
+        Solution {
+            x: Vec::new(),
+            std_error: Vec::new(),
+            rss: 0.0,
+            n_passive: 0,
+            status: Status::Converged,
+        }
+    }
 }
 
 /// A design made ready for solving many spectra.
@@ -125,9 +138,14 @@ impl Prepared {
                 columns.len()
             )));
         }
-        if n <= p {
+        if n < p {
             return Err(Error::Degenerate(format!(
-                "{n} points for {p} unknowns: expected more points than unknowns"
+                "{n} points for {p} unknowns: expected at least as many points as unknowns"
+            )));
+        }
+        if p > 60 {
+            return Err(Error::Invalid(format!(
+                "{p} columns: at most 60 components and baseline terms are supported"
             )));
         }
         if columns.iter().any(|v| !v.is_finite()) {
@@ -226,6 +244,22 @@ impl Prepared {
         })
     }
 
+    /// Use a given method regardless of the conditioning (tests compare the
+    /// two paths on the same problems).
+    pub fn with_method(mut self, method: Method) -> Self {
+        self.method = method;
+        self.fallback = match method {
+            Method::LawsonHanson => Some(fallback::Projected::new(
+                &self.columns,
+                self.n,
+                self.p,
+                self.n_nonneg,
+            )),
+            Method::NormalEquations => None,
+        };
+        self
+    }
+
     /// Condition number of the column-scaled design (2-norm).
     pub fn condition(&self) -> f64 {
         self.condition
@@ -253,6 +287,14 @@ impl Prepared {
 
     /// Solve one spectrum `a` (length [`Self::n_points`]).
     pub fn solve(&self, a: &[f64], ws: &mut Workspace) -> Result<Solution> {
+        let mut out = Solution::default();
+        self.solve_into(a, ws, &mut out)?;
+        Ok(out)
+    }
+
+    /// Solve one spectrum into `out`, reusing its storage (no allocation on
+    /// the normal-equation path once `out` and `ws` are warm).
+    pub fn solve_into(&self, a: &[f64], ws: &mut Workspace, out: &mut Solution) -> Result<()> {
         if a.len() != self.n {
             return Err(Error::Invalid(format!(
                 "spectrum has {} points, the design {}",
@@ -260,40 +302,70 @@ impl Prepared {
                 self.n
             )));
         }
-        let (xs, rss, passive, status) = match &self.fallback {
-            None => normal::solve(self, a, ws)?,
-            Some(proj) => proj.solve(self, a)?,
+        out.x.clear();
+        out.std_error.clear();
+        let (rss, n_passive, status) = match &self.fallback {
+            None => {
+                let (rss, mask, status) = normal::solve(self, a, ws)?;
+                let n_passive = mask.count_ones() as usize;
+                let sigma2 = sigma2(rss, self.n, n_passive);
+                for j in 0..self.p {
+                    out.x.push(ws.z()[j] / self.scale[j]);
+                }
+                let inv = ws.inverse_diag(self, mask)?;
+                for j in 0..self.p {
+                    let d = if mask & (1 << j) != 0 {
+                        inv[j]
+                    } else {
+                        self.full_inverse_diag[j]
+                    };
+                    out.std_error
+                        .push((sigma2 * d.max(0.0)).sqrt() / self.scale[j]);
+                }
+                (rss, n_passive, status)
+            }
+            Some(proj) => {
+                let (xs, rss, passive, status) = proj.solve(a)?;
+                let n_passive = passive.iter().filter(|&&b| b).count();
+                let sigma2 = sigma2(rss, self.n, n_passive);
+                let inv = proj.inverse_diag(&passive)?;
+                for j in 0..self.p {
+                    out.x.push(xs[j] / self.scale[j]);
+                    let d = if passive[j] {
+                        inv[j]
+                    } else {
+                        self.full_inverse_diag[j]
+                    };
+                    out.std_error
+                        .push((sigma2 * d.max(0.0)).sqrt() / self.scale[j]);
+                }
+                (rss, n_passive, status)
+            }
         };
-        let n_passive = passive.iter().filter(|&&b| b).count();
-        let dof = (self.n - n_passive).max(1) as f64;
-        let sigma2 = rss.max(0.0) / dof;
-        let inv_diag = match &self.fallback {
-            None => ws.inverse_diag(self, &passive)?,
-            Some(proj) => proj.inverse_diag(&passive)?,
-        };
-        let mut x = Vec::with_capacity(self.p);
-        let mut se = Vec::with_capacity(self.p);
-        for j in 0..self.p {
-            x.push(xs[j] / self.scale[j]);
-            let d = if passive[j] {
-                inv_diag[j]
-            } else {
-                self.full_inverse_diag[j]
-            };
-            se.push((sigma2 * d.max(0.0)).sqrt() / self.scale[j]);
-        }
-        if x.iter().chain(se.iter()).any(|v| !v.is_finite()) || !rss.is_finite() {
+        if out.x.iter().any(|v| !v.is_finite())
+            || out.std_error.iter().any(|v| v.is_infinite())
+            || !rss.is_finite()
+        {
             return Err(Error::Degenerate(
                 "the solver produced a non-finite value: the references or the spectrum are degenerate".into(),
             ));
         }
-        Ok(Solution {
-            x,
-            std_error: se,
-            rss: rss.max(0.0),
-            n_passive,
-            status,
-        })
+        out.rss = rss.max(0.0);
+        out.n_passive = n_passive;
+        out.status = status;
+        Ok(())
+    }
+}
+
+/// Residual variance σ² = RSS / (n − |P|). With no degrees of freedom left
+/// (as many points as unknowns) the residual says nothing about the noise:
+/// NaN, which callers report as an unknown standard error.
+fn sigma2(rss: f64, n: usize, n_passive: usize) -> f64 {
+    let dof = n.saturating_sub(n_passive);
+    if dof == 0 {
+        f64::NAN
+    } else {
+        rss.max(0.0) / dof as f64
     }
 }
 

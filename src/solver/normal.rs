@@ -30,6 +30,8 @@ pub struct Workspace {
     small: Vec<Option<Box<Factor>>>,
     large: HashMap<u64, Factor>,
     last_mask: Option<u64>,
+    /// The passive set `z` was last solved for.
+    z_mask: Option<u64>,
     r: Vec<f64>,
     x: Vec<f64>,
     z: Vec<f64>,
@@ -49,6 +51,7 @@ impl Workspace {
             small,
             large: HashMap::new(),
             last_mask: None,
+            z_mask: None,
             r: vec![0.0; p],
             x: vec![0.0; p],
             z: vec![0.0; p],
@@ -80,14 +83,14 @@ impl Workspace {
             .ok_or_else(|| Error::Invalid("factor cache".into()))
     }
 
-    /// Diagonal of G_PP⁻¹ for a passive set, at full indices.
-    pub(crate) fn inverse_diag(&mut self, prep: &Prepared, passive: &[bool]) -> Result<Vec<f64>> {
-        let mask = passive
-            .iter()
-            .enumerate()
-            .filter(|(_, b)| **b)
-            .fold(0u64, |m, (j, _)| m | (1 << j));
-        Ok(self.factor(prep, mask)?.inv_diag.clone())
+    /// Diagonal of G_PP⁻¹ for a passive set (bitmask), at full indices.
+    pub(crate) fn inverse_diag(&mut self, prep: &Prepared, mask: u64) -> Result<&[f64]> {
+        Ok(&self.factor(prep, mask)?.inv_diag)
+    }
+
+    /// The solution of the last solve, scaled, at full indices.
+    pub(crate) fn z(&self) -> &[f64] {
+        &self.z
     }
 }
 
@@ -155,58 +158,75 @@ fn back_solve(f: &Factor, r: &[f64], z: &mut [f64], tmp: &mut [f64]) {
     }
 }
 
-/// Dot product with four accumulators (vectorises well).
+/// Dot product with eight independent accumulators over exact chunks, a
+/// shape the compiler turns into packed SIMD multiply-adds without bounds
+/// checks.
 #[inline]
 pub(crate) fn dot(a: &[f64], b: &[f64]) -> f64 {
     let n = a.len().min(b.len());
     let (a, b) = (&a[..n], &b[..n]);
-    let mut acc = [0.0f64; 4];
-    let chunks = n / 4;
-    for c in 0..chunks {
-        let i = c * 4;
-        acc[0] += a[i] * b[i];
-        acc[1] += a[i + 1] * b[i + 1];
-        acc[2] += a[i + 2] * b[i + 2];
-        acc[3] += a[i + 3] * b[i + 3];
+    let (mut s0, mut s1, mut s2, mut s3) = (0.0f64, 0.0f64, 0.0f64, 0.0f64);
+    let (mut s4, mut s5, mut s6, mut s7) = (0.0f64, 0.0f64, 0.0f64, 0.0f64);
+    let ca = a.chunks_exact(8);
+    let cb = b.chunks_exact(8);
+    let (ra, rb) = (ca.remainder(), cb.remainder());
+    for (x, y) in ca.zip(cb) {
+        s0 += x[0] * y[0];
+        s1 += x[1] * y[1];
+        s2 += x[2] * y[2];
+        s3 += x[3] * y[3];
+        s4 += x[4] * y[4];
+        s5 += x[5] * y[5];
+        s6 += x[6] * y[6];
+        s7 += x[7] * y[7];
     }
-    let mut s = (acc[0] + acc[1]) + (acc[2] + acc[3]);
-    for i in chunks * 4..n {
-        s += a[i] * b[i];
+    let mut s = ((s0 + s4) + (s1 + s5)) + ((s2 + s6) + (s3 + s7));
+    for (x, y) in ra.iter().zip(rb) {
+        s += x * y;
     }
     s
 }
 
 fn solve_mask(prep: &Prepared, ws: &mut Workspace, mask: u64) -> Result<()> {
+    if ws.z_mask == Some(mask) {
+        return Ok(());
+    }
+    ws.z_mask = Some(mask);
     if mask == 0 {
         ws.z.iter_mut().for_each(|v| *v = 0.0);
         return Ok(());
     }
-    let mut r = std::mem::take(&mut ws.r);
     let mut z = std::mem::take(&mut ws.z);
     let mut tmp = std::mem::take(&mut ws.tmp);
-    let out = ws
-        .factor(prep, mask)
-        .map(|f| back_solve(f, &r, &mut z, &mut tmp));
-    std::mem::swap(&mut ws.r, &mut r);
-    std::mem::swap(&mut ws.z, &mut z);
-    std::mem::swap(&mut ws.tmp, &mut tmp);
+    let r = std::mem::take(&mut ws.r);
+    let out = match ws.factor(prep, mask) {
+        Ok(f) => {
+            back_solve(f, &r, &mut z, &mut tmp);
+            Ok(())
+        }
+        Err(e) => Err(e),
+    };
+    ws.z = z;
+    ws.tmp = tmp;
+    ws.r = r;
+    if out.is_err() {
+        ws.z_mask = None;
+    }
     out
 }
 
-/// Run the active-set method for one spectrum. Returns the scaled solution,
-/// RSS, the passive set and the status.
-pub(crate) fn solve(
-    prep: &Prepared,
-    a: &[f64],
-    ws: &mut Workspace,
-) -> Result<(Vec<f64>, f64, Vec<bool>, Status)> {
+/// Run the active-set method for one spectrum. Leaves the scaled solution
+/// in the workspace ([`Workspace::z`]); returns the RSS, the passive set as a
+/// bitmask and the status.
+pub(crate) fn solve(prep: &Prepared, a: &[f64], ws: &mut Workspace) -> Result<(f64, u64, Status)> {
     let (n, p, nn) = (prep.n, prep.p, prep.n_nonneg);
     for j in 0..p {
         ws.r[j] = dot(&prep.columns[j * n..(j + 1) * n], a);
     }
+    // A new right-hand side: any cached z is stale.
+    ws.z_mask = None;
     let aa = dot(a, a);
     let free_mask: u64 = (nn..p).fold(0, |m, j| m | (1 << j));
-    let nonneg_mask: u64 = (0..nn).fold(0, |m, j| m | (1 << j));
     let rmax = ws.r.iter().fold(0.0f64, |m, v| m.max(v.abs()));
     let tol = 1e-12 * rmax.max(f64::MIN_POSITIVE);
 
@@ -303,7 +323,6 @@ pub(crate) fn solve(
             ws.z[j] = 0.0;
         }
     }
-    let _ = nonneg_mask;
     ws.last_mask = Some(mask);
     let xr: f64 = (0..p).map(|j| ws.z[j] * ws.r[j]).sum();
     let mut rss = aa - xr;
@@ -313,14 +332,11 @@ pub(crate) fn solve(
         for (i, &ai) in a.iter().enumerate() {
             let mut fit = 0.0;
             for j in 0..p {
-                if ws.z[j] != 0.0 {
-                    fit += prep.columns[j * n + i] * ws.z[j];
-                }
+                fit += prep.columns[j * n + i] * ws.z[j];
             }
             s += (ai - fit) * (ai - fit);
         }
         rss = s;
     }
-    let passive: Vec<bool> = (0..p).map(|j| mask & (1 << j) != 0).collect();
-    Ok((ws.z.clone(), rss, passive, status))
+    Ok((rss, mask, status))
 }
