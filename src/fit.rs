@@ -472,7 +472,11 @@ pub fn fit_stream<R: std::io::Read + Send, E>(
 ) -> std::result::Result<Vec<String>, StreamError<E>> {
     use std::sync::mpsc;
     let model = Model::new(stream.grid(), refs, options).map_err(StreamError::Engine)?;
-    let warnings: Vec<String> = model.method_warning().into_iter().collect();
+    let warnings: Vec<String> = model
+        .method_warning()
+        .into_iter()
+        .chain(model.separability_warnings())
+        .collect();
     std::thread::scope(|scope| {
         let (tx, rx) = mpsc::sync_channel::<Result<crate::input::spectra::Chunk>>(1);
         let (back_tx, back_rx) = mpsc::channel::<Block>();

@@ -610,7 +610,45 @@ fn look_alike_references_are_flagged_collinear_by_check_and_fit() {
             .any(|w| w.starts_with("collinear-references"));
         assert_eq!(flagged, collinear, "{components}: {:?}", f.warnings);
         assert_eq!(err(&o).contains("collinear-references"), collinear);
+        // The streamed CSV path says it on stderr too.
+        let o = run(&[
+            "fit",
+            &p(&spectra),
+            "--library",
+            &d.lib(),
+            "--components",
+            components,
+            "--format",
+            "csv",
+        ]);
+        assert_eq!(o.status.code(), Some(0), "{}", err(&o));
+        assert_eq!(err(&o).contains("collinear-references"), collinear);
     }
+    // And the long layout (read whole, fitted per grid).
+    let mut long = String::from("sample,wavelength_nm,absorbance\n");
+    for &x in &w {
+        long.push_str(&format!(
+            "mix,{x},{}\n",
+            gaussian(x, 500.0, 40.0, 2e4) * 1e-5
+        ));
+    }
+    let long = d.write("mix-long.csv", &long);
+    let o = run(&[
+        "fit",
+        &p(&long),
+        "--library",
+        &d.lib(),
+        "--components",
+        "twin-a,twin-b",
+        "--format",
+        "json",
+    ]);
+    let f: FitJson = serde_json::from_str(&out(&o)).unwrap();
+    assert!(
+        f.warnings
+            .iter()
+            .any(|w| w.starts_with("collinear-references"))
+    );
 }
 
 /// Predicted and observed scatter must agree within 20 % (the issue's
