@@ -310,8 +310,8 @@ impl Model {
     ) -> Outcome {
         let d = &self.design;
         let a = &full_row[d.start..d.end];
-        match self.prepared.solve(a, ws) {
-            Ok(sol) => Outcome::Fitted(self.assemble(sample, a, &sol, pathlength_cm)),
+        match self.prepared.solve_here(a, ws) {
+            Ok(sol) => Outcome::Fitted(self.assemble(sample, a, sol, pathlength_cm)),
             Err(e) => Outcome::Failed(FailedSample {
                 sample: sample.to_string(),
                 error: e.to_string(),
