@@ -178,6 +178,9 @@ pub const FLAG_ITERATION_LIMIT: &str = "solver-iteration-limit";
 pub const FLAG_HIGH_ABSORBANCE: &str = "high-absorbance";
 /// Flags: the peak absorbance is below [`LOW_SIGNAL_AU`].
 pub const FLAG_LOW_SIGNAL: &str = "low-signal";
+/// Flags: a concentration lies above the top of its component's calibrated
+/// range (the highest standard used by `unblend calibrate`).
+pub const FLAG_BEYOND_CALIBRATED_RANGE: &str = "beyond-calibrated-range";
 
 /// Flags: as many unknowns as wavelengths, so no standard errors.
 pub const FLAG_NO_ERROR_ESTIMATE: &str = "no-error-estimate";
@@ -266,16 +269,20 @@ pub struct Model {
     moments: SerialMoments,
     screener: Option<Screener>,
     check_warnings: Vec<String>,
+    /// Top of each component's calibrated range, mol/L (calibrated ones).
+    calibrated_max_mol_per_l: Vec<Option<f64>>,
 }
 
 impl Model {
-    /// Build the model for a grid, with the default checks.
+    /// Build the plain model for a grid: no masking, no residual checks
+    /// (as before the checks existed). [`Model::with_checks`] adds them;
+    /// [`fit_file`] and [`fit_stream`] use the default checks.
     pub fn new(
         grid: &crate::spectrum::Grid,
         refs: &ReferenceSet,
         options: &FitOptions,
     ) -> Result<Self> {
-        Self::with_checks(grid, refs, options, &diagnostics::Options::default())
+        Self::with_checks(grid, refs, options, &diagnostics::Options::off())
     }
 
     /// Build the model for a grid with the given checks.
@@ -325,7 +332,24 @@ impl Model {
                 .map(|c| c.molar_mass_g_per_mol)
                 .collect(),
             names: refs.names().iter().map(|s| s.to_string()).collect(),
+            calibrated_max_mol_per_l: refs
+                .components
+                .iter()
+                .map(|c| c.calibration().map(|k| k.concentration_max_mol_per_l))
+                .collect(),
         })
+    }
+
+    /// `collinear-references` warnings for this model's reference set over
+    /// its range (see [`crate::separability`]).
+    pub fn separability_warnings(&self) -> Vec<String> {
+        let analysis = crate::separability::analyse(&self.design);
+        crate::separability::collinearity_warnings(
+            &analysis,
+            &self.names,
+            self.design.range_nm(),
+            self.design.baseline,
+        )
     }
 
     /// A warning to show when this model was solved with the fallback.
@@ -359,16 +383,16 @@ impl Model {
         {
             return self.fit_masked(sample, a, &keep, ceiling, pathlength_cm);
         }
-        match self.prepared.solve(a, ws) {
+        match self.prepared.solve_here(a, ws) {
             Ok(sol) => {
-                let mut r = self.assemble(sample, a, &sol, pathlength_cm);
+                let mut r = self.assemble(sample, a, sol, pathlength_cm);
                 let view = View {
                     wavelengths_nm: &d.wavelengths_nm,
                     columns: &d.columns,
                     n_components: d.n_components,
                     moments: &self.moments,
                 };
-                self.check(&mut r, view, a, &sol, None);
+                self.check(&mut r, view, a, sol, None);
                 Outcome::Fitted(r)
             }
             Err(e) => Outcome::Failed(FailedSample {
@@ -527,6 +551,13 @@ impl Model {
         if peak < LOW_SIGNAL_AU {
             flags.push(FLAG_LOW_SIGNAL.to_string());
         }
+        if conc
+            .iter()
+            .zip(&self.calibrated_max_mol_per_l)
+            .any(|(c, max)| max.is_some_and(|m| *c > m))
+        {
+            flags.push(FLAG_BEYOND_CALIBRATED_RANGE.to_string());
+        }
         let (lo, hi) = d.range_nm();
         SampleResult {
             sample: sample.to_string(),
@@ -554,9 +585,14 @@ fn fit_block(
     warnings: &mut Vec<String>,
 ) -> Result<Vec<Outcome>> {
     let model = Model::with_checks(&block.grid, refs, options, checks)?;
-    for w in model.method_warning().iter().chain(model.check_warnings()) {
-        if !warnings.contains(w) {
-            warnings.push(w.clone());
+    for w in model
+        .method_warning()
+        .into_iter()
+        .chain(model.separability_warnings())
+        .chain(model.check_warnings().iter().cloned())
+    {
+        if !warnings.contains(&w) {
+            warnings.push(w);
         }
     }
     Ok(model.fit_block(block, options.pathlength_cm))
@@ -632,8 +668,12 @@ pub fn fit_stream_with<R: std::io::Read + Send, E>(
     checks.validate().map_err(StreamError::Engine)?;
     let model =
         Model::with_checks(stream.grid(), refs, options, checks).map_err(StreamError::Engine)?;
-    let mut warnings: Vec<String> = model.method_warning().into_iter().collect();
-    warnings.extend(model.check_warnings().iter().cloned());
+    let warnings: Vec<String> = model
+        .method_warning()
+        .into_iter()
+        .chain(model.separability_warnings())
+        .chain(model.check_warnings().iter().cloned())
+        .collect();
     std::thread::scope(|scope| {
         let (tx, rx) = mpsc::sync_channel::<Result<crate::input::spectra::Chunk>>(1);
         let (back_tx, back_rx) = mpsc::channel::<Block>();

@@ -16,6 +16,7 @@
 #![warn(missing_docs)]
 
 pub mod atomic;
+pub mod calibrate;
 pub mod cli;
 pub mod dates;
 pub mod diagnostics;
@@ -26,6 +27,7 @@ pub mod input;
 pub mod output;
 pub mod preprocess;
 pub mod reference;
+pub mod separability;
 pub mod solver;
 pub mod spectrum;
 

@@ -607,3 +607,17 @@ fn simulation_study_report() {
         }
     }
 }
+
+#[test]
+fn checks_leave_the_concentrations_of_unmasked_samples_unchanged() {
+    let b = batch(19, 300, |i| i % 3 == 0, (0.02, 0.1), NoiseModel::White, 0.0);
+    let refs = references();
+    let opts = FitOptions::default();
+    let on = fit_file_with(&b.file, &refs, &opts, &checks(None, 0.01)).unwrap();
+    let off = fit_file_with(&b.file, &refs, &opts, &diagnostics::Options::off()).unwrap();
+    for (x, y) in fitted(&on).iter().zip(fitted(&off)) {
+        assert!(x.masking.is_none() && y.diagnostics.is_none());
+        assert_eq!(x.components, y.components);
+        assert_eq!(x.residual_rms.to_bits(), y.residual_rms.to_bits());
+    }
+}

@@ -4,6 +4,7 @@
 //! `pub fn run`, then helpers. Flags become engine options through
 //! `TryFrom`, so the engine never depends on clap.
 
+pub mod calibrate;
 pub mod demo;
 pub mod diagnostic_args;
 pub mod discover;
@@ -46,9 +47,11 @@ pub struct Cli {
 enum Command {
     /// Fit spectra as non-negative sums of reference components.
     Fit(fit::Args),
-    /// Add, list and show reference components.
+    /// Add, list, show and check reference components.
     #[command(subcommand)]
     Library(library::Command),
+    /// Make a reference component from a blank and a series of standards.
+    Calibrate(calibrate::Args),
     /// Run the fit on the built-in demo data (an invented ink workshop).
     Demo(demo::Args),
     /// Recover the spectrum of an unknown absorber shared by flagged samples.
@@ -107,6 +110,7 @@ pub fn run(cli: Cli) -> Result<u8, Failure> {
     match cli.command {
         Command::Fit(a) => fit::run(a),
         Command::Library(c) => library::run(c),
+        Command::Calibrate(a) => calibrate::run(a),
         Command::Demo(a) => demo::run(a),
         Command::Discover(a) => discover::run(a),
     }

@@ -292,6 +292,18 @@ impl Prepared {
         Ok(out)
     }
 
+    /// Solve one spectrum into the workspace's own solution buffer and
+    /// return it (no allocation once the workspace is warm).
+    pub fn solve_here<'w>(&self, a: &[f64], ws: &'w mut Workspace) -> Result<&'w Solution> {
+        let mut out = ws.solution.take().unwrap_or_default();
+        let r = self.solve_into(a, ws, &mut out);
+        ws.solution = Some(out);
+        r?;
+        ws.solution
+            .as_ref()
+            .ok_or_else(|| Error::Invalid("solution buffer".into()))
+    }
+
     /// Solve one spectrum into `out`, reusing its storage (no allocation on
     /// the normal-equation path once `out` and `ws` are warm).
     pub fn solve_into(&self, a: &[f64], ws: &mut Workspace, out: &mut Solution) -> Result<()> {

@@ -20,6 +20,8 @@ struct Factor {
     idx: Vec<usize>,
     /// Lower-triangular L (m × m, row-major) with L·Lᵀ = G_PP.
     l: Vec<f64>,
+    /// 1 / L_ii: back substitution multiplies instead of dividing.
+    inv_l_diag: Vec<f64>,
     /// Diagonal of G_PP⁻¹ placed at full indices (0 elsewhere).
     inv_diag: Vec<f64>,
 }
@@ -33,6 +35,8 @@ pub struct Workspace {
     /// The passive set `z` was last solved for.
     z_mask: Option<u64>,
     r: Vec<f64>,
+    /// The last solution, reused between spectra (see `Prepared::solve_here`).
+    pub(crate) solution: Option<super::Solution>,
     x: Vec<f64>,
     z: Vec<f64>,
     tmp: Vec<f64>,
@@ -53,6 +57,7 @@ impl Workspace {
             last_mask: None,
             z_mask: None,
             r: vec![0.0; p],
+            solution: Some(super::Solution::default()),
             x: vec![0.0; p],
             z: vec![0.0; p],
             tmp: vec![0.0; p],
@@ -132,7 +137,13 @@ fn build_factor(prep: &Prepared, mask: u64) -> Result<Factor> {
     for (c, &j) in idx.iter().enumerate() {
         inv_diag[j] = (c..m).map(|i| linv[i * m + c].powi(2)).sum();
     }
-    Ok(Factor { idx, l, inv_diag })
+    let inv_l_diag = (0..m).map(|i| 1.0 / l[i * m + i]).collect();
+    Ok(Factor {
+        idx,
+        l,
+        inv_l_diag,
+        inv_diag,
+    })
 }
 
 /// Solve G_PP·z_P = r_P with a factor; z is zero outside P.
@@ -144,14 +155,14 @@ fn back_solve(f: &Factor, r: &[f64], z: &mut [f64], tmp: &mut [f64]) {
         for k in 0..i {
             s -= f.l[i * m + k] * tmp[k];
         }
-        tmp[i] = s / f.l[i * m + i];
+        tmp[i] = s * f.inv_l_diag[i];
     }
     for i in (0..m).rev() {
         let mut s = tmp[i];
         for k in i + 1..m {
             s -= f.l[k * m + i] * tmp[k];
         }
-        tmp[i] = s / f.l[i * m + i];
+        tmp[i] = s * f.inv_l_diag[i];
     }
     for (c, &j) in f.idx.iter().enumerate() {
         z[j] = tmp[c];
@@ -161,7 +172,57 @@ fn back_solve(f: &Factor, r: &[f64], z: &mut [f64], tmp: &mut [f64]) {
 /// Dot product with eight independent accumulators over exact chunks, a
 /// shape the compiler turns into packed SIMD multiply-adds without bounds
 /// checks.
-#[inline]
+/// r = Eᵀa for column-major `columns` (n points each), four columns per
+/// pass so each loaded value of `a` serves four products; returns aᵀa.
+/// Compiled for AVX2 as well as the baseline, chosen at run time; the
+/// summation order is fixed by the code, so every version gives the same
+/// bits.
+#[multiversion::multiversion(targets("x86_64+avx2"))]
+pub(crate) fn project(columns: &[f64], n: usize, a: &[f64], r: &mut [f64]) -> f64 {
+    let p = r.len();
+    let a = &a[..n];
+    let mut j = 0;
+    while j + 4 <= p {
+        let c0 = &columns[j * n..(j + 1) * n];
+        let c1 = &columns[(j + 1) * n..(j + 2) * n];
+        let c2 = &columns[(j + 2) * n..(j + 3) * n];
+        let c3 = &columns[(j + 3) * n..(j + 4) * n];
+        let mut acc = [[0.0f64; 4]; 4];
+        let it = a
+            .chunks_exact(4)
+            .zip(c0.chunks_exact(4))
+            .zip(c1.chunks_exact(4))
+            .zip(c2.chunks_exact(4))
+            .zip(c3.chunks_exact(4));
+        for ((((x, y0), y1), y2), y3) in it {
+            for l in 0..4 {
+                acc[0][l] += x[l] * y0[l];
+                acc[1][l] += x[l] * y1[l];
+                acc[2][l] += x[l] * y2[l];
+                acc[3][l] += x[l] * y3[l];
+            }
+        }
+        let tail = n - n % 4;
+        for (q, c) in [c0, c1, c2, c3].iter().enumerate() {
+            let mut s = (acc[q][0] + acc[q][2]) + (acc[q][1] + acc[q][3]);
+            for i in tail..n {
+                s += a[i] * c[i];
+            }
+            r[j + q] = s;
+        }
+        j += 4;
+    }
+    while j < p {
+        r[j] = dot(&columns[j * n..(j + 1) * n], a);
+        j += 1;
+    }
+    dot(a, a)
+}
+
+/// Compiled for AVX2 as well as the baseline; the best version the CPU runs
+/// is chosen at run time (same results: the summation order is fixed by
+/// the code, not the instruction set).
+#[multiversion::multiversion(targets("x86_64+avx2"))]
 pub(crate) fn dot(a: &[f64], b: &[f64]) -> f64 {
     let n = a.len().min(b.len());
     let (a, b) = (&a[..n], &b[..n]);
@@ -220,12 +281,9 @@ fn solve_mask(prep: &Prepared, ws: &mut Workspace, mask: u64) -> Result<()> {
 /// bitmask and the status.
 pub(crate) fn solve(prep: &Prepared, a: &[f64], ws: &mut Workspace) -> Result<(f64, u64, Status)> {
     let (n, p, nn) = (prep.n, prep.p, prep.n_nonneg);
-    for j in 0..p {
-        ws.r[j] = dot(&prep.columns[j * n..(j + 1) * n], a);
-    }
+    let aa = project(&prep.columns, n, a, &mut ws.r);
     // A new right-hand side: any cached z is stale.
     ws.z_mask = None;
-    let aa = dot(a, a);
     let free_mask: u64 = (nn..p).fold(0, |m, j| m | (1 << j));
     let rmax = ws.r.iter().fold(0.0f64, |m, v| m.max(v.abs()));
     let tol = 1e-12 * rmax.max(f64::MIN_POSITIVE);
@@ -260,7 +318,7 @@ pub(crate) fn solve(prep: &Prepared, a: &[f64], ws: &mut Workspace) -> Result<(f
                 continue;
             }
             let g = &prep.gram[j * p..(j + 1) * p];
-            let w = ws.r[j] - dot(g, &ws.x);
+            let w = ws.r[j] - g.iter().zip(&ws.x).map(|(a, b)| a * b).sum::<f64>();
             if w > tol && best.is_none_or(|(_, bw)| w > bw) {
                 best = Some((j, w));
             }
