@@ -13,7 +13,13 @@
 //! (AU), R² and flags; plus run-level warnings. Spectra are solved in
 //! parallel across samples in fixed-size chunks and collected in input
 //! order, so output is identical whatever the thread count.
+//!
+//! Beside the fit, [`diagnostics`] checks each residual against the noise
+//! (flag `unexplained-absorbance`), masks points above a saturation ceiling
+//! (flags `saturation-masked`, `dilute-and-remeasure`) and, on request,
+//! screens candidate components against flagged residuals.
 
+use crate::diagnostics::{self, SerialMoments, View, mask, screen::Screener};
 use crate::error::{Error, Result};
 use crate::input::spectra::{Block, SpectraFile};
 use crate::preprocess::{self, Baseline};
@@ -116,6 +122,15 @@ pub struct SampleResult {
     pub solver: String,
     /// Flags raised for this sample.
     pub flags: Vec<String>,
+    /// Residual diagnostics (absent when switched off).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub diagnostics: Option<Box<diagnostics::Residual>>,
+    /// Saturation masking (absent when no point was masked).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub masking: Option<Box<mask::Masking>>,
+    /// Candidate screening (flagged samples, with `--screen-with`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub screening: Option<Box<diagnostics::screen::Screening>>,
 }
 
 /// A sample that could not be fitted.
@@ -163,16 +178,31 @@ pub const FLAG_ITERATION_LIMIT: &str = "solver-iteration-limit";
 pub const FLAG_HIGH_ABSORBANCE: &str = "high-absorbance";
 /// Flags: the peak absorbance is below [`LOW_SIGNAL_AU`].
 pub const FLAG_LOW_SIGNAL: &str = "low-signal";
+/// Flags: a concentration lies above the top of its component's calibrated
+/// range (the highest standard used by `unblend calibrate`).
+pub const FLAG_BEYOND_CALIBRATED_RANGE: &str = "beyond-calibrated-range";
 
 /// Flags: as many unknowns as wavelengths, so no standard errors.
 pub const FLAG_NO_ERROR_ESTIMATE: &str = "no-error-estimate";
 
-/// Fit every spectrum of a file.
+/// Fit every spectrum of a file, with the default checks
+/// ([`diagnostics::Options::default`]).
 pub fn fit_file(
     file: &SpectraFile,
     refs: &ReferenceSet,
     options: &FitOptions,
 ) -> Result<FitReport> {
+    fit_file_with(file, refs, options, &diagnostics::Options::default())
+}
+
+/// Fit every spectrum of a file with the given checks.
+pub fn fit_file_with(
+    file: &SpectraFile,
+    refs: &ReferenceSet,
+    options: &FitOptions,
+    checks: &diagnostics::Options,
+) -> Result<FitReport> {
+    checks.validate()?;
     if !(options.pathlength_cm.is_finite() && options.pathlength_cm > 0.0) {
         return Err(Error::Invalid(format!(
             "pathlength {} cm: expected a positive number of cm",
@@ -188,7 +218,7 @@ pub fn fit_file(
         }));
     }
     for block in &file.blocks {
-        match fit_block(block, refs, options, &mut warnings) {
+        match fit_block(block, refs, options, checks, &mut warnings) {
             Ok(results) => {
                 for (pos, r) in block.positions.iter().zip(results) {
                     slots[*pos] = Some(r);
@@ -234,14 +264,33 @@ pub struct Model {
     pub prepared: Prepared,
     molar_masses: Vec<Option<f64>>,
     names: Vec<String>,
+    column_names: Vec<String>,
+    checks: diagnostics::Options,
+    moments: SerialMoments,
+    screener: Option<Screener>,
+    check_warnings: Vec<String>,
+    /// Top of each component's calibrated range, mol/L (calibrated ones).
+    calibrated_max_mol_per_l: Vec<Option<f64>>,
 }
 
 impl Model {
-    /// Build the model for a grid.
+    /// Build the plain model for a grid: no masking, no residual checks
+    /// (as before the checks existed). [`Model::with_checks`] adds them;
+    /// [`fit_file`] and [`fit_stream`] use the default checks.
     pub fn new(
         grid: &crate::spectrum::Grid,
         refs: &ReferenceSet,
         options: &FitOptions,
+    ) -> Result<Self> {
+        Self::with_checks(grid, refs, options, &diagnostics::Options::off())
+    }
+
+    /// Build the model for a grid with the given checks.
+    pub fn with_checks(
+        grid: &crate::spectrum::Grid,
+        refs: &ReferenceSet,
+        options: &FitOptions,
+        checks: &diagnostics::Options,
     ) -> Result<Self> {
         let design = preprocess::design(grid, refs, options.baseline, options.window_nm)?;
         let mut names: Vec<String> = refs.names().iter().map(|s| s.to_string()).collect();
@@ -255,16 +304,52 @@ impl Model {
             design.n_components,
             &names,
         )?;
+        let moments = SerialMoments::new(&prepared.columns, design.n_points(), design.n_columns());
+        let (screener, check_warnings) = match &checks.candidates {
+            Some(c) if checks.residual.is_some() => {
+                let (s, w) = Screener::new(
+                    &design.wavelengths_nm,
+                    &design.columns,
+                    design.n_components,
+                    &names,
+                    c,
+                );
+                (Some(s), w)
+            }
+            _ => (None, Vec::new()),
+        };
         Ok(Model {
             design,
             prepared,
+            column_names: names,
+            checks: checks.clone(),
+            moments,
+            screener,
+            check_warnings,
             molar_masses: refs
                 .components
                 .iter()
                 .map(|c| c.molar_mass_g_per_mol)
                 .collect(),
             names: refs.names().iter().map(|s| s.to_string()).collect(),
+            calibrated_max_mol_per_l: refs
+                .components
+                .iter()
+                .map(|c| c.calibration().map(|k| k.concentration_max_mol_per_l))
+                .collect(),
         })
+    }
+
+    /// `collinear-references` warnings for this model's reference set over
+    /// its range (see [`crate::separability`]).
+    pub fn separability_warnings(&self) -> Vec<String> {
+        let analysis = crate::separability::analyse(&self.design);
+        crate::separability::collinearity_warnings(
+            &analysis,
+            &self.names,
+            self.design.range_nm(),
+            self.design.baseline,
+        )
     }
 
     /// A warning to show when this model was solved with the fallback.
@@ -278,6 +363,11 @@ impl Model {
         })
     }
 
+    /// Warnings from preparing the checks (candidates left out).
+    pub fn check_warnings(&self) -> &[String] {
+        &self.check_warnings
+    }
+
     /// Fit one full-grid spectrum (its absorbances on the model's grid).
     pub fn fit_one(
         &self,
@@ -288,13 +378,117 @@ impl Model {
     ) -> Outcome {
         let d = &self.design;
         let a = &full_row[d.start..d.end];
+        if let Some(ceiling) = self.checks.max_absorbance_au
+            && let Some(keep) = mask::keep(a, ceiling)
+        {
+            return self.fit_masked(sample, a, &keep, ceiling, pathlength_cm);
+        }
         match self.prepared.solve_here(a, ws) {
-            Ok(sol) => Outcome::Fitted(self.assemble(sample, a, sol, pathlength_cm)),
+            Ok(sol) => {
+                let mut r = self.assemble(sample, a, sol, pathlength_cm);
+                let view = View {
+                    wavelengths_nm: &d.wavelengths_nm,
+                    columns: &d.columns,
+                    n_components: d.n_components,
+                    moments: &self.moments,
+                };
+                self.check(&mut r, view, a, sol, None);
+                Outcome::Fitted(r)
+            }
             Err(e) => Outcome::Failed(FailedSample {
                 sample: sample.to_string(),
                 error: e.to_string(),
             }),
         }
+    }
+
+    /// Fit a spectrum on the points under the saturation ceiling only.
+    fn fit_masked(
+        &self,
+        sample: &str,
+        a: &[f64],
+        keep: &[bool],
+        ceiling: f64,
+        l_cm: f64,
+    ) -> Outcome {
+        let d = &self.design;
+        let masking = mask::describe(&d.wavelengths_nm, &d.columns, &self.names, keep, ceiling);
+        let fail = |why: String| {
+            Outcome::Failed(FailedSample {
+                sample: sample.to_string(),
+                error: format!(
+                    "{} point(s) read above {ceiling} AU and were masked: {why}; dilute and re-measure",
+                    masking.n_masked
+                ),
+            })
+        };
+        let a_kept = mask::select(a, keep);
+        let w_kept = mask::select(&d.wavelengths_nm, keep);
+        let cols = mask::rows(&d.columns, d.n_points(), keep);
+        let prepared = match Prepared::new(
+            &cols,
+            a_kept.len(),
+            d.n_columns(),
+            d.n_components,
+            &self.column_names,
+        ) {
+            Ok(p) => p,
+            Err(e) => return fail(e.to_string()),
+        };
+        let mut ws = prepared.workspace();
+        let sol = match prepared.solve(&a_kept, &mut ws) {
+            Ok(s) => s,
+            Err(e) => return fail(e.to_string()),
+        };
+        let mut r = self.assemble(sample, &a_kept, &sol, l_cm);
+        r.solver = prepared.method().name().to_string();
+        let peak = a.iter().fold(f64::NEG_INFINITY, |m, &v| m.max(v));
+        if peak > HIGH_ABSORBANCE_AU && !r.flags.iter().any(|f| f == FLAG_HIGH_ABSORBANCE) {
+            r.flags.push(FLAG_HIGH_ABSORBANCE.to_string());
+        }
+        r.flags.push(mask::FLAG_SATURATION_MASKED.to_string());
+        if masking.dilute_and_remeasure {
+            r.flags.push(mask::FLAG_DILUTE.to_string());
+        }
+        r.masking = Some(Box::new(masking));
+        let moments = SerialMoments::new(&prepared.columns, a_kept.len(), d.n_columns());
+        let view = View {
+            wavelengths_nm: &w_kept,
+            columns: &cols,
+            n_components: d.n_components,
+            moments: &moments,
+        };
+        self.check(&mut r, view, &a_kept, &sol, Some(keep));
+        Outcome::Fitted(r)
+    }
+
+    /// Residual tests and, for a flagged sample, candidate screening.
+    fn check(
+        &self,
+        r: &mut SampleResult,
+        view: View<'_>,
+        a: &[f64],
+        sol: &crate::solver::Solution,
+        keep: Option<&[bool]>,
+    ) {
+        let Some(opts) = &self.checks.residual else {
+            return;
+        };
+        let res = diagnostics::examine(view, a, &sol.x, opts);
+        if res.flagged() {
+            r.flags.push(diagnostics::FLAG_UNEXPLAINED.to_string());
+            if let Some(s) = &self.screener {
+                let input = diagnostics::screen::ScreenInput {
+                    a,
+                    wavelengths_nm: view.wavelengths_nm,
+                    keep,
+                    base_rss: sol.rss,
+                    pathlength_cm: r.pathlength_cm,
+                };
+                r.screening = s.screen(input, opts).map(Box::new);
+            }
+        }
+        r.diagnostics = Some(Box::new(res));
     }
 
     fn assemble(
@@ -357,6 +551,13 @@ impl Model {
         if peak < LOW_SIGNAL_AU {
             flags.push(FLAG_LOW_SIGNAL.to_string());
         }
+        if conc
+            .iter()
+            .zip(&self.calibrated_max_mol_per_l)
+            .any(|(c, max)| max.is_some_and(|m| *c > m))
+        {
+            flags.push(FLAG_BEYOND_CALIBRATED_RANGE.to_string());
+        }
         let (lo, hi) = d.range_nm();
         SampleResult {
             sample: sample.to_string(),
@@ -369,6 +570,9 @@ impl Model {
             pathlength_cm: l_cm,
             solver: self.prepared.method().name().to_string(),
             flags,
+            diagnostics: None,
+            masking: None,
+            screening: None,
         }
     }
 }
@@ -377,13 +581,19 @@ fn fit_block(
     block: &Block,
     refs: &ReferenceSet,
     options: &FitOptions,
+    checks: &diagnostics::Options,
     warnings: &mut Vec<String>,
 ) -> Result<Vec<Outcome>> {
-    let model = Model::new(&block.grid, refs, options)?;
-    if let Some(w) = model.method_warning()
-        && !warnings.contains(&w)
+    let model = Model::with_checks(&block.grid, refs, options, checks)?;
+    for w in model
+        .method_warning()
+        .into_iter()
+        .chain(model.separability_warnings())
+        .chain(model.check_warnings().iter().cloned())
     {
-        warnings.push(w);
+        if !warnings.contains(&w) {
+            warnings.push(w);
+        }
     }
     Ok(model.fit_block(block, options.pathlength_cm))
 }
@@ -435,11 +645,35 @@ pub fn fit_stream<R: std::io::Read + Send, E>(
     stream: &mut crate::input::spectra::WideStream<R>,
     refs: &ReferenceSet,
     options: &FitOptions,
+    sink: impl FnMut(Vec<Outcome>) -> std::result::Result<(), E>,
+) -> std::result::Result<Vec<String>, StreamError<E>> {
+    fit_stream_with(
+        stream,
+        refs,
+        options,
+        &diagnostics::Options::default(),
+        sink,
+    )
+}
+
+/// [`fit_stream`] with the given checks.
+pub fn fit_stream_with<R: std::io::Read + Send, E>(
+    stream: &mut crate::input::spectra::WideStream<R>,
+    refs: &ReferenceSet,
+    options: &FitOptions,
+    checks: &diagnostics::Options,
     mut sink: impl FnMut(Vec<Outcome>) -> std::result::Result<(), E>,
 ) -> std::result::Result<Vec<String>, StreamError<E>> {
     use std::sync::mpsc;
-    let model = Model::new(stream.grid(), refs, options).map_err(StreamError::Engine)?;
-    let warnings: Vec<String> = model.method_warning().into_iter().collect();
+    checks.validate().map_err(StreamError::Engine)?;
+    let model =
+        Model::with_checks(stream.grid(), refs, options, checks).map_err(StreamError::Engine)?;
+    let warnings: Vec<String> = model
+        .method_warning()
+        .into_iter()
+        .chain(model.separability_warnings())
+        .chain(model.check_warnings().iter().cloned())
+        .collect();
     std::thread::scope(|scope| {
         let (tx, rx) = mpsc::sync_channel::<Result<crate::input::spectra::Chunk>>(1);
         let (back_tx, back_rx) = mpsc::channel::<Block>();

@@ -17,14 +17,18 @@
 
 pub mod atomic;
 pub mod batch;
+pub mod calibrate;
 pub mod cli;
 pub mod dates;
+pub mod diagnostics;
+pub mod discover;
 pub mod error;
 pub mod fit;
 pub mod input;
 pub mod output;
 pub mod preprocess;
 pub mod reference;
+pub mod separability;
 pub mod solver;
 pub mod spectrum;
 

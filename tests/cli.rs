@@ -607,7 +607,15 @@ fn failed_rows_appear_in_json_with_their_errors() {
     assert_eq!(rep.failed.len(), 1);
     assert_eq!(rep.failed[0].sample, "s2");
     assert!(rep.failed[0].error.contains("line 3, column 3"));
-    assert!(rep.warnings.is_empty());
+    // Three dyes and an offset on 5 wavelengths cannot be told apart well:
+    // the collinearity warning is expected, nothing else.
+    assert!(
+        rep.warnings
+            .iter()
+            .all(|w| w.starts_with("collinear-references")),
+        "{:?}",
+        rep.warnings
+    );
 }
 
 #[test]

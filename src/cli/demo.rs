@@ -85,10 +85,13 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     crate::atomic::write_with(&csv, false, |w| output::write(&report, Format::Csv, w))?;
     crate::atomic::write_with(&json, false, |w| output::write(&report, Format::Json, w))?;
     println!(
-        "\nThe lot-2614 replicates carry an impurity none of the three references describes: note their larger residual."
+        "\nThe lot-2614 replicates carry an impurity none of the three references describes: their residual is flagged unexplained-absorbance (see the notes); `unblend fit ... --screen-with DIR` tries candidate spectra on it, `unblend discover` estimates its spectrum."
     );
     println!(
-        "The lot-2615 replicates read above 2 AU in the blue band: dilute and re-measure before trusting them."
+        "The lot-2615 replicates read above 2 AU in the blue band: those points are masked out of the fit (saturation-masked); dilute and re-measure for a confident number."
+    );
+    println!(
+        "At the default alarm rate 1 % of clean samples are flagged by chance: a lone flag with a band of a few tenths of a mAU may be one of them."
     );
     println!("\nwrote {} and {}", csv.display(), json.display());
     Ok(if report.n_failed() == 0 {

@@ -1,7 +1,8 @@
 //! `unblend fit`: fit spectra against reference components.
 
+use super::diagnostic_args::DiagnosticArgs;
 use super::{Failure, exit, library_dir, parse_positive, parse_range_nm};
-use crate::fit::{FitOptions, FitReport, Outcome, StreamError, fit_stream};
+use crate::fit::{FitOptions, FitReport, Outcome, StreamError, fit_stream_with};
 use crate::input::spectra::{self, Opened, Quantity, ReadOptions, WideStream};
 use crate::output::{self, Format};
 use crate::preprocess::Baseline;
@@ -41,6 +42,12 @@ pub struct Args {
     /// Write the results to FILE (atomically) instead of standard output.
     #[arg(long, value_name = "FILE")]
     pub out: Option<PathBuf>,
+    /// Library folder of candidate components to try on flagged samples (one extra component at a time, F-test).
+    #[arg(long, value_name = "DIR")]
+    pub screen_with: Option<PathBuf>,
+    /// Residual tests and saturation masking.
+    #[command(flatten)]
+    pub checks: DiagnosticArgs,
 }
 
 /// `--baseline` values.
@@ -132,6 +139,27 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let dir = library_dir(args.library.clone());
     let library = Library::open(&dir)?;
     let refs = library.select(&args.components)?;
+    let mut checks = args.checks.options();
+    if let Some(dir) = &args.screen_with {
+        if args.checks.no_diagnostics {
+            return Err(Failure::new(
+                "--screen-with tries candidates on samples the residual tests flag: drop --no-diagnostics",
+            ));
+        }
+        let candidates = Library::open(dir)?;
+        for e in &candidates.broken {
+            eprintln!("unblend: warning: screening library: {e}");
+        }
+        if candidates.components.is_empty() {
+            return Err(Failure::new(format!(
+                "--screen-with {}: no readable component files (*.toml) there",
+                dir.display()
+            )));
+        }
+        checks.candidates = Some(ReferenceSet {
+            components: candidates.components,
+        });
+    }
     let reader: Box<dyn Read + Send> = if args.input.as_os_str() == "-" {
         Box::new(std::io::stdin())
     } else {
@@ -145,16 +173,21 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     };
     match spectra::open(reader, read_options).map_err(ctx)? {
         Opened::Long(file) => {
-            let report = crate::fit::fit_file(&file, &refs, &options).map_err(ctx)?;
+            let report = crate::fit::fit_file_with(&file, &refs, &options, &checks).map_err(ctx)?;
             emit(&report, format, args.out.as_deref())?;
             Ok(exit_code(&report))
         }
-        Opened::Wide(mut stream) if format == Format::Csv => {
-            stream_csv(&mut stream, &refs, &options, args.out.as_deref(), &shown)
-        }
+        Opened::Wide(mut stream) if format == Format::Csv => stream_csv(
+            &mut stream,
+            &refs,
+            &options,
+            &checks,
+            args.out.as_deref(),
+            &shown,
+        ),
         Opened::Wide(mut stream) => {
             let mut outcomes = Vec::new();
-            let warnings = fit_stream(&mut stream, &refs, &options, |chunk| {
+            let warnings = fit_stream_with(&mut stream, &refs, &options, &checks, |chunk| {
                 outcomes.extend(chunk);
                 Ok::<(), ()>(())
             })
@@ -179,6 +212,7 @@ fn stream_csv<R: Read + Send>(
     stream: &mut WideStream<R>,
     refs: &ReferenceSet,
     options: &FitOptions,
+    checks: &crate::diagnostics::Options,
     out: Option<&std::path::Path>,
     shown: &str,
 ) -> Result<u8, Failure> {
@@ -198,7 +232,7 @@ fn stream_csv<R: Read + Send>(
                 }
                 Ok(())
             });
-            let r = fit_stream(stream, refs, options, |chunk: Vec<Outcome>| {
+            let r = fit_stream_with(stream, refs, options, checks, |chunk: Vec<Outcome>| {
                 total += chunk.len();
                 failed += chunk
                     .iter()

@@ -1,7 +1,11 @@
-//! `unblend library add|list|show`: manage reference components.
+//! `unblend library add|list|show|check`: manage reference components and
+//! check that a set of them can be told apart.
 
-use super::{Failure, exit, library_dir, parse_positive};
+use super::calibrate::{ReportFormat, print_stdout, sig};
+use super::fit::BaselineArg;
+use super::{Failure, exit, library_dir, parse_positive, parse_range_nm};
 use crate::reference::{Component, Conditions, Library, Source};
+use crate::separability::{self, CheckOptions, CheckReport, DEFAULT_NOISE_AU};
 use sha2::{Digest, Sha256};
 use std::path::PathBuf;
 
@@ -14,6 +18,9 @@ pub enum Command {
     List(ListArgs),
     /// Show one component: provenance, conditions and its curve.
     Show(ShowArgs),
+    /// Check that a set of components can be separated: conditioning,
+    /// similarity, variance inflation, predicted errors and limits.
+    Check(CheckArgs),
 }
 
 /// Arguments of `library add`.
@@ -68,12 +75,67 @@ pub struct ShowArgs {
     pub csv: bool,
 }
 
+/// Arguments of `library check`.
+#[derive(Debug, clap::Args)]
+#[command(after_help = CHECK_AFTER_HELP)]
+pub struct CheckArgs {
+    /// Library folder [default: $UNBLEND_LIBRARY or ./library].
+    #[arg(long, value_name = "DIR")]
+    pub library: Option<PathBuf>,
+    /// Components to check, comma separated [default: every component in the library].
+    #[arg(long, value_delimiter = ',', value_name = "NAMES")]
+    pub components: Vec<String>,
+    /// Wavelength range LO:HI in nm [default: the range every component covers].
+    #[arg(long, value_parser = parse_range_nm, value_name = "LO:HI")]
+    pub range_nm: Option<(f64, f64)>,
+    /// Absorbance noise of one reading, AU (typical 0.001–0.002; measure it as the SD of a blank).
+    #[arg(long, default_value_t = DEFAULT_NOISE_AU, value_parser = parse_positive, value_name = "AU")]
+    pub noise_au: f64,
+    /// Optical pathlength of the samples, cm.
+    #[arg(long, default_value = "1", value_parser = parse_positive, value_name = "CM")]
+    pub pathlength_cm: f64,
+    /// Baseline terms the fit will use (as `fit --baseline`).
+    #[arg(long, value_enum, default_value_t = BaselineArg::Offset)]
+    pub baseline: BaselineArg,
+    /// Spacing of the readings the prediction assumes, nm (your instrument's step).
+    #[arg(long, default_value = "1", value_parser = parse_positive, value_name = "NM")]
+    pub step_nm: f64,
+    /// Output format.
+    #[arg(long, value_enum, default_value_t = ReportFormat::Table)]
+    pub format: ReportFormat,
+}
+
+const CHECK_AFTER_HELP: &str = "\
+The predicted standard error of each concentration is σ·√diag((EᵀE)⁻¹)/l for readings
+every --step-nm nm over the range, each with independent noise --noise-au; the limit of
+detection is 3.3 and the limit of quantitation 10 standard errors (common practice).
+A pair whose variance inflation reaches 10 gets a `collinear-references` warning.
+
+Exit codes:
+  0  the check ran (read the warnings on standard error)
+  1  failure: unreadable library, unknown component, no common wavelength range
+  2  command-line usage error";
+
+impl TryFrom<&CheckArgs> for CheckOptions {
+    type Error = Failure;
+    fn try_from(a: &CheckArgs) -> Result<Self, Failure> {
+        Ok(CheckOptions {
+            baseline: a.baseline.into(),
+            window_nm: a.range_nm,
+            step_nm: a.step_nm,
+            noise_au: a.noise_au,
+            pathlength_cm: a.pathlength_cm,
+        })
+    }
+}
+
 /// Run a library subcommand.
 pub fn run(cmd: Command) -> Result<u8, Failure> {
     match cmd {
         Command::Add(a) => add(a),
         Command::List(a) => list(a),
         Command::Show(a) => show(a),
+        Command::Check(a) => check(a),
     }
 }
 
@@ -175,9 +237,25 @@ fn show(a: ShowArgs) -> Result<u8, Failure> {
     let set = lib.select(std::slice::from_ref(&a.name))?;
     let c = &set.components[0];
     if a.csv {
-        println!("wavelength_nm,epsilon");
-        for (w, e) in c.grid.wavelengths_nm().iter().zip(&c.epsilon_l_per_mol_cm) {
-            println!("{w},{e}");
+        match &c.epsilon_std_error_l_per_mol_cm {
+            None => {
+                println!("wavelength_nm,epsilon");
+                for (w, e) in c.grid.wavelengths_nm().iter().zip(&c.epsilon_l_per_mol_cm) {
+                    println!("{w},{e}");
+                }
+            }
+            Some(se) => {
+                println!("wavelength_nm,epsilon,std_error");
+                for ((w, e), s) in c
+                    .grid
+                    .wavelengths_nm()
+                    .iter()
+                    .zip(&c.epsilon_l_per_mol_cm)
+                    .zip(se)
+                {
+                    println!("{w},{e},{s}");
+                }
+            }
         }
         return Ok(exit::OK);
     }
@@ -227,6 +305,33 @@ fn show(a: ShowArgs) -> Result<u8, Failure> {
     if let Some(n) = &c.note {
         println!("note:        {n}");
     }
+    if let Some(k) = c.calibration() {
+        println!(
+            "calibration: {} standards at {} concentrations ({} blanks), {} cm, {}",
+            k.n_standards, k.n_levels, k.n_blanks, k.pathlength_cm, k.date
+        );
+        println!(
+            "             calibrated range {:.4e} to {:.4e} mol/L, up to {:.3} AU",
+            k.concentration_min_mol_per_l, k.concentration_max_mol_per_l, k.max_absorbance_au
+        );
+        println!(
+            "             at {} nm: R² {:.5}, intercept {:.5} ± {:.5} AU (p = {:.3})",
+            k.band_max_nm,
+            k.r_squared_at_band_max,
+            k.intercept_at_band_max_au,
+            k.intercept_std_error_at_band_max_au,
+            k.intercept_p_value
+        );
+        for e in &k.excluded_standards {
+            println!("             left out {}: {}", e.sample, e.reason);
+        }
+        for e in &k.excluded_wavelengths {
+            println!(
+                "             left out {}–{} nm: {}",
+                e.range_nm[0], e.range_nm[1], e.reason
+            );
+        }
+    }
     println!("\nε at every 50 nm (L/(mol·cm)):");
     let mut w = (lo / 50.0).ceil() * 50.0;
     while w <= hi {
@@ -240,6 +345,159 @@ fn show(a: ShowArgs) -> Result<u8, Failure> {
         c.name
     );
     Ok(exit::OK)
+}
+
+fn check(a: CheckArgs) -> Result<u8, Failure> {
+    let options = CheckOptions::try_from(&a)?;
+    let dir = library_dir(a.library.clone());
+    let lib = Library::open(&dir)?;
+    let refs = lib.select(&a.components)?;
+    let report = separability::check(&refs, &options)?;
+    for w in &report.warnings {
+        eprintln!("unblend: warning: {w}");
+    }
+    match a.format {
+        ReportFormat::Json => {
+            let text = serde_json::to_string_pretty(&report)
+                .map_err(|e| Failure::new(format!("json: {e}")))?;
+            print_stdout(&format!("{text}\n"))?;
+        }
+        ReportFormat::Table => print_check(&report)?,
+    }
+    Ok(exit::OK)
+}
+
+/// A display unit for concentrations of about `typical` mol/L.
+fn concentration_unit(typical: f64) -> (&'static str, f64) {
+    for (label, factor) in [
+        ("mol/L", 1.0),
+        ("mmol/L", 1e3),
+        ("µmol/L", 1e6),
+        ("nmol/L", 1e9),
+    ] {
+        if typical * factor >= 0.1 {
+            return (label, factor);
+        }
+    }
+    ("nmol/L", 1e9)
+}
+
+fn print_check(r: &CheckReport) -> Result<(), Failure> {
+    let mut out = String::new();
+    macro_rules! say {
+        ($($t:tt)*) => {{
+            out.push_str(&format!($($t)*));
+            out.push('\n');
+        }};
+    }
+    let fmt_cond = |c: Option<f64>| c.map_or("infinite".into(), |c| format!("{c:.3}"));
+    say!("reference set: {}", r.components.join(", "));
+    say!(
+        "range {}–{} nm, {} readings {} nm apart, baseline {}, pathlength {} cm, noise {} AU per reading",
+        r.range_nm[0],
+        r.range_nm[1],
+        r.n_points,
+        r.step_nm,
+        r.baseline,
+        r.pathlength_cm,
+        r.noise_au
+    );
+    say!(
+        "condition number {} (columns scaled to unit length; fit would solve with {})",
+        fmt_cond(r.condition_number),
+        r.solver
+    );
+    let smallest = r
+        .per_component
+        .iter()
+        .filter_map(|c| c.std_error_mol_per_l)
+        .fold(f64::INFINITY, f64::min);
+    let (unit, factor) = concentration_unit(if smallest.is_finite() { smallest } else { 1e-6 });
+    let cell = |v: Option<f64>| v.map_or("-".into(), |v| sig(v * factor));
+    let mut rows = vec![vec![
+        "component".to_string(),
+        "VIF".into(),
+        format!("SE ({unit})"),
+        format!("LOD 3.3σ ({unit})"),
+        format!("LOQ 10σ ({unit})"),
+        "LOQ (mg/L)".into(),
+        format!("calibrated up to ({unit})"),
+    ]];
+    for c in &r.per_component {
+        rows.push(vec![
+            c.name.clone(),
+            c.vif.map_or("infinite".into(), |v| format!("{v:.2}")),
+            cell(c.std_error_mol_per_l),
+            cell(c.lod_mol_per_l),
+            cell(c.loq_mol_per_l),
+            c.loq_mg_per_l.map_or("-".into(), sig),
+            cell(c.calibrated_max_mol_per_l),
+        ]);
+    }
+    say!("");
+    out.push_str(&format_aligned(&rows));
+    if !r.pairs.is_empty() {
+        say!("");
+        let mut pairs: Vec<_> = r.pairs.iter().collect();
+        pairs.sort_by(|a, b| b.cosine.total_cmp(&a.cosine));
+        let mut rows = vec![vec![
+            "pair".to_string(),
+            "cosine".into(),
+            "after baseline".into(),
+            "pair VIF".into(),
+            "separable".into(),
+        ]];
+        for p in pairs {
+            rows.push(vec![
+                format!("{} / {}", p.a, p.b),
+                format!("{:.4}", p.cosine),
+                p.cosine_after_baseline
+                    .map_or("-".into(), |c| format!("{c:.4}")),
+                p.variance_inflation
+                    .map_or("infinite".into(), |v| format!("{v:.2}")),
+                if p.collinear {
+                    "no: collinear".into()
+                } else {
+                    "yes".into()
+                },
+            ]);
+        }
+        out.push_str(&format_aligned(&rows));
+    }
+    let whole_is_best = r.best_range.as_ref().is_some_and(|b| {
+        (b.range_nm[0] - r.range_nm[0]).abs() < 1e-9 && (b.range_nm[1] - r.range_nm[1]).abs() < 1e-9
+    });
+    if whole_is_best {
+        say!(
+            "\nbest conditioning: the whole range (no window at least {:.0} nm wide is better conditioned)",
+            r.best_range.as_ref().map_or(0.0, |b| b.min_width_nm)
+        );
+    } else if let Some(b) = &r.best_range {
+        say!(
+            "\nbest conditioning over windows at least {:.0} nm wide: {}–{} nm (condition {:.3} with the columns scaled as over the whole range, vs {} over {}–{} nm; {} there on its own scaling)",
+            b.min_width_nm,
+            b.range_nm[0],
+            b.range_nm[1],
+            b.scan_condition_number,
+            fmt_cond(r.condition_number),
+            r.range_nm[0],
+            r.range_nm[1],
+            fmt_cond(b.condition_number)
+        );
+        say!(
+            "(more wavelengths never raise the predicted errors at constant noise; a better-conditioned range is less sensitive to errors in the references)"
+        );
+    }
+    say!("");
+    if r.warnings.is_empty() {
+        say!("verdict: separable over this range (no collinear pairs)");
+    } else {
+        say!(
+            "verdict: {} warning(s), printed on standard error",
+            r.warnings.len()
+        );
+    }
+    print_stdout(&out)
 }
 
 fn peak(c: &Component) -> (f64, f64) {
@@ -258,6 +516,12 @@ fn hex(bytes: &[u8]) -> String {
 
 /// Print rows as a left-aligned table (first row is the header).
 pub fn print_aligned(rows: &[Vec<String>]) {
+    print!("{}", format_aligned(rows));
+}
+
+/// Format rows as a left-aligned table (first row is the header, then a
+/// rule).
+pub fn format_aligned(rows: &[Vec<String>]) -> String {
     let ncol = rows.iter().map(Vec::len).max().unwrap_or(0);
     let mut width = vec![0; ncol];
     for r in rows {
@@ -265,16 +529,20 @@ pub fn print_aligned(rows: &[Vec<String>]) {
             width[i] = width[i].max(c.chars().count());
         }
     }
+    let mut out = String::new();
     for (k, r) in rows.iter().enumerate() {
         let mut s = String::new();
         for (i, c) in r.iter().enumerate() {
             s.push_str(c);
             s.push_str(&" ".repeat(width[i] - c.chars().count() + 2));
         }
-        println!("{}", s.trim_end());
+        out.push_str(s.trim_end());
+        out.push('\n');
         if k == 0 {
             let rule: Vec<String> = width.iter().map(|w| "-".repeat(*w)).collect();
-            println!("{}", rule.join("  "));
+            out.push_str(&rule.join("  "));
+            out.push('\n');
         }
     }
+    out
 }

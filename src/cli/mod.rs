@@ -5,7 +5,10 @@
 //! `TryFrom`, so the engine never depends on clap.
 
 pub mod batch;
+pub mod calibrate;
 pub mod demo;
+pub mod diagnostic_args;
+pub mod discover;
 pub mod fit;
 pub mod library;
 
@@ -47,11 +50,15 @@ enum Command {
     Fit(fit::Args),
     /// Fit plate-reader runs: plate maps, blanks, pathlengths, dilutions, replicates.
     Batch(batch::Args),
-    /// Add, list and show reference components.
+    /// Add, list, show and check reference components.
     #[command(subcommand)]
     Library(library::Command),
+    /// Make a reference component from a blank and a series of standards.
+    Calibrate(calibrate::Args),
     /// Run the fit on the built-in demo data (an invented ink workshop).
     Demo(demo::Args),
+    /// Recover the spectrum of an unknown absorber shared by flagged samples.
+    Discover(discover::Args),
 }
 
 /// An error for the user, with the exit code it should give.
@@ -107,7 +114,9 @@ pub fn run(cli: Cli) -> Result<u8, Failure> {
         Command::Fit(a) => fit::run(a),
         Command::Batch(a) => batch::run(a),
         Command::Library(c) => library::run(c),
+        Command::Calibrate(a) => calibrate::run(a),
         Command::Demo(a) => demo::run(a),
+        Command::Discover(a) => discover::run(a),
     }
 }
 

@@ -3,6 +3,7 @@
 //! In: bytes of CSV files. Out: validated spectra ([`spectra`]) and molar
 //! absorptivity tables ([`epsilon`]). Parsers never solve anything.
 
+pub mod concentrations;
 pub mod epsilon;
 pub mod fields;
 pub mod plate;

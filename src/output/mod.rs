@@ -3,6 +3,7 @@
 //! always mol/L (mg/L beside them where the molar mass is known).
 
 pub mod batch;
+pub mod notes;
 
 use crate::fit::{FailedSample, FitReport, Outcome, SampleResult};
 use rayon::prelude::*;
@@ -82,8 +83,9 @@ pub fn write(report: &FitReport, format: Format, w: &mut dyn Write) -> io::Resul
     }
 }
 
-/// Column names of the tidy CSV.
-pub const CSV_HEADER: &str = "sample,component,concentration_mol_per_l,std_error_mol_per_l,concentration_mg_per_l,std_error_mg_per_l,mole_fraction,mass_fraction,baseline_offset_au,baseline_slope_au_per_nm,residual_rms_au,r_squared,range_low_nm,range_high_nm,n_points,pathlength_cm,solver,flags,error";
+/// Column names of the tidy CSV; the residual-check columns (from
+/// `noise_au` on, see [`notes`]) come after `error`.
+pub const CSV_HEADER: &str = "sample,component,concentration_mol_per_l,std_error_mol_per_l,concentration_mg_per_l,std_error_mg_per_l,mole_fraction,mass_fraction,baseline_offset_au,baseline_slope_au_per_nm,residual_rms_au,r_squared,range_low_nm,range_high_nm,n_points,pathlength_cm,solver,flags,error,noise_au,reduced_chi_squared,durbin_watson,alarm_p_value,band_centre_nm,band_fwhm_nm,band_peak_au,band_signal_fraction,n_masked,screen_candidate,screen_concentration_mol_per_l,screen_p_value";
 
 /// Quote a CSV field when it needs it.
 pub fn csv_field(s: &str) -> std::borrow::Cow<'_, str> {
@@ -113,9 +115,13 @@ fn csv_rows(o: &Outcome, out: &mut String) {
             out.push_str(&csv_field(&f.sample));
             out.push_str(&",".repeat(18));
             out.push_str(&csv_field(&f.error));
+            out.push_str(&",".repeat(notes::CSV_EXTRA_COLUMNS));
             out.push('\n');
         }
         Outcome::Fitted(s) => {
+            // The residual-check columns are the same on every row of a sample.
+            let mut extra = String::new();
+            notes::csv_extra(s, &mut extra);
             for c in &s.components {
                 out.push_str(&csv_field(&s.sample));
                 out.push(',');
@@ -152,7 +158,9 @@ fn csv_rows(o: &Outcome, out: &mut String) {
                 out.push_str(&s.solver);
                 out.push(',');
                 out.push_str(&s.flags.join(" "));
-                out.push_str(",\n");
+                out.push(',');
+                out.push_str(&extra);
+                out.push('\n');
             }
         }
     }
@@ -317,6 +325,7 @@ pub fn write_table(report: &FitReport, w: &mut dyn Write) -> io::Result<()> {
             first.range_nm[0], first.range_nm[1], first.n_points, first.pathlength_cm, first.solver
         )?;
     }
+    notes::write_notes(report, &unit, w)?;
     if !errors.is_empty() {
         writeln!(w, "\nnot fitted:")?;
         for e in errors {

@@ -22,12 +22,23 @@
 //! file = "fjord-blue.csv"
 //! sha256 = "…"
 //!
+//! [calibration]                        # only when made by `unblend calibrate`
+//! date = "2026-12-01"
+//! concentration_max_mol_per_l = 1e-4    # the calibrated range: fit flags
+//! max_absorbance_au = 0.93              # concentrations above it
+//! …                                     # see [`Calibration`]
+//!
 //! [absorptivity]
 //! # wavelength_nm, epsilon_l_per_mol_cm [, std_error_l_per_mol_cm]
 //! points = [
 //!   [400, 1234.5],
 //! ]
 //! ```
+//!
+//! The `[calibration]` table is additive: files without it read as before,
+//! and it is kept in [`Component::extra`] so a component written by an older
+//! build keeps it on rewrite. It is checked when the file is read and parsed
+//! into a [`Calibration`] by [`Component::calibration`].
 
 use crate::error::{Error, Result};
 use crate::spectrum::Grid;
@@ -63,6 +74,145 @@ pub struct Source {
     /// SHA-256 of that file, hex.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub sha256: Option<String>,
+}
+
+/// The key of the calibration table in a component file.
+pub const CALIBRATION_TABLE: &str = "calibration";
+
+/// How a component was calibrated from standards: provenance, the range the
+/// calibration covers, and its fit statistics. Stored as the `[calibration]`
+/// table of the component file. Statistics "at the band maximum" are those of
+/// the straight line A − A_blank = ε·l·c + b at the wavelength where ε is
+/// largest.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct Calibration {
+    /// Date of the calibration (YYYY-MM-DD, UTC).
+    pub date: String,
+    /// The spectra file of the standards, as given.
+    pub standards_file: String,
+    /// SHA-256 of the spectra file, hex.
+    pub standards_sha256: String,
+    /// The concentration file, as given.
+    pub concentrations_file: String,
+    /// SHA-256 of the concentration file, hex.
+    pub concentrations_sha256: String,
+    /// The unit the concentrations were given in (converted to mol/L).
+    pub concentration_unit: String,
+    /// Optical pathlength of the standards, cm.
+    pub pathlength_cm: f64,
+    /// Standards used in the final fit (replicates counted).
+    pub n_standards: usize,
+    /// Distinct concentrations among them.
+    pub n_levels: usize,
+    /// Blanks averaged and subtracted (0: none; the intercept then carries
+    /// the solvent and cell).
+    pub n_blanks: usize,
+    /// Lowest standard concentration used, mol/L.
+    pub concentration_min_mol_per_l: f64,
+    /// Highest standard concentration used, mol/L: the top of the calibrated
+    /// range.
+    pub concentration_max_mol_per_l: f64,
+    /// Highest blank-subtracted absorbance used, AU.
+    pub max_absorbance_au: f64,
+    /// Wavelength of the largest ε, nm.
+    pub band_max_nm: f64,
+    /// ε at the band maximum, L·mol⁻¹·cm⁻¹.
+    pub epsilon_at_band_max_l_per_mol_cm: f64,
+    /// Its standard error, L·mol⁻¹·cm⁻¹.
+    pub epsilon_std_error_at_band_max_l_per_mol_cm: f64,
+    /// Coefficient of determination of the line at the band maximum.
+    pub r_squared_at_band_max: f64,
+    /// Residual standard deviation of the line at the band maximum, AU.
+    pub residual_sd_at_band_max_au: f64,
+    /// Intercept of the line at the band maximum, AU.
+    pub intercept_at_band_max_au: f64,
+    /// Its standard error as a distance from the mean blank, AU:
+    /// s·√(1/n + x̄²/Sxx + 1/n_blanks).
+    pub intercept_std_error_at_band_max_au: f64,
+    /// Two-sided p-value of the t test of intercept = 0 at the band maximum.
+    pub intercept_p_value: f64,
+    /// Relative deviation from the line of the lower standards beyond which
+    /// a standard or wavelength counts as non-linear.
+    pub linearity_tolerance: f64,
+    /// Readings above this absorbance (AU) were not used.
+    pub absorbance_ceiling_au: f64,
+    /// The wavelength range the curve covers, nm: [low, high].
+    pub range_nm: [f64; 2],
+    /// Lack-of-fit F test at the band maximum (needs replicates and three or
+    /// more concentrations).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub lack_of_fit: Option<LackOfFit>,
+    /// Standards left out, with the reason.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub excluded_standards: Vec<ExcludedStandard>,
+    /// Wavelength ranges left out, with the reason.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub excluded_wavelengths: Vec<ExcludedWavelengths>,
+}
+
+/// The lack-of-fit F test: does the straight line miss the replicate means
+/// by more than the replicates scatter?
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct LackOfFit {
+    /// F = (SS_lack / df_lack) / (SS_pure / df_pure).
+    pub f_statistic: f64,
+    /// Degrees of freedom of lack of fit (levels − 2).
+    pub df_lack_of_fit: usize,
+    /// Degrees of freedom of pure error (standards − levels).
+    pub df_pure_error: usize,
+    /// Upper-tail p-value of F.
+    pub p_value: f64,
+}
+
+/// A standard that was not used.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct ExcludedStandard {
+    /// Sample identifier.
+    pub sample: String,
+    /// Its concentration, mol/L.
+    pub concentration_mol_per_l: f64,
+    /// Why it was left out.
+    pub reason: String,
+}
+
+/// A run of wavelengths that was not used.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct ExcludedWavelengths {
+    /// First and last wavelength of the run, nm.
+    pub range_nm: [f64; 2],
+    /// Why they were left out.
+    pub reason: String,
+}
+
+impl Calibration {
+    /// Check the values a reader relies on.
+    pub fn validate(&self) -> std::result::Result<(), String> {
+        let positive = [
+            ("pathlength_cm", self.pathlength_cm),
+            (
+                "concentration_max_mol_per_l",
+                self.concentration_max_mol_per_l,
+            ),
+        ];
+        for (key, v) in positive {
+            if !(v.is_finite() && v > 0.0) {
+                return Err(format!("{key} = {v}: expected a positive number"));
+            }
+        }
+        if !(self.concentration_min_mol_per_l.is_finite()
+            && self.concentration_min_mol_per_l >= 0.0
+            && self.concentration_min_mol_per_l <= self.concentration_max_mol_per_l)
+        {
+            return Err(format!(
+                "concentration_min_mol_per_l = {}: expected 0 to concentration_max_mol_per_l",
+                self.concentration_min_mol_per_l
+            ));
+        }
+        if !self.max_absorbance_au.is_finite() {
+            return Err("max_absorbance_au: expected a finite number of AU".into());
+        }
+        Ok(())
+    }
 }
 
 /// A reference component: a named molar absorptivity curve with provenance.
@@ -258,6 +408,14 @@ impl Component {
             }
         }
         let grid = Grid::new(w).map_err(|x| bad(format!("[absorptivity]: {x}")))?;
+        if let Some(v) = raw.extra.get(CALIBRATION_TABLE) {
+            let cal: Calibration = v
+                .clone()
+                .try_into()
+                .map_err(|e: toml::de::Error| bad(format!("[calibration]: {}", e.message())))?;
+            cal.validate()
+                .map_err(|e| bad(format!("[calibration]: {e}")))?;
+        }
         if e.iter().all(|&x| x <= 0.0) {
             return Err(bad(
                 "every ε value is zero: a reference must absorb somewhere".into(),
@@ -329,6 +487,23 @@ impl Component {
         }
         out.push_str("]\n");
         out
+    }
+
+    /// The calibration this component was made from, when it has one. The
+    /// table was checked when the file was read; `None` also when it was
+    /// replaced in memory by something that does not parse.
+    pub fn calibration(&self) -> Option<Calibration> {
+        self.extra
+            .get(CALIBRATION_TABLE)
+            .and_then(|v| v.clone().try_into().ok())
+    }
+
+    /// Attach a calibration (written as the `[calibration]` table).
+    pub fn set_calibration(&mut self, calibration: &Calibration) -> Result<()> {
+        let value = toml::Value::try_from(calibration)
+            .map_err(|e| Error::Invalid(format!("calibration table: {e}")))?;
+        self.extra.insert(CALIBRATION_TABLE.to_string(), value);
+        Ok(())
     }
 
     /// Lowest and highest wavelength of the curve, nm.
@@ -429,6 +604,93 @@ mod tests {
         let c = Component::from_toml(&text, "t.toml").unwrap();
         assert!(c.extra.contains_key("future"));
         assert!(c.to_toml().contains("[future]"));
+    }
+
+    fn calibration() -> Calibration {
+        Calibration {
+            date: "2026-12-01".into(),
+            standards_file: "std.csv".into(),
+            standards_sha256: "aa".into(),
+            concentrations_file: "conc.csv".into(),
+            concentrations_sha256: "bb".into(),
+            concentration_unit: "umol/L".into(),
+            pathlength_cm: 1.0,
+            n_standards: 6,
+            n_levels: 5,
+            n_blanks: 2,
+            concentration_min_mol_per_l: 1e-5,
+            concentration_max_mol_per_l: 1e-4,
+            max_absorbance_au: 0.93,
+            band_max_nm: 450.5,
+            epsilon_at_band_max_l_per_mol_cm: 12345.678,
+            epsilon_std_error_at_band_max_l_per_mol_cm: 12.5,
+            r_squared_at_band_max: 0.9999,
+            residual_sd_at_band_max_au: 0.001,
+            intercept_at_band_max_au: -0.0004,
+            intercept_std_error_at_band_max_au: 0.0007,
+            intercept_p_value: 0.6,
+            linearity_tolerance: 0.05,
+            absorbance_ceiling_au: 2.0,
+            range_nm: [400.0, 500.0],
+            lack_of_fit: Some(LackOfFit {
+                f_statistic: 1.2,
+                df_lack_of_fit: 3,
+                df_pure_error: 1,
+                p_value: 0.55,
+            }),
+            excluded_standards: vec![ExcludedStandard {
+                sample: "std-6".into(),
+                concentration_mol_per_l: 2e-4,
+                reason: "bends".into(),
+            }],
+            excluded_wavelengths: vec![ExcludedWavelengths {
+                range_nm: [390.0, 399.0],
+                reason: "blank above 2 AU".into(),
+            }],
+        }
+    }
+
+    #[test]
+    fn calibration_table_round_trips() {
+        let mut c = sample();
+        c.set_calibration(&calibration()).unwrap();
+        c.epsilon_std_error_l_per_mol_cm = Some(vec![1.0, 2.0, 3.0]);
+        let text = c.to_toml();
+        assert!(text.contains("[calibration]"), "{text}");
+        let back = Component::from_toml(&text, "t.toml").unwrap();
+        assert_eq!(back.calibration(), Some(calibration()));
+        assert_eq!(
+            back.epsilon_std_error_l_per_mol_cm,
+            Some(vec![1.0, 2.0, 3.0])
+        );
+    }
+
+    #[test]
+    fn file_without_calibration_reads_as_uncalibrated() {
+        let back = Component::from_toml(&sample().to_toml(), "t.toml").unwrap();
+        assert!(back.calibration().is_none());
+    }
+
+    #[test]
+    fn malformed_calibration_table_is_refused() {
+        let mut c = sample();
+        let mut cal = calibration();
+        cal.concentration_max_mol_per_l = -1.0;
+        c.set_calibration(&cal).unwrap();
+        let e = Component::from_toml(&c.to_toml(), "t.toml").unwrap_err();
+        assert!(
+            e.to_string().contains("[calibration]: concentration_max"),
+            "{e}"
+        );
+        let text = sample().to_toml().replace(
+            "[absorptivity]",
+            "[calibration]\ndate = \"x\"\n\n[absorptivity]",
+        );
+        let e = Component::from_toml(&text, "t.toml").unwrap_err();
+        assert!(
+            e.to_string().contains("[calibration]: missing field"),
+            "{e}"
+        );
     }
 
     #[test]

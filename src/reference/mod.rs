@@ -8,5 +8,5 @@
 pub mod component;
 pub mod store;
 
-pub use component::{Component, Conditions, Source};
+pub use component::{Calibration, Component, Conditions, Source};
 pub use store::{Library, ReferenceSet};

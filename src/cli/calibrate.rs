@@ -1,0 +1,411 @@
+//! `unblend calibrate`: a reference component from a blank and standards.
+
+use super::fit::{QuantityArg, read_input};
+use super::{Failure, exit, library_dir, parse_positive, parse_range_nm};
+use crate::calibrate::{
+    self, ABSORBANCE_CEILING_AU, CalibrationOptions, CalibrationResult, LINEARITY_TOLERANCE,
+    Provenance,
+};
+use crate::input::concentrations::{self, ConcentrationUnit};
+use crate::input::spectra::{self, ReadOptions};
+use crate::reference::{Calibration, Conditions, Library};
+use clap::ValueEnum;
+use serde::Serialize;
+use sha2::{Digest, Sha256};
+use std::io::Write;
+use std::path::{Path, PathBuf};
+
+const AFTER_HELP: &str = "\
+Concentration file: CSV `sample,concentration[,role][,unit][,note]`, one row per spectrum in INPUT.
+  Blanks have concentration 0 or role `blank`; role `exclude` leaves a spectrum out.
+  Rows that share a concentration are replicates. The unit may also be in the header
+  (`concentration_umol_per_l`) or the cells (`12.5 umol/L`); all statements must agree.
+
+Exit codes:
+  0  success: the component was written (or, with --dry-run, would be)
+  1  failure: nothing was written (bad file, unmatched samples, too few standards, ...)
+  2  command-line usage error
+  3  partial: some standards could not be read and were left out (named on stderr)
+
+Results are decision support, not a certified analysis.";
+
+/// Fit ε(λ) per wavelength from a blank and standards: A − A_blank = ε·l·c + b.
+#[derive(Debug, clap::Args)]
+#[command(after_help = AFTER_HELP)]
+pub struct Args {
+    /// Spectra of the blanks and standards (wide or long layout, as for `fit`); `-` reads standard input.
+    pub input: PathBuf,
+    /// CSV naming each standard's concentration: `sample,concentration[,role]`.
+    #[arg(long, value_name = "FILE")]
+    pub concentrations: PathBuf,
+    /// Name of the new component (letters, digits, '-', '_', '.'); written as NAME.toml.
+    #[arg(long)]
+    pub name: String,
+    /// Library folder to write into [default: $UNBLEND_LIBRARY or ./library].
+    #[arg(long, value_name = "DIR")]
+    pub library: Option<PathBuf>,
+    /// Optical pathlength of the standards' cell, cm.
+    #[arg(long, default_value = "1", value_parser = parse_positive, value_name = "CM")]
+    pub pathlength_cm: f64,
+    /// Molar mass in g/mol (needed for mg/L and g/L; enables mg/L results).
+    #[arg(long, value_parser = parse_positive, value_name = "G_PER_MOL")]
+    pub molar_mass: Option<f64>,
+    /// Unit of the concentrations: mol/L, mmol/L, umol/L, mg/L or g/L [default: as the file says, else mol/L].
+    #[arg(long, value_parser = parse_unit, value_name = "UNIT")]
+    pub unit: Option<ConcentrationUnit>,
+    /// What the numbers in INPUT are.
+    #[arg(long, value_enum, default_value_t = QuantityArg::Absorbance)]
+    pub quantity: QuantityArg,
+    /// Use only wavelengths in LO:HI nm [default: every wavelength in INPUT].
+    #[arg(long, value_parser = parse_range_nm, value_name = "LO:HI")]
+    pub range_nm: Option<(f64, f64)>,
+    /// Relative deviation from the line of the lower standards that counts as non-linear (fraction).
+    #[arg(long, default_value_t = LINEARITY_TOLERANCE, value_parser = parse_positive, value_name = "FRACTION")]
+    pub linearity_tolerance: f64,
+    /// Readings above this absorbance are not used (stray light), AU.
+    #[arg(long, default_value_t = ABSORBANCE_CEILING_AU, value_parser = parse_positive, value_name = "AU")]
+    pub max_absorbance_au: f64,
+    /// Free-text note kept with the component.
+    #[arg(long, value_name = "TEXT")]
+    pub note: Option<String>,
+    /// Solvent or buffer of the standards.
+    #[arg(long, value_name = "TEXT")]
+    pub solvent: Option<String>,
+    /// pH of the standards.
+    #[arg(long, value_name = "TEXT")]
+    pub ph: Option<String>,
+    /// Temperature of the standards, with its unit (e.g. "25 °C").
+    #[arg(long, value_name = "TEXT")]
+    pub temperature: Option<String>,
+    /// Overwrite an existing component of the same name.
+    #[arg(long)]
+    pub replace: bool,
+    /// Report only: do not write the component.
+    #[arg(long)]
+    pub dry_run: bool,
+    /// Write the line at every wavelength (ε, standard errors, intercept, R², …) as CSV to FILE.
+    #[arg(long, value_name = "FILE")]
+    pub out: Option<PathBuf>,
+    /// Format of the summary on standard output.
+    #[arg(long, value_enum, default_value_t = ReportFormat::Table)]
+    pub format: ReportFormat,
+}
+
+/// Format of a summary report (`calibrate`, `library check`).
+#[derive(Debug, Clone, Copy, ValueEnum, PartialEq, Eq)]
+pub enum ReportFormat {
+    /// Aligned text for the terminal.
+    Table,
+    /// JSON document.
+    Json,
+}
+
+/// The JSON document printed by `calibrate --format json`.
+#[derive(Debug, Serialize)]
+pub struct Summary<'a> {
+    /// Tool name and version.
+    pub tool: crate::output::ToolInfo,
+    /// The component's name.
+    pub component: &'a str,
+    /// The component file written (absent with --dry-run).
+    pub file: Option<String>,
+    /// The calibration table, as written into the component file.
+    pub calibration: &'a Calibration,
+    /// Standards whose spectra could not be read.
+    pub unreadable: &'a [calibrate::UnreadableStandard],
+    /// Warnings.
+    pub warnings: &'a [String],
+}
+
+fn parse_unit(s: &str) -> Result<ConcentrationUnit, String> {
+    ConcentrationUnit::parse(s).ok_or_else(|| {
+        format!("'{s}': expected a concentration unit: mol/L, mmol/L, umol/L, mg/L or g/L")
+    })
+}
+
+impl TryFrom<&Args> for CalibrationOptions {
+    type Error = Failure;
+    fn try_from(a: &Args) -> Result<Self, Failure> {
+        Ok(CalibrationOptions {
+            pathlength_cm: a.pathlength_cm,
+            window_nm: a.range_nm,
+            linearity_tolerance: a.linearity_tolerance,
+            absorbance_ceiling_au: a.max_absorbance_au,
+        })
+    }
+}
+
+/// Run `unblend calibrate`.
+pub fn run(args: Args) -> Result<u8, Failure> {
+    crate::reference::component::validate_name(&args.name)?;
+    let options = CalibrationOptions::try_from(&args)?;
+    let shown = shown(&args.input);
+    let bytes = read_input(&args.input)?;
+    let file = spectra::read(
+        &bytes,
+        ReadOptions {
+            quantity: args.quantity.into(),
+        },
+    )
+    .map_err(|e| Failure::new(format!("{shown}: {e}")))?;
+    let conc_shown = args.concentrations.display().to_string();
+    let conc_bytes = std::fs::read(&args.concentrations)
+        .map_err(|e| Failure::new(format!("{conc_shown}: {e}")))?;
+    let table = concentrations::read(&conc_bytes, args.unit)
+        .map_err(|e| Failure::new(format!("{conc_shown}: {e}")))?;
+    let standards = table
+        .standards(args.molar_mass)
+        .map_err(|e| Failure::new(format!("{conc_shown}: {e}")))?;
+    let provenance = Provenance {
+        standards_file: file_name(&args.input),
+        standards_sha256: hex(&Sha256::digest(&bytes)),
+        concentrations_file: file_name(&args.concentrations),
+        concentrations_sha256: hex(&Sha256::digest(&conc_bytes)),
+        concentration_unit: table.unit.label().into(),
+        date: crate::dates::today_utc(),
+    };
+    let mut result = calibrate::calibrate(&file, &standards, &options, &provenance)?;
+    if table.unit_stated_by.is_none() {
+        result.warnings.insert(
+            0,
+            "no concentration unit given: read as mol/L (state it with --unit or in the header, e.g. `concentration_umol_per_l`)".into(),
+        );
+    }
+    let component = result.component(
+        &args.name,
+        args.molar_mass,
+        args.note.clone(),
+        Conditions {
+            solvent: args.solvent.clone(),
+            ph: args.ph.clone(),
+            temperature: args.temperature.clone(),
+        },
+    )?;
+    let written = if args.dry_run {
+        None
+    } else {
+        let dir = library_dir(args.library.clone());
+        Some(Library::add(&dir, &component, args.replace)?)
+    };
+    if let Some(path) = &args.out {
+        crate::atomic::write_with(path, false, |w| write_wavelengths(&result, w))?;
+    }
+    for w in &result.warnings {
+        eprintln!("unblend: warning: {w}");
+    }
+    match args.format {
+        ReportFormat::Json => {
+            let summary = Summary {
+                tool: crate::output::ToolInfo {
+                    name: "unblend".into(),
+                    version: env!("CARGO_PKG_VERSION").into(),
+                },
+                component: &args.name,
+                file: written.as_ref().map(|p| p.display().to_string()),
+                calibration: &result.calibration,
+                unreadable: &result.unreadable,
+                warnings: &result.warnings,
+            };
+            let text = serde_json::to_string_pretty(&summary)
+                .map_err(|e| Failure::new(format!("json: {e}")))?;
+            print_stdout(&format!("{text}\n"))?;
+        }
+        ReportFormat::Table => print_summary(&args, &table.unit, &result, written.as_deref())?,
+    }
+    Ok(if result.unreadable.is_empty() {
+        exit::OK
+    } else {
+        exit::PARTIAL
+    })
+}
+
+/// Write text to standard output; a reader that went away (a closed pipe)
+/// is not an error.
+pub(crate) fn print_stdout(text: &str) -> Result<(), Failure> {
+    let mut lock = std::io::stdout().lock();
+    match lock.write_all(text.as_bytes()).and_then(|_| lock.flush()) {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => {
+            Err(Failure::new(format!("standard output: {e}")))
+        }
+        _ => Ok(()),
+    }
+}
+
+fn shown(path: &Path) -> String {
+    if path.as_os_str() == "-" {
+        "standard input".into()
+    } else {
+        path.display().to_string()
+    }
+}
+
+fn file_name(path: &Path) -> String {
+    if path.as_os_str() == "-" {
+        return "standard input".into();
+    }
+    path.file_name()
+        .map(|s| s.to_string_lossy().into_owned())
+        .unwrap_or_else(|| path.display().to_string())
+}
+
+fn hex(bytes: &[u8]) -> String {
+    bytes.iter().map(|b| format!("{b:02x}")).collect()
+}
+
+/// A concentration in mol/L shown in the unit the user gave.
+fn in_unit(v_mol_per_l: f64, unit: &ConcentrationUnit, molar_mass: Option<f64>) -> String {
+    let factor = match unit {
+        ConcentrationUnit::MolPerL => Some(1.0),
+        ConcentrationUnit::MmolPerL => Some(1e3),
+        ConcentrationUnit::UmolPerL => Some(1e6),
+        ConcentrationUnit::MgPerL => molar_mass.map(|m| m * 1e3),
+        ConcentrationUnit::GPerL => molar_mass,
+    };
+    match factor {
+        Some(f) => format!("{} {}", sig(v_mol_per_l * f), unit.label()),
+        None => format!("{v_mol_per_l:.4e} mol/L"),
+    }
+}
+
+/// Four significant figures without an exponent for everyday magnitudes.
+pub(crate) fn sig(v: f64) -> String {
+    if v.abs() < f64::MIN_POSITIVE || (1e-3..1e6).contains(&v.abs()) {
+        let digits = (3 - v.abs().log10().floor() as i32).clamp(0, 6) as usize;
+        format!("{v:.digits$}")
+    } else {
+        format!("{v:.3e}")
+    }
+}
+
+fn print_summary(
+    args: &Args,
+    unit: &ConcentrationUnit,
+    result: &CalibrationResult,
+    written: Option<&Path>,
+) -> Result<(), Failure> {
+    let mut out = String::new();
+    macro_rules! say {
+        ($($t:tt)*) => {{
+            out.push_str(&format!($($t)*));
+            out.push('\n');
+        }};
+    }
+    let c = &result.calibration;
+    let m = args.molar_mass;
+    let used = result
+        .wavelengths
+        .iter()
+        .filter(|w| w.excluded.is_none())
+        .count();
+    say!(
+        "calibrated '{}' from {} standards at {} concentrations ({} blank{} subtracted), pathlength {} cm",
+        args.name,
+        c.n_standards,
+        c.n_levels,
+        c.n_blanks,
+        if c.n_blanks == 1 { "" } else { "s" },
+        c.pathlength_cm
+    );
+    say!(
+        "  concentrations  {} to {}",
+        in_unit(c.concentration_min_mol_per_l, unit, m),
+        in_unit(c.concentration_max_mol_per_l, unit, m)
+    );
+    say!(
+        "  wavelengths     {}–{} nm, {used} of {} used",
+        c.range_nm[0],
+        c.range_nm[1],
+        result.wavelengths.len()
+    );
+    say!(
+        "  band maximum    {} nm: ε = {} ± {} L/(mol·cm), R² = {:.5}, residual SD {:.5} AU",
+        c.band_max_nm,
+        sig(c.epsilon_at_band_max_l_per_mol_cm),
+        sig(c.epsilon_std_error_at_band_max_l_per_mol_cm),
+        c.r_squared_at_band_max,
+        c.residual_sd_at_band_max_au
+    );
+    let verdict = if c.intercept_p_value < calibrate::TEST_ALPHA {
+        "differs from 0: check the blank"
+    } else {
+        "not significantly different from 0"
+    };
+    say!(
+        "  intercept       {:.5} ± {:.5} AU at {} nm (t test p = {:.3}, {verdict})",
+        c.intercept_at_band_max_au,
+        c.intercept_std_error_at_band_max_au,
+        c.band_max_nm,
+        c.intercept_p_value
+    );
+    match &c.lack_of_fit {
+        Some(l) => say!(
+            "  lack of fit     F = {:.2} ({}, {} df), p = {:.3}{}",
+            l.f_statistic,
+            l.df_lack_of_fit,
+            l.df_pure_error,
+            l.p_value,
+            if l.p_value < calibrate::TEST_ALPHA {
+                ": the means curve away from the line"
+            } else {
+                ": no evidence against a straight line"
+            }
+        ),
+        None => {
+            say!("  lack of fit     not tested (needs replicates at 3 or more concentrations)")
+        }
+    }
+    say!(
+        "  calibrated range up to {} and {:.3} AU: `fit` flags concentrations above it with beyond-calibrated-range",
+        in_unit(c.concentration_max_mol_per_l, unit, m),
+        c.max_absorbance_au
+    );
+    if !c.excluded_standards.is_empty() || !c.excluded_wavelengths.is_empty() {
+        say!("  left out:");
+        for e in &c.excluded_standards {
+            say!(
+                "    {} ({}): {}",
+                e.sample,
+                in_unit(e.concentration_mol_per_l, unit, m),
+                e.reason
+            );
+        }
+        for e in &c.excluded_wavelengths {
+            say!("    {}–{} nm: {}", e.range_nm[0], e.range_nm[1], e.reason);
+        }
+    }
+    for u in &result.unreadable {
+        say!("  unreadable:     {}: {}", u.sample, u.error);
+    }
+    match written {
+        Some(p) => say!("wrote {}", p.display()),
+        None => say!("(dry run: nothing written)"),
+    }
+    print_stdout(&out)
+}
+
+/// The line at every wavelength as CSV.
+fn write_wavelengths(result: &CalibrationResult, w: &mut dyn Write) -> std::io::Result<()> {
+    writeln!(
+        w,
+        "wavelength_nm,epsilon_l_per_mol_cm,std_error_l_per_mol_cm,intercept_au,intercept_std_error_au,intercept_p_value,r_squared,residual_sd_au,lack_of_fit_p_value,used,excluded_reason"
+    )?;
+    let opt = |v: Option<f64>| v.map(|v| v.to_string()).unwrap_or_default();
+    for r in &result.wavelengths {
+        writeln!(
+            w,
+            "{},{},{},{},{},{},{},{},{},{},{}",
+            r.wavelength_nm,
+            r.epsilon_l_per_mol_cm,
+            r.epsilon_std_error_l_per_mol_cm,
+            r.intercept_au,
+            r.intercept_std_error_au,
+            r.intercept_p_value,
+            opt(r.r_squared),
+            r.residual_sd_au,
+            opt(r.lack_of_fit_p_value),
+            if r.excluded.is_none() { "yes" } else { "no" },
+            crate::output::csv_field(r.excluded.as_deref().unwrap_or(""))
+        )?;
+    }
+    Ok(())
+}

@@ -1,0 +1,217 @@
+//! `unblend discover`: recover the spectrum of an unknown absorber that the
+//! flagged samples of a batch share.
+
+use super::diagnostic_args::DiagnosticArgs;
+use super::fit::{BaselineArg, QuantityArg, read_input};
+use super::{Failure, exit, library_dir, parse_positive, parse_range_nm};
+use crate::discover::{self, DiscoverOptions, Discovery};
+use crate::fit::FitOptions;
+use crate::input::spectra::{self, ReadOptions};
+use crate::reference::Library;
+use clap::ValueEnum;
+use std::io::Write;
+use std::path::PathBuf;
+
+/// Recover the spectrum of an unknown absorber from the residuals of the
+/// flagged samples (SVD, then non-negative alternating least squares).
+#[derive(Debug, clap::Args)]
+#[command(after_help = super::AFTER_HELP)]
+pub struct Args {
+    /// Spectra CSV (as for `fit`); `-` reads standard input.
+    pub input: PathBuf,
+    /// Where to write the recovered spectrum: CSV `wavelength_nm,epsilon`, ready for `library add`.
+    #[arg(long, value_name = "FILE.csv")]
+    pub out: PathBuf,
+    /// Library folder of component files [default: $UNBLEND_LIBRARY or ./library].
+    #[arg(long, value_name = "DIR")]
+    pub library: Option<PathBuf>,
+    /// Components to fit, comma separated [default: every component in the library].
+    #[arg(long, value_delimiter = ',', value_name = "NAMES")]
+    pub components: Vec<String>,
+    /// Optical pathlength in cm.
+    #[arg(long, default_value = "1", value_parser = parse_positive, value_name = "CM")]
+    pub pathlength_cm: f64,
+    /// Baseline terms fitted beside the components (free in sign).
+    #[arg(long, value_enum, default_value_t = BaselineArg::Offset)]
+    pub baseline: BaselineArg,
+    /// Wavelength window LO:HI in nm [default: all wavelengths the sample and every reference cover].
+    #[arg(long, value_parser = parse_range_nm, value_name = "LO:HI")]
+    pub range_nm: Option<(f64, f64)>,
+    /// What the numbers in INPUT are.
+    #[arg(long, value_enum, default_value_t = QuantityArg::Absorbance)]
+    pub quantity: QuantityArg,
+    /// Peak ε given to the recovered spectrum, L/(mol·cm) (the true scale cannot be known from mixtures).
+    #[arg(long, default_value_t = discover::DEFAULT_PEAK_EPSILON, value_parser = parse_positive, value_name = "L_PER_MOL_CM")]
+    pub peak_epsilon: f64,
+    /// Limit on alternating least-squares iterations.
+    #[arg(long, default_value_t = discover::DEFAULT_MAX_ITERATIONS, value_name = "N")]
+    pub max_iterations: usize,
+    /// Report format on standard output.
+    #[arg(long, value_enum, default_value_t = ReportFormat::Table)]
+    pub format: ReportFormat,
+    /// Residual tests and saturation masking (as for `fit`).
+    #[command(flatten)]
+    pub checks: DiagnosticArgs,
+}
+
+/// `--format` values of `discover`.
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub enum ReportFormat {
+    /// Summary and per-sample table.
+    Table,
+    /// JSON document.
+    Json,
+}
+
+/// Run `unblend discover`.
+pub fn run(args: Args) -> Result<u8, Failure> {
+    if args.checks.no_diagnostics {
+        return Err(Failure::new(
+            "discover works on the samples the residual tests flag: drop --no-diagnostics",
+        ));
+    }
+    if args.max_iterations == 0 {
+        return Err(Failure::new("--max-iterations 0: expected at least 1"));
+    }
+    let options = FitOptions {
+        baseline: args.baseline.into(),
+        window_nm: args.range_nm,
+        pathlength_cm: args.pathlength_cm,
+    };
+    let shown = if args.input.as_os_str() == "-" {
+        "standard input".to_string()
+    } else {
+        args.input.display().to_string()
+    };
+    let bytes = read_input(&args.input)?;
+    let file = spectra::read(
+        &bytes,
+        ReadOptions {
+            quantity: args.quantity.into(),
+        },
+    )
+    .map_err(|e| Failure::new(format!("{shown}: {e}")))?;
+    let library = Library::open(&library_dir(args.library.clone()))?;
+    let refs = library.select(&args.components)?;
+    let found = discover::discover(
+        &file,
+        &refs,
+        &options,
+        &args.checks.options(),
+        &DiscoverOptions {
+            peak_epsilon_l_per_mol_cm: args.peak_epsilon,
+            max_iterations: args.max_iterations,
+        },
+    )?;
+    crate::atomic::write_with(&args.out, false, |w| {
+        writeln!(w, "wavelength_nm,epsilon")?;
+        for (x, e) in found.wavelengths_nm.iter().zip(&found.epsilon_l_per_mol_cm) {
+            let mut a = ryu::Buffer::new();
+            let mut b = ryu::Buffer::new();
+            writeln!(w, "{},{}", a.format(*x), b.format(*e))?;
+        }
+        Ok(())
+    })?;
+    for w in &found.warnings {
+        eprintln!("unblend: warning: {w}");
+    }
+    let mut out = std::io::stdout().lock();
+    let written = match args.format {
+        ReportFormat::Json => serde_json::to_writer_pretty(&mut out, &found)
+            .map_err(std::io::Error::other)
+            .and_then(|_| writeln!(out)),
+        ReportFormat::Table => write_table(&found, &args.out, &mut out),
+    };
+    written.map_err(|e| Failure::new(format!("standard output: {e}")))?;
+    Ok(if found.n_failed > 0 {
+        exit::PARTIAL
+    } else {
+        exit::OK
+    })
+}
+
+fn write_table(d: &Discovery, path: &std::path::Path, w: &mut dyn Write) -> std::io::Result<()> {
+    let sv: Vec<String> = d
+        .singular_values_au
+        .iter()
+        .map(|s| format!("{:.2}", s / d.noise_edge_au))
+        .collect();
+    writeln!(
+        w,
+        "{} flagged sample(s) used; residual singular values / noise edge: {} (signals above {}: {})",
+        d.samples.len(),
+        sv.join(", "),
+        discover::SIGNAL_MARGIN,
+        d.n_signals
+    )?;
+    writeln!(
+        w,
+        "recovered spectrum: peak at {} nm, scaled to ε = {} L/(mol·cm) there; {:.0} % of its shape is fixed by the data (the rest by non-negativity); {} iteration(s){}",
+        d.peak_nm,
+        d.peak_epsilon_l_per_mol_cm,
+        100.0 * d.determined_fraction,
+        d.iterations,
+        if d.converged { "" } else { ", not converged" }
+    )?;
+    let still = d.samples.iter().filter(|s| s.flagged_after).count();
+    writeln!(
+        w,
+        "refit with it: residual sum of squares {:.1} % lower; {} of {} sample(s) still flagged\n",
+        100.0 * d.rss_reduction_fraction,
+        still,
+        d.samples.len()
+    )?;
+    let mut rows = vec![vec![
+        "sample".to_string(),
+        "peak absorbance (AU)".into(),
+        "as-if conc. (µmol/L)".into(),
+        "residual before (mAU)".into(),
+        "after (mAU)".into(),
+        "still flagged".into(),
+    ]];
+    for s in &d.samples {
+        rows.push(vec![
+            s.sample.clone(),
+            format!("{:.4}", s.peak_absorbance_au),
+            format!("{:.3}", s.concentration_mol_per_l * 1e6),
+            format!("{:.2}", s.residual_rms_before_au * 1000.0),
+            format!("{:.2}", s.residual_rms_after_au * 1000.0),
+            if s.flagged_after { "yes" } else { "no" }.into(),
+        ]);
+    }
+    let ncol = rows[0].len();
+    let mut width = vec![0; ncol];
+    for r in &rows {
+        for (i, c) in r.iter().enumerate() {
+            width[i] = width[i].max(c.chars().count());
+        }
+    }
+    for (k, r) in rows.iter().enumerate() {
+        let cells: Vec<String> = r
+            .iter()
+            .enumerate()
+            .map(|(i, c)| {
+                let pad = " ".repeat(width[i] - c.chars().count());
+                if i == 0 {
+                    format!("{c}{pad}")
+                } else {
+                    format!("{pad}{c}")
+                }
+            })
+            .collect();
+        writeln!(w, "{}", cells.join("  ").trim_end())?;
+        if k == 0 {
+            let rule: Vec<String> = width.iter().map(|n| "-".repeat(*n)).collect();
+            writeln!(w, "{}", rule.join("  "))?;
+        }
+    }
+    for [s, why] in &d.left_out {
+        writeln!(w, "left out: {s}: {why}")?;
+    }
+    writeln!(
+        w,
+        "\nwrote {} (add it with `unblend library add NAME --spectrum {}`)",
+        path.display(),
+        path.display()
+    )
+}
