@@ -472,6 +472,15 @@ fn plate_grid_run_recovers_truth_with_blanks_dilutions_and_pathlength_map() {
     let failed_e3 = p2.wells.iter().find(|w| w.well == "E3").unwrap();
     assert!(failed_e3.error.is_some());
 
+    // The residual checks of `fit` run on every fitted well (run.json).
+    let raw: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("run.json")).unwrap()).unwrap();
+    assert!(
+        raw["plates"][0]["wells"][8]["fit"]["diagnostics"].is_object(),
+        "{}",
+        raw["plates"][0]["wells"][8]
+    );
+
     // The run log names inputs with checksums, components, options, version.
     let log = std::fs::read_to_string(out.join("run-log.txt")).unwrap();
     assert!(log.contains(json.inputs[0].sha256.as_deref().unwrap()));
@@ -827,6 +836,9 @@ fn help_names_the_layouts_outputs_and_exit_codes() {
         "run.json",
         "Exit codes",
         "wavelength_nm=",
+        "--alarm-rate",
+        "--max-absorbance",
+        "--screen-with",
     ] {
         assert!(help.contains(needle), "{needle} missing from help");
     }

@@ -341,23 +341,56 @@ impl PlateResult {
     }
 }
 
-/// Fitted designs shared by every plate of a run, one per wavelength grid.
+/// Fitted designs shared by every plate of a run, one per wavelength grid,
+/// with the residual checks of `fit` ([`crate::diagnostics`]).
 pub struct Models<'a> {
     refs: &'a ReferenceSet,
     options: FitOptions,
+    checks: crate::diagnostics::Options,
     cache: Mutex<Vec<(Vec<u64>, ModelEntry)>>,
+    warnings: Mutex<Vec<String>>,
 }
 
 type ModelEntry = Arc<std::result::Result<Model, String>>;
 
 impl<'a> Models<'a> {
-    /// An empty cache for a reference set and fit options.
-    pub fn new(refs: &'a ReferenceSet, options: FitOptions) -> Self {
+    /// An empty cache for a reference set, fit options and checks.
+    pub fn new(
+        refs: &'a ReferenceSet,
+        options: FitOptions,
+        checks: crate::diagnostics::Options,
+    ) -> Self {
         Models {
             refs,
             options,
+            checks,
             cache: Mutex::new(Vec::new()),
+            warnings: Mutex::new(Vec::new()),
         }
+    }
+
+    /// Build a model for a grid (not cached); its warnings (fallback
+    /// solver, similar references, candidates left out) are kept once for
+    /// the run.
+    pub fn build(&self, grid: &Grid) -> std::result::Result<Model, String> {
+        let m = Model::with_checks(grid, self.refs, &self.options, &self.checks)
+            .map_err(|e| e.to_string())?;
+        let mut new: Vec<String> = m.method_warning().into_iter().collect();
+        new.extend(m.separability_warnings());
+        new.extend(m.check_warnings().iter().cloned());
+        if let Ok(mut w) = self.warnings.lock() {
+            for x in new {
+                if !w.contains(&x) {
+                    w.push(x);
+                }
+            }
+        }
+        Ok(m)
+    }
+
+    /// Warnings about the models built so far (each once).
+    pub fn warnings(&self) -> Vec<String> {
+        self.warnings.lock().map(|w| w.clone()).unwrap_or_default()
     }
 
     /// The model for a grid (built on first use).
@@ -368,7 +401,7 @@ impl<'a> Models<'a> {
         {
             return m.clone();
         }
-        let built = Arc::new(Model::new(grid, self.refs, &self.options).map_err(|e| e.to_string()));
+        let built = Arc::new(self.build(grid));
         if let Ok(mut cache) = self.cache.lock() {
             if let Some((_, m)) = cache.iter().find(|(k, _)| *k == key) {
                 return m.clone();
@@ -380,11 +413,6 @@ impl<'a> Models<'a> {
             cache.push((key, built.clone()));
         }
         built
-    }
-
-    /// The reference set.
-    pub fn refs(&self) -> &ReferenceSet {
-        self.refs
     }
 }
 
@@ -529,9 +557,6 @@ pub fn process_plate(
             return result;
         }
     };
-    if let Some(w) = model.method_warning() {
-        result.warnings.push(w);
-    }
     let (start, end) = (model.design.start, model.design.end);
     let n = grid.len();
 
@@ -657,9 +682,7 @@ pub fn process_plate(
                 .or_insert_with(|| {
                     let sub_grid =
                         Grid::new(keep.iter().map(|&k| w[k]).collect()).map_err(|e| e.to_string());
-                    Arc::new(sub_grid.and_then(|g| {
-                        Model::new(&g, models.refs(), &options.fit).map_err(|e| e.to_string())
-                    }))
+                    Arc::new(sub_grid.and_then(|g| models.build(&g)))
                 })
                 .clone();
             match sub.as_ref() {
@@ -1042,7 +1065,7 @@ mod tests {
             },
             ..BatchOptions::default()
         };
-        let models = Models::new(&refs, options.fit);
+        let models = Models::new(&refs, options.fit, crate::diagnostics::Options::off());
         let r = process_plate(p, "test", Some(&m), &models, &options);
         assert!(r.warnings.is_empty(), "{:?}", r.warnings);
         for (w, want) in r.wells[1..].iter().zip(paths) {
@@ -1090,7 +1113,7 @@ mod tests {
             water: Some(WaterBand::default()),
             ..BatchOptions::default()
         };
-        let models = Models::new(&refs, options.fit);
+        let models = Models::new(&refs, options.fit, crate::diagnostics::Options::off());
         let r = process_plate(p, "test", Some(&m), &models, &options);
         assert_eq!(r.wells[0].pathlength_source, Some(PathlengthSource::Map));
         let c = r.wells[0].fit.as_ref().unwrap().components[0].concentration_mol_per_l;
@@ -1116,7 +1139,7 @@ mod tests {
             },
             ..BatchOptions::default()
         };
-        let models = Models::new(&refs, options.fit);
+        let models = Models::new(&refs, options.fit, crate::diagnostics::Options::off());
         let r = process_plate(p, "test", None, &models, &options);
         for w in &r.wells {
             assert!(w.flags.contains(&FLAG_SATURATED.to_string()));
@@ -1147,7 +1170,7 @@ mod tests {
             },
             ..BatchOptions::default()
         };
-        let models = Models::new(&refs, options.fit);
+        let models = Models::new(&refs, options.fit, crate::diagnostics::Options::off());
         let r = process_plate(p, "test", Some(&m), &models, &options);
         let s = &r.samples[0];
         assert_eq!(s.outlier_wells, vec!["B4"]);

@@ -1,6 +1,7 @@
 //! `unblend batch`: plate-reader runs: plate maps, blanks, pathlengths,
 //! dilutions, replicates; per-well and per-sample results.
 
+use super::diagnostic_args::DiagnosticArgs;
 use super::fit::{BaselineArg, QuantityArg};
 use super::{Failure, exit, library_dir, parse_positive, parse_range_nm};
 use crate::atomic::AtomicFile;
@@ -87,6 +88,38 @@ pub struct Args {
     /// Never show the progress bar (it only shows when stderr is a terminal).
     #[arg(long)]
     pub no_progress: bool,
+    /// Library folder of candidate components to try on flagged wells (one extra component at a time, F-test).
+    #[arg(long, value_name = "DIR")]
+    pub screen_with: Option<PathBuf>,
+    /// Residual tests and saturation masking (as in `fit`).
+    #[command(flatten)]
+    pub checks: DiagnosticArgs,
+}
+
+/// The residual checks the flags ask for, with `--screen-with` candidates.
+fn checks(args: &Args) -> Result<crate::diagnostics::Options, Failure> {
+    let mut checks = args.checks.options();
+    if let Some(dir) = &args.screen_with {
+        if args.checks.no_diagnostics {
+            return Err(Failure::new(
+                "--screen-with tries candidates on wells the residual tests flag: drop --no-diagnostics",
+            ));
+        }
+        let candidates = Library::open(dir)?;
+        for e in &candidates.broken {
+            eprintln!("unblend: warning: screening library: {e}");
+        }
+        if candidates.components.is_empty() {
+            return Err(Failure::new(format!(
+                "--screen-with {}: no readable component files (*.toml) there",
+                dir.display()
+            )));
+        }
+        checks.candidates = Some(ReferenceSet {
+            components: candidates.components,
+        });
+    }
+    Ok(checks)
 }
 
 fn parse_alpha(s: &str) -> Result<f64, String> {
@@ -151,6 +184,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let dir = library_dir(args.library.clone());
     let library = Library::open(&dir)?;
     let refs = library.select(&args.components)?;
+    let checks = checks(&args)?;
     let created_dir = !args.out_dir.exists();
     std::fs::create_dir_all(&args.out_dir)
         .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
@@ -192,7 +226,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         options: &options,
         bytes_read: &bytes_read,
     };
-    let models = Models::new(&refs, options.fit);
+    let models = Models::new(&refs, options.fit, checks);
     let result = run::run(&spec, &models, render_plate, |event| {
         match event {
             Event::Plate(p, rendered) => {
@@ -238,6 +272,9 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         return Err(Failure::new(
             "no input could be read: nothing was written (errors above)",
         ));
+    }
+    for w in models.warnings() {
+        tally.warn(w);
     }
     for w in tally.warnings.iter().take(SHOWN_WARNINGS) {
         eprintln!("unblend: warning: {w}");
@@ -456,6 +493,11 @@ fn options_json(o: &BatchOptions, a: &Args) -> serde_json::Value {
         "outlier_min_std_errors": crate::batch::OUTLIER_MIN_STD_ERRORS,
         "keep_outliers": o.keep_outliers,
         "plate_map": a.plate_map.as_ref().map(|p| p.display().to_string()),
+        "residual_checks": !a.checks.no_diagnostics,
+        "noise_au": a.checks.noise_au,
+        "alarm_rate": a.checks.alarm_rate,
+        "max_absorbance_au": a.checks.max_absorbance.0,
+        "screen_with": a.screen_with.as_ref().map(|p| p.display().to_string()),
     })
 }
 
@@ -556,6 +598,29 @@ fn write_log(w: &mut dyn Write, t: &Tally, l: &LogInfo) -> std::io::Result<()> {
         } else {
             "flagged wells left out of the blank and the statistics"
         }
+    )?;
+    let c = &l.args.checks;
+    writeln!(
+        w,
+        "  checks:      {}; saturation ceiling {}{}",
+        if c.no_diagnostics {
+            "residual tests off".to_string()
+        } else {
+            format!(
+                "residual tests at false-alarm rate {}, noise {}",
+                c.alarm_rate,
+                c.noise_au
+                    .map_or("estimated per well".into(), |n| format!("{n} AU"))
+            )
+        },
+        c.max_absorbance
+            .0
+            .map_or("none".into(), |v| format!("{v} AU")),
+        l.args
+            .screen_with
+            .as_ref()
+            .map(|d| format!("; screening with {}", d.display()))
+            .unwrap_or_default()
     )?;
     writeln!(w, "\nresults")?;
     writeln!(

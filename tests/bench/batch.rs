@@ -76,7 +76,7 @@ fn bench(c: &mut Criterion) {
         })
         .collect();
     let options = BatchOptions::default();
-    let models = Models::new(&refs, options.fit);
+    let models = Models::new(&refs, options.fit, unblend::diagnostics::Options::default());
     let mut g = c.benchmark_group("batch");
     g.throughput(Throughput::Elements(96));
     g.bench_function("parse_plate_grid_96x401", |b| {
