@@ -105,7 +105,8 @@ fn checks(args: &Args) -> Result<crate::diagnostics::Options, Failure> {
                 "--screen-with tries candidates on wells the residual tests flag: drop --no-diagnostics",
             ));
         }
-        let candidates = Library::open(dir)?;
+        let candidates =
+            Library::open(dir).map_err(|e| Failure::new(format!("--screen-with: {e}")))?;
         for e in &candidates.broken {
             eprintln!("unblend: warning: screening library: {e}");
         }
