@@ -1,7 +1,9 @@
 //! Input stage: parsers for everything a user hands the tool.
 //!
 //! In: bytes of CSV files. Out: validated spectra ([`spectra`]) and molar
-//! absorptivity tables ([`epsilon`]). Parsers never solve anything.
+//! absorptivity tables ([`epsilon`]); plate reads in the plate-grid layout
+//! ([`plate`]), inputs of any layout cut into plates as they stream in
+//! ([`plates`]), and plate maps ([`platemap`]). Parsers never solve anything.
 
 pub mod concentrations;
 pub mod epsilon;

@@ -377,6 +377,9 @@ fn fast_row(line: &[u8], delim: u8, out: &mut [f64; MAX_COLUMNS + 1]) -> Option<
             let b = line[i];
             let d = b.wrapping_sub(b'0');
             if d < 10 {
+                if n_digits == 15 {
+                    return None; // too long for the exact fast path
+                }
                 m = m * 10 + u64::from(d);
                 n_digits += 1;
                 n_frac += usize::from(dot);
@@ -392,7 +395,7 @@ fn fast_row(line: &[u8], delim: u8, out: &mut [f64; MAX_COLUMNS + 1]) -> Option<
             let rest_empty = !negative && !dot && line[i..].iter().all(|&b| b == delim);
             return (rest_empty && k > 0).then_some((letter, k));
         }
-        if n_digits > 15 || k == out.len() {
+        if k == out.len() {
             return None;
         }
         let v = m as f64 / POW10[n_frac];
@@ -927,6 +930,7 @@ mod tests {
             b"B;0,5",
             b"B,",
             b"B,1e-3",
+            b"B,1234567890123456789012345",
         ] {
             assert_eq!(
                 fast_row(line, b',', &mut out),

@@ -765,6 +765,73 @@ mod tests {
     }
 
     #[test]
+    fn arbitrary_text_never_panics() {
+        // Seeded random texts from the layouts' own pieces: every outcome
+        // must be a value or an error, never a panic.
+        const PIECES: [&str; 22] = [
+            "wavelength_nm=",
+            "plate=",
+            "400",
+            "401.5",
+            "-1",
+            "1e9",
+            ",",
+            ";",
+            "\t",
+            "\n",
+            "\r\n",
+            "A",
+            "P",
+            "Q",
+            "OVER",
+            ">4",
+            "NaN",
+            "\"",
+            "sample",
+            "wavelength_nm",
+            "absorbance",
+            ":A1",
+        ];
+        let mut x: u64 = 0x5eed;
+        for _ in 0..3000 {
+            let mut text = String::new();
+            x = x.wrapping_mul(6364136223846793005).wrapping_add(1);
+            let len = (x >> 58) as usize + 1;
+            for _ in 0..len * 4 {
+                x = x
+                    .wrapping_mul(6364136223846793005)
+                    .wrapping_add(1442695040888963407);
+                text.push_str(PIECES[(x >> 33) as usize % PIECES.len()]);
+            }
+            if let Ok(mut s) = PlateStream::open_with(text.as_bytes(), "r", Quantity::Absorbance, 7)
+            {
+                while let Ok(Some(p)) = s.next_plate() {
+                    let _ = p.parse(Quantity::Absorbance);
+                }
+            }
+            let _ = crate::input::platemap::read(text.as_bytes());
+        }
+        // A valid plate with a few bytes changed.
+        let base = b"plate=P wavelength_nm=400\n,1,2,3\nA,0.1,0.2,0.3\nB,0.4,OVER,0.6\n\nwavelength_nm=410\n,1,2,3\nA,0.1,0.2,0.3\nB,0.4,0.5,0.6\n";
+        let alphabet = b"0123456789.,;-=\n\rABPQ\" >e";
+        for _ in 0..3000 {
+            let mut text = base.to_vec();
+            for _ in 0..4 {
+                x = x
+                    .wrapping_mul(6364136223846793005)
+                    .wrapping_add(1442695040888963407);
+                let at = (x >> 33) as usize % text.len();
+                text[at] = alphabet[(x >> 20) as usize % alphabet.len()];
+            }
+            if let Ok(mut s) = PlateStream::open_with(&text[..], "r", Quantity::Absorbance, 5) {
+                while let Ok(Some(p)) = s.next_plate() {
+                    let _ = p.parse(Quantity::Absorbance);
+                }
+            }
+        }
+    }
+
+    #[test]
     fn small_chunks_give_the_same_plates() {
         struct Trickle<'a>(&'a [u8]);
         impl Read for Trickle<'_> {
