@@ -83,7 +83,23 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let csv = args.out_dir.join("results.csv");
     let json = args.out_dir.join("results.json");
     crate::atomic::write_with(&csv, false, |w| output::write(&report, Format::Csv, w))?;
-    crate::atomic::write_with(&json, false, |w| output::write(&report, Format::Json, w))?;
+    let mut doc = output::JsonReport::from_report(&report);
+    doc.run = Some(output::RunInfo {
+        command: "demo".into(),
+        input: "(built-in) demo-data/lot-check.csv".into(),
+        library: "(built-in) library/".into(),
+        options: vec![
+            ["pathlength".into(), format!("{} cm", options.pathlength_cm)],
+            ["baseline".into(), "offset".into()],
+            ["residual checks".into(), "on (defaults)".into()],
+        ],
+    });
+    doc.curves = Some(crate::curves::for_file(&file, &refs, &options, &report));
+    crate::atomic::write_with(&json, false, |w| output::write_json(&doc, w))?;
+    let html_path = args.out_dir.join("report.html");
+    let html =
+        crate::report::render_html(&doc, "unblend demo: lot check of an invented ink workshop");
+    crate::atomic::write_with(&html_path, false, |w| w.write_all(html.as_bytes()))?;
     println!(
         "\nThe lot-2614 replicates carry an impurity none of the three references describes: their residual is flagged unexplained-absorbance (see the notes); `unblend fit ... --screen-with DIR` tries candidate spectra on it, `unblend discover` estimates its spectrum."
     );
@@ -94,6 +110,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         "At the default alarm rate 1 % of clean samples are flagged by chance: a lone flag with a band of a few tenths of a mAU may be one of them."
     );
     println!("\nwrote {} and {}", csv.display(), json.display());
+    println!("open the report in a browser: {}", html_path.display());
     Ok(if report.n_failed() == 0 {
         exit::OK
     } else {

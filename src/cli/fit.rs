@@ -48,6 +48,18 @@ pub struct Args {
     /// Residual tests and saturation masking.
     #[command(flatten)]
     pub checks: DiagnosticArgs,
+    /// Also write a self-contained HTML report (summary, one figure per sample: measured, fitted, stacked component contributions, residual with the ±2σ noise band).
+    #[arg(long, value_name = "FILE.html")]
+    pub report: Option<PathBuf>,
+    /// Also write one sample's fit figure as SVG (the first fitted sample, or --plot-sample).
+    #[arg(long, value_name = "FILE.svg")]
+    pub plot: Option<PathBuf>,
+    /// The sample --plot draws [default: the first fitted sample].
+    #[arg(long, value_name = "NAME", requires = "plot")]
+    pub plot_sample: Option<String>,
+    /// Add each sample's fit curves (wavelengths, measured, fitted, contributions, residual, noise σ, masked points; AU) to the JSON results, so `unblend report` can draw them later.
+    #[arg(long)]
+    pub with_curves: bool,
 }
 
 /// `--baseline` values.
@@ -137,6 +149,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         args.input.display().to_string()
     };
     let dir = library_dir(args.library.clone());
+    let library_dir_shown = dir.clone();
     let library = Library::open(&dir)?;
     let refs = library.select(&args.components)?;
     let mut checks = args.checks.options();
@@ -159,6 +172,30 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         checks.candidates = Some(ReferenceSet {
             components: candidates.components,
         });
+    }
+    if args.with_curves && format != Format::Json {
+        return Err(Failure::new(
+            "--with-curves adds the fit curves to the JSON results: use it with --format json",
+        ));
+    }
+    if let Some(p) = &args.plot
+        && !p.extension().is_some_and(|e| e.eq_ignore_ascii_case("svg"))
+    {
+        return Err(Failure::new(format!(
+            "--plot {}: expected a file name ending in .svg (the figure is written as SVG; PNG is not supported)",
+            p.display()
+        )));
+    }
+    if args.report.is_some() || args.plot.is_some() || args.with_curves {
+        return run_with_curves(
+            &args,
+            &refs,
+            &options,
+            &checks,
+            format,
+            &shown,
+            &library_dir_shown,
+        );
     }
     let reader: Box<dyn Read + Send> = if args.input.as_os_str() == "-" {
         Box::new(std::io::stdin())
@@ -203,6 +240,143 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             emit(&report, format, args.out.as_deref())?;
             Ok(exit_code(&report))
         }
+    }
+}
+
+/// Fit the whole input in memory and keep each sample's curves for the
+/// report, the figure or the JSON.
+fn run_with_curves(
+    args: &Args,
+    refs: &ReferenceSet,
+    options: &FitOptions,
+    checks: &crate::diagnostics::Options,
+    format: Format,
+    shown: &str,
+    library: &std::path::Path,
+) -> Result<u8, Failure> {
+    let ctx = |e: crate::Error| Failure::new(format!("{shown}: {e}"));
+    let bytes = read_input(&args.input)?;
+    let read_options = ReadOptions {
+        quantity: args.quantity.into(),
+    };
+    let file = spectra::read(&bytes, read_options).map_err(ctx)?;
+    let report = crate::fit::fit_file_with(&file, refs, options, checks).map_err(ctx)?;
+    let curves = crate::curves::for_file(&file, refs, options, &report);
+    let mut doc = output::JsonReport::from_report(&report);
+    doc.run = Some(run_info(args, shown, library));
+    doc.curves = Some(curves);
+    if let Some(path) = &args.plot {
+        let curve =
+            match &args.plot_sample {
+                Some(name) => doc
+                    .curves
+                    .iter()
+                    .flatten()
+                    .find(|c| &c.sample == name)
+                    .ok_or_else(|| {
+                        Failure::new(format!(
+                            "--plot-sample '{name}': no fitted sample of that name in {shown}"
+                        ))
+                    })?,
+                None => doc.curves.iter().flatten().next().ok_or_else(|| {
+                    Failure::new(format!("--plot: no sample of {shown} was fitted"))
+                })?,
+            };
+        let svg = crate::report::sample_figure(curve);
+        crate::atomic::write_with(path, false, |w| {
+            w.write_all(b"<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n")?;
+            w.write_all(svg.as_bytes())?;
+            w.write_all(b"\n")
+        })?;
+        eprintln!(
+            "unblend: wrote the fit of {} to {}",
+            curve.sample,
+            path.display()
+        );
+    }
+    if let Some(path) = &args.report {
+        let html = crate::report::render_html(&doc, &format!("unblend fit: {shown}"));
+        crate::atomic::write_with(path, false, |w| w.write_all(html.as_bytes()))?;
+        eprintln!("unblend: wrote the report to {}", path.display());
+    }
+    if format == Format::Json && (args.with_curves || args.report.is_some()) {
+        for w in &report.warnings {
+            eprintln!("unblend: warning: {w}");
+        }
+        match args.out.as_deref() {
+            Some(path) => {
+                crate::atomic::write_with(path, false, |w| output::write_json(&doc, w))?;
+                eprintln!(
+                    "{}",
+                    summary(report.outcomes.len(), report.n_failed(), path)
+                );
+            }
+            None => {
+                let mut lock = std::io::BufWriter::new(std::io::stdout().lock());
+                let r = output::write_json(&doc, &mut lock).and_then(|_| lock.flush());
+                if let Err(e) = r
+                    && e.kind() != std::io::ErrorKind::BrokenPipe
+                {
+                    return Err(Failure::new(format!("standard output: {e}")));
+                }
+            }
+        }
+    } else {
+        emit(&report, format, args.out.as_deref())?;
+    }
+    Ok(exit_code(&report))
+}
+
+/// The run's inputs and options for the report's summary.
+fn run_info(args: &Args, shown: &str, library: &std::path::Path) -> output::RunInfo {
+    let mut options = vec![
+        [
+            "pathlength".to_string(),
+            format!("{} cm", args.pathlength_cm),
+        ],
+        [
+            "baseline".to_string(),
+            format!("{:?}", args.baseline).to_lowercase(),
+        ],
+        [
+            "range".to_string(),
+            args.range_nm.map_or(
+                "common range of sample and references".into(),
+                |(lo, hi)| format!("{lo}–{hi} nm"),
+            ),
+        ],
+        [
+            "input quantity".to_string(),
+            format!("{:?}", args.quantity).to_lowercase(),
+        ],
+    ];
+    let checks = args.checks.options();
+    options.push([
+        "residual checks".to_string(),
+        match &checks.residual {
+            Some(r) => format!(
+                "on, alarm rate {}, noise {}",
+                r.alarm_rate,
+                r.noise_au
+                    .map_or("estimated from the residual".into(), |n| format!("{n} AU"))
+            ),
+            None => "off".into(),
+        },
+    ]);
+    options.push([
+        "saturation ceiling".to_string(),
+        checks
+            .max_absorbance_au
+            .map_or("off".into(), |v| format!("{v} AU")),
+    ]);
+    if let Some(d) = &args.screen_with {
+        options.push(["screening library".to_string(), d.display().to_string()]);
+    }
+    output::RunInfo {
+        command: "fit".into(),
+        input: shown.to_string(),
+        library: library.display().to_string(),
+        options,
     }
 }
 

@@ -11,6 +11,7 @@ pub mod diagnostic_args;
 pub mod discover;
 pub mod fit;
 pub mod library;
+pub mod report;
 
 use clap::{Parser, Subcommand};
 use std::process::ExitCode;
@@ -59,6 +60,8 @@ enum Command {
     Demo(demo::Args),
     /// Recover the spectrum of an unknown absorber shared by flagged samples.
     Discover(discover::Args),
+    /// Make a self-contained HTML report from saved JSON results.
+    Report(report::Args),
 }
 
 /// An error for the user, with the exit code it should give.
@@ -117,6 +120,7 @@ pub fn run(cli: Cli) -> Result<u8, Failure> {
         Command::Calibrate(a) => calibrate::run(a),
         Command::Demo(a) => demo::run(a),
         Command::Discover(a) => discover::run(a),
+        Command::Report(a) => report::run(a),
     }
 }
 

@@ -35,6 +35,25 @@ pub struct JsonReport {
     pub failed: Vec<FailedSample>,
     /// Run-level warnings.
     pub warnings: Vec<String>,
+    /// What was run: input, library, options (written with the fit curves).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub run: Option<RunInfo>,
+    /// Per-sample fit curves (only with `--with-curves` or `--report`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub curves: Option<Vec<crate::curves::Curves>>,
+}
+
+/// What a run was given, for the report's summary.
+#[derive(Debug, Clone, Default, Serialize, Deserialize, PartialEq)]
+pub struct RunInfo {
+    /// The command (`fit`, `demo`).
+    pub command: String,
+    /// Input file as given.
+    pub input: String,
+    /// Library folder as given.
+    pub library: String,
+    /// Options as (name, value) pairs, values with their units.
+    pub options: Vec<[String; 2]>,
 }
 
 /// Tool identification.
@@ -66,8 +85,16 @@ impl JsonReport {
             samples,
             failed,
             warnings: report.warnings.clone(),
+            run: None,
+            curves: None,
         }
     }
+}
+
+/// Write a JSON document (pretty, with a final newline).
+pub fn write_json(doc: &JsonReport, w: &mut dyn Write) -> io::Result<()> {
+    serde_json::to_writer_pretty(&mut *w, doc).map_err(io::Error::other)?;
+    writeln!(w)
 }
 
 /// Write a report in a format.
@@ -75,11 +102,7 @@ pub fn write(report: &FitReport, format: Format, w: &mut dyn Write) -> io::Resul
     match format {
         Format::Table => write_table(report, w),
         Format::Csv => write_csv(report, w),
-        Format::Json => {
-            serde_json::to_writer_pretty(&mut *w, &JsonReport::from_report(report))
-                .map_err(io::Error::other)?;
-            writeln!(w)
-        }
+        Format::Json => write_json(&JsonReport::from_report(report), w),
     }
 }
 
