@@ -120,7 +120,11 @@ fn demo_runs_from_any_folder_and_writes_its_files() {
     assert_eq!(r.code, 0, "{}", r.stderr);
     assert!(r.stdout.contains("lot-2611-a"));
     assert!(
-        r.stdout.lines().last().unwrap_or("").starts_with("wrote "),
+        r.stdout
+            .lines()
+            .last()
+            .unwrap_or("")
+            .ends_with("unblend-demo/report.html"),
         "{}",
         r.stdout
     );
@@ -129,6 +133,7 @@ fn demo_runs_from_any_folder_and_writes_its_files() {
     let rep: Report = serde_json::from_str(&json).expect("typed JSON");
     assert_eq!(rep.samples.len(), 19);
     assert!(dir.join("unblend-demo/results.csv").exists());
+    assert!(dir.join("unblend-demo/report.html").exists());
 }
 
 /// The demo data's truth (demo-data/lot-check-truth.csv, invented) is

@@ -19,8 +19,9 @@ use crate::output::JsonReport;
 use std::fmt::Write;
 use svg::{DASHES, PALETTE, Panel, escape};
 
-/// Most points per plotted curve (min/max per bucket above this).
-pub const MAX_PLOT_POINTS: usize = 600;
+/// Most points per plotted curve (min/max per bucket above this): about
+/// two pixels per point across the 520 px plot area.
+pub const MAX_PLOT_POINTS: usize = 260;
 
 /// Width of a sample figure, px.
 const FIG_W: f64 = 760.0;
