@@ -314,3 +314,30 @@ fn demo_report_renders_in_headless_chromium() {
     // PNG signature (ISO/IEC 15948, section 5.2).
     assert!(png.starts_with(&[0x89, b'P', b'N', b'G', 0x0D, 0x0A, 0x1A, 0x0A]));
 }
+
+#[test]
+fn library_check_report_overlays_the_references_and_lists_the_pairs() {
+    let dir = tempdir("check");
+    let lib = format!("{ROOT}/library");
+    let (code, _, stderr) = run(
+        &dir,
+        &[
+            "library",
+            "check",
+            "--library",
+            &lib,
+            "--report",
+            "check.html",
+        ],
+    );
+    assert_eq!(code, 0, "{stderr}");
+    let html = std::fs::read_to_string(dir.join("check.html")).expect("check report");
+    check_self_contained(&html, 1, 0);
+    // One curve per demo reference, and the three pairs of three components.
+    assert_eq!(html.matches("<polyline").count(), 3);
+    for name in ["fjord-blue", "saffron-yellow", "ember-red"] {
+        assert!(html.contains(name));
+    }
+    assert_eq!(html.matches(" / ").count(), 3);
+    assert!(html.contains("LOD"));
+}

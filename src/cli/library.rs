@@ -103,6 +103,9 @@ pub struct CheckArgs {
     /// Output format.
     #[arg(long, value_enum, default_value_t = ReportFormat::Table)]
     pub format: ReportFormat,
+    /// Also write a self-contained HTML page: the reference spectra overlaid and the separability tables.
+    #[arg(long, value_name = "FILE.html")]
+    pub report: Option<PathBuf>,
 }
 
 const CHECK_AFTER_HELP: &str = "\
@@ -363,6 +366,13 @@ fn check(a: CheckArgs) -> Result<u8, Failure> {
             print_stdout(&format!("{text}\n"))?;
         }
         ReportFormat::Table => print_check(&report)?,
+    }
+    if let Some(path) = &a.report {
+        let html = crate::report::render_check_html(&refs, &report, &dir.display().to_string());
+        crate::atomic::write_with(path, false, |w| {
+            std::io::Write::write_all(w, html.as_bytes())
+        })?;
+        eprintln!("unblend: wrote the check report to {}", path.display());
     }
     Ok(exit::OK)
 }

@@ -465,6 +465,175 @@ fn sample_numbers(h: &mut String, s: &SampleResult, unit: &str, factor: f64) {
     }
 }
 
+/// The reference curves ε(λ) of a set overlaid, with the analysed range
+/// shaded, as one SVG element.
+pub fn references_figure(refs: &crate::reference::ReferenceSet, range_nm: [f64; 2]) -> String {
+    let mut out = String::with_capacity(16 * 1024);
+    let _ = write!(
+        out,
+        r##"<svg xmlns="http://www.w3.org/2000/svg" class="references" width="{FIG_W}" height="330" viewBox="0 0 {FIG_W} 330" font-family="sans-serif" font-size="11" role="img" aria-label="reference spectra"><title>reference spectra</title><rect width="100%" height="100%" fill="#fff"/>"##
+    );
+    let xs = refs
+        .components
+        .iter()
+        .flat_map(|c| [c.grid.min_nm(), c.grid.max_nm()]);
+    let xr = svg::range_of(xs.collect::<Vec<_>>().iter(), 0.0);
+    let ys: Vec<f64> = refs
+        .components
+        .iter()
+        .flat_map(|c| c.epsilon_l_per_mol_cm.iter().copied())
+        .chain([0.0])
+        .collect();
+    let yr = svg::range_of(ys.iter(), 0.05);
+    let p = Panel {
+        left: 74.0,
+        top: 14.0,
+        width: 510.0,
+        height: 270.0,
+        x: xr,
+        y: yr,
+    };
+    let (lo, hi) = (p.px(range_nm[0].max(xr.0)), p.px(range_nm[1].min(xr.1)));
+    let _ = write!(
+        out,
+        r##"<rect x="{lo:.1}" y="{:.1}" width="{:.1}" height="{:.1}" fill="#eee"/>"##,
+        p.top,
+        (hi - lo).max(0.0),
+        p.height
+    );
+    p.axes(&mut out, "wavelength (nm)", "ε (L/(mol·cm))", true);
+    for (k, c) in refs.components.iter().enumerate() {
+        let w = c.grid.wavelengths_nm();
+        let idx = svg::decimate(&c.epsilon_l_per_mol_cm, MAX_PLOT_POINTS);
+        p.line(
+            &mut out,
+            w,
+            &c.epsilon_l_per_mol_cm,
+            &idx,
+            &format!(
+                r#"stroke="{}" stroke-width="1.6" stroke-dasharray="{}""#,
+                PALETTE[k % PALETTE.len()],
+                DASHES[k % DASHES.len()]
+            ),
+        );
+        let y = 24.0 + 16.0 * k as f64;
+        let _ = write!(
+            out,
+            r#"<line x1="600" y1="{y}" x2="622" y2="{y}" stroke="{}" stroke-width="1.6" stroke-dasharray="{}"/><text x="628" y="{:.1}">{}</text>"#,
+            PALETTE[k % PALETTE.len()],
+            DASHES[k % DASHES.len()],
+            y + 4.0,
+            escape(&c.name)
+        );
+    }
+    let y = 24.0 + 16.0 * refs.components.len() as f64;
+    let _ = write!(
+        out,
+        r##"<rect x="600" y="{:.1}" width="22" height="8" fill="#eee" stroke="#999"/><text x="628" y="{:.1}">range analysed</text></svg>"##,
+        y - 4.0,
+        y + 4.0
+    );
+    out
+}
+
+/// The `library check` report: the references overlaid and the
+/// separability tables, as one HTML document.
+pub fn render_check_html(
+    refs: &crate::reference::ReferenceSet,
+    check: &crate::separability::CheckReport,
+    library: &str,
+) -> String {
+    let mut h = String::with_capacity(64 * 1024);
+    let title = format!("unblend library check: {library}");
+    let _ = write!(
+        h,
+        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>{}</title><style>{CSS}</style></head><body>\n<h1>{}</h1>\n",
+        escape(&title),
+        escape(&title)
+    );
+    let _ = writeln!(
+        h,
+        "<table><tr><th>components</th><td style=\"text-align:left\">{}</td></tr><tr><th>range</th><td style=\"text-align:left\">{}–{} nm, {} readings every {} nm</td></tr><tr><th>baseline</th><td style=\"text-align:left\">{}</td></tr><tr><th>noise, pathlength</th><td style=\"text-align:left\">{} AU per reading, {} cm</td></tr><tr><th>condition number</th><td style=\"text-align:left\">{}</td></tr><tr><th>solver</th><td style=\"text-align:left\">{}</td></tr></table>",
+        escape(&check.components.join(", ")),
+        check.range_nm[0],
+        check.range_nm[1],
+        check.n_points,
+        check.step_nm,
+        escape(&check.baseline),
+        check.noise_au,
+        check.pathlength_cm,
+        check
+            .condition_number
+            .map_or("singular".into(), |c| format!("{c:.3e}")),
+        escape(&check.solver)
+    );
+    h.push_str("<h2>Reference spectra</h2>\n");
+    h.push_str(&references_figure(refs, check.range_nm));
+    let ses: Vec<f64> = check
+        .per_component
+        .iter()
+        .filter_map(|c| c.std_error_mol_per_l)
+        .collect();
+    let typical = ses.iter().copied().fold(0.0f64, f64::max).max(1e-12);
+    let (unit, factor) = [
+        ("mol/L", 1.0),
+        ("mmol/L", 1e3),
+        ("µmol/L", 1e6),
+        ("nmol/L", 1e9),
+    ]
+    .into_iter()
+    .find(|(_, f)| typical * f >= 0.1)
+    .unwrap_or(("nmol/L", 1e9));
+    let opt = |v: Option<f64>, f: f64| v.map_or("-".into(), |x| format!("{:.4}", x * f));
+    let _ = writeln!(
+        h,
+        "<h2>Per component</h2>\n<table><tr><th>component</th><th>VIF</th><th>predicted SE ({unit})</th><th>LOD ({unit})</th><th>LOQ ({unit})</th></tr>"
+    );
+    for c in &check.per_component {
+        let _ = writeln!(
+            h,
+            "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+            escape(&c.name),
+            c.vif.map_or("-".into(), |v| format!("{v:.2}")),
+            opt(c.std_error_mol_per_l, factor),
+            opt(c.lod_mol_per_l, factor),
+            opt(c.loq_mol_per_l, factor)
+        );
+    }
+    h.push_str("</table>\n<p class=\"note\">LOD 3.3 and LOQ 10 predicted standard errors (common practice).</p>\n<h2>Pairs</h2>\n<table><tr><th>pair</th><th>cosine</th><th>cosine after baseline</th><th>variance inflation</th><th>collinear</th></tr>\n");
+    for p in &check.pairs {
+        let _ = writeln!(
+            h,
+            "<tr><td>{} / {}</td><td>{:.4}</td><td>{}</td><td>{}</td><td class=\"flag\">{}</td></tr>",
+            escape(&p.a),
+            escape(&p.b),
+            p.cosine,
+            p.cosine_after_baseline
+                .map_or("-".into(), |c| format!("{c:.4}")),
+            p.variance_inflation
+                .map_or("-".into(), |v| format!("{v:.2}")),
+            if p.collinear { "yes" } else { "" }
+        );
+    }
+    h.push_str("</table>\n");
+    if let Some(b) = &check.best_range {
+        let _ = writeln!(
+            h,
+            "<p>best-conditioned window: {}–{} nm ({} readings)</p>",
+            b.range_nm[0], b.range_nm[1], b.n_points
+        );
+    }
+    if !check.warnings.is_empty() {
+        h.push_str("<h2>Warnings</h2><ul>\n");
+        for w in &check.warnings {
+            let _ = writeln!(h, "<li>{}</li>", escape(w));
+        }
+        h.push_str("</ul>\n");
+    }
+    h.push_str("</body></html>\n");
+    h
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
