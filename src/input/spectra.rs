@@ -231,21 +231,15 @@ pub struct WideStream<R: Read> {
 
 const READ_SIZE: usize = 1 << 20;
 
-/// Read more bytes into `buf`; returns false at end of input.
+/// Read more bytes into `buf` (appending, without zero-filling first);
+/// returns false at end of input.
 fn fill<R: Read>(reader: &mut R, buf: &mut Vec<u8>) -> Result<bool> {
-    let old = buf.len();
-    buf.resize(old + READ_SIZE, 0);
+    buf.reserve(READ_SIZE);
     loop {
-        match reader.read(&mut buf[old..]) {
-            Ok(n) => {
-                buf.truncate(old + n);
-                return Ok(n > 0);
-            }
+        match reader.by_ref().take(READ_SIZE as u64).read_to_end(buf) {
+            Ok(n) => return Ok(n > 0),
             Err(e) if e.kind() == std::io::ErrorKind::Interrupted => continue,
-            Err(e) => {
-                buf.truncate(old);
-                return Err(Error::io("input", e));
-            }
+            Err(e) => return Err(Error::io("input", e)),
         }
     }
 }
@@ -422,9 +416,11 @@ impl<R: Read> WideStream<R> {
         self.next_line += count;
         self.start = end;
         let n = self.header.grid.len();
+        // Every slot is overwritten by the parser (failed rows are compacted
+        // out), so a recycled buffer need not be cleared first.
         let mut values = std::mem::take(&mut self.spare);
-        values.clear();
         values.resize(lines.len() * n, 0.0);
+        values.truncate(lines.len() * n);
         let header = &self.header;
         let options = self.options;
         let parsed: Vec<std::result::Result<String, (String, Error)>> = values
@@ -562,45 +558,62 @@ const POW10: [f64; 23] = [
 /// digits), which the general path then reads. The result is exact: an
 /// integer below 2⁵³ divided by an exact power of ten is correctly rounded
 /// (Clinger, PLDI 1990).
-#[inline]
-fn fast_decimal(line: &[u8], mut i: usize, delim: u8, decimal_comma: bool) -> Option<(f64, usize)> {
-    let len = line.len();
-    let neg = i < len && line[i] == b'-';
-    if i < len && (line[i] == b'-' || line[i] == b'+') {
-        i += 1;
+#[inline(always)]
+fn fast_decimal<const DECIMAL_COMMA: bool>(line: &[u8], i: usize, delim: u8) -> Option<(f64, usize)> {
+    let bytes = line.get(i..)?;
+    let len = bytes.len();
+    let mut k = 0;
+    let neg = len > 0 && bytes[0] == b'-';
+    if len > 0 && (bytes[0] == b'-' || bytes[0] == b'+') {
+        k = 1;
     }
     let mut mant: u64 = 0;
-    let mut digits = 0u32;
-    let mut frac = 0usize;
-    let mut point = false;
-    while i < len {
-        let b = line[i];
-        if b.is_ascii_digit() {
-            if digits >= 18 {
-                return None;
-            }
-            mant = mant * 10 + u64::from(b - b'0');
-            digits += 1;
-            if point {
-                frac += 1;
-            }
-        } else if !point && (b == b'.' || (decimal_comma && b == b',')) {
-            point = true;
-        } else {
+    let int_start = k;
+    while k < len {
+        let d = bytes[k].wrapping_sub(b'0');
+        if d > 9 {
             break;
         }
-        i += 1;
+        mant = mant.wrapping_mul(10).wrapping_add(u64::from(d));
+        k += 1;
     }
-    if digits == 0 || (i < len && line[i] != delim) || frac > 22 {
+    let mut digits = k - int_start;
+    let mut frac = 0;
+    if k < len && (bytes[k] == b'.' || (DECIMAL_COMMA && bytes[k] == b',')) {
+        k += 1;
+        let frac_start = k;
+        while k < len {
+            let d = bytes[k].wrapping_sub(b'0');
+            if d > 9 {
+                break;
+            }
+            mant = mant.wrapping_mul(10).wrapping_add(u64::from(d));
+            k += 1;
+        }
+        frac = k - frac_start;
+        digits += frac;
+    }
+    // More than 18 digits may have wrapped, and > 22 decimals has no exact
+    // power of ten: the general parser handles those.
+    if digits == 0 || digits > 18 || (k < len && bytes[k] != delim) {
         return None;
     }
-    let v = mant as f64 / POW10[frac];
-    Some((if neg { -v } else { v }, i))
+    // mant < 10¹⁸ < 2⁶³: the signed conversion is exact and one instruction.
+    let v = (mant as i64) as f64 / POW10[frac];
+    Some((if neg { -v } else { v }, i + k))
 }
 
 /// Read a row's values with the fast path; `None` if any field needs the
 /// general parser. Returns the end of the sample-name field.
 fn fast_row(line: &[u8], delim: u8, decimal_comma: bool, dst: &mut [f64]) -> Option<usize> {
+    if decimal_comma {
+        fast_row_with::<true>(line, delim, dst)
+    } else {
+        fast_row_with::<false>(line, delim, dst)
+    }
+}
+
+fn fast_row_with<const DECIMAL_COMMA: bool>(line: &[u8], delim: u8, dst: &mut [f64]) -> Option<usize> {
     let id_end = memchr::memchr(delim, line)?;
     if line[..id_end].contains(&b'"') {
         return None;
@@ -608,7 +621,7 @@ fn fast_row(line: &[u8], delim: u8, decimal_comma: bool, dst: &mut [f64]) -> Opt
     let n = dst.len();
     let mut pos = id_end + 1;
     for (k, slot) in dst.iter_mut().enumerate() {
-        let (v, next) = fast_decimal(line, pos, delim, decimal_comma)?;
+        let (v, next) = fast_decimal::<DECIMAL_COMMA>(line, pos, delim)?;
         *slot = v;
         if k + 1 < n {
             if next >= line.len() {
