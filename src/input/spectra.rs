@@ -559,7 +559,11 @@ const POW10: [f64; 23] = [
 /// integer below 2⁵³ divided by an exact power of ten is correctly rounded
 /// (Clinger, PLDI 1990).
 #[inline(always)]
-fn fast_decimal<const DECIMAL_COMMA: bool>(line: &[u8], i: usize, delim: u8) -> Option<(f64, usize)> {
+fn fast_decimal<const DECIMAL_COMMA: bool>(
+    line: &[u8],
+    i: usize,
+    delim: u8,
+) -> Option<(f64, usize)> {
     let bytes = line.get(i..)?;
     let len = bytes.len();
     let mut k = 0;
@@ -613,7 +617,11 @@ fn fast_row(line: &[u8], delim: u8, decimal_comma: bool, dst: &mut [f64]) -> Opt
     }
 }
 
-fn fast_row_with<const DECIMAL_COMMA: bool>(line: &[u8], delim: u8, dst: &mut [f64]) -> Option<usize> {
+fn fast_row_with<const DECIMAL_COMMA: bool>(
+    line: &[u8],
+    delim: u8,
+    dst: &mut [f64],
+) -> Option<usize> {
     let id_end = memchr::memchr(delim, line)?;
     if line[..id_end].contains(&b'"') {
         return None;
