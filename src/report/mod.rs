@@ -20,8 +20,8 @@ use std::fmt::Write;
 use svg::{DASHES, PALETTE, Panel, escape};
 
 /// Most points per plotted curve (min/max per bucket above this): about
-/// two pixels per point across the 520 px plot area.
-pub const MAX_PLOT_POINTS: usize = 260;
+/// three pixels per point across the 520 px plot area, plenty for UV-vis bands.
+pub const MAX_PLOT_POINTS: usize = 160;
 
 /// Width of a sample figure, px.
 const FIG_W: f64 = 760.0;
@@ -70,7 +70,9 @@ pub fn sample_figure(c: &Curves) -> String {
         y: yr,
     };
     top.axes(&mut out, "", "absorbance (AU)", false);
-    for (k, comp) in c.contributions_au.iter().enumerate() {
+    // Each layer is one polygon, its outline in the component's dash
+    // pattern (the lower edge is the previous layer's top).
+    for k in 0..c.contributions_au.len() {
         let colour = PALETTE[k % PALETTE.len()];
         top.band(
             &mut out,
@@ -78,19 +80,11 @@ pub fn sample_figure(c: &Curves) -> String {
             &layers[k],
             &layers[k + 1],
             &idx,
-            &format!(r#"fill="{colour}" fill-opacity="0.35" stroke="none""#),
-        );
-        top.line(
-            &mut out,
-            w,
-            &layers[k + 1],
-            &idx,
             &format!(
-                r#"stroke="{colour}" stroke-width="1.2" stroke-dasharray="{}""#,
+                r#"fill="{colour}" fill-opacity="0.35" stroke="{colour}" stroke-width="1" stroke-dasharray="{}""#,
                 DASHES[k % DASHES.len()]
             ),
         );
-        let _ = comp;
     }
     top.line(
         &mut out,
@@ -668,9 +662,9 @@ mod tests {
         assert!(s.ends_with("</svg>"));
         assert_eq!(s.matches("<svg").count(), 1);
         assert!(s.contains("s&lt;1&gt;"));
-        // measured, fitted, the component's top line, zero line, residual
-        assert_eq!(s.matches("<polyline").count(), 5);
-        assert!(s.len() < 120_000, "figure is {} bytes", s.len());
+        // measured, fitted, zero line, residual; one polygon per component
+        assert_eq!(s.matches("<polyline").count(), 4);
+        assert!(s.len() < 40_000, "figure is {} bytes", s.len());
         assert!(s.contains("masked (1)"));
     }
 }
