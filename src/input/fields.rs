@@ -200,6 +200,27 @@ pub fn number(field: &[u8], decimal_comma: bool) -> Result<f64, NumberError> {
     }
 }
 
+/// Whether a cell that is not a number is an instrument's overflow marker
+/// (a saturated reading): a word without digits such as `OVER`, `OVRFLW`,
+/// `Sat`, `****` or `inf`, or `>` followed by a number (`>4`). `NaN` and
+/// negative text are not.
+pub fn is_overflow_marker(raw: &[u8], decimal_comma: bool) -> bool {
+    let t = text(raw);
+    let t = t.trim();
+    if t.eq_ignore_ascii_case("nan") || t.starts_with('-') {
+        return false;
+    }
+    if let Some(rest) = t.strip_prefix('>') {
+        return number(rest.as_bytes(), decimal_comma).is_ok();
+    }
+    let word = t.trim_start_matches('+');
+    !word.is_empty()
+        && !word.bytes().any(|b| b.is_ascii_digit())
+        && word
+            .bytes()
+            .all(|b| b.is_ascii_alphabetic() || matches!(b, b'*' | b'#' | b'.' | b' '))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -232,6 +253,16 @@ mod tests {
         assert_eq!(number(b"abc", false), Err(NumberError::NotANumber));
         assert_eq!(number(b"  ", false), Err(NumberError::Empty));
         assert!((number(b" \"1.5e-3\" ", false).unwrap() - 1.5e-3).abs() < 1e-18);
+    }
+
+    #[test]
+    fn overflow_markers_are_recognised() {
+        for m in ["OVER", "OVRFLW", "Sat", "****", ">4", "inf", "+OVER"] {
+            assert!(is_overflow_marker(m.as_bytes(), false), "{m}");
+        }
+        for m in ["NaN", "-OVER", "abc1", ">x", "", "0.5"] {
+            assert!(!is_overflow_marker(m.as_bytes(), false), "{m}");
+        }
     }
 
     #[test]
