@@ -200,25 +200,42 @@ pub fn number(field: &[u8], decimal_comma: bool) -> Result<f64, NumberError> {
     }
 }
 
+/// Words plate readers and spectrometers print for a reading above their
+/// range (compared case-insensitively, a trailing `.` ignored). Common
+/// practice across instruments, no single source.
+pub const OVERFLOW_WORDS: &[&str] = &[
+    "over",
+    "overflow",
+    "ovrflw",
+    "ovrflow",
+    "ovfl",
+    "ovf",
+    "sat",
+    "saturated",
+    "inf",
+    "+inf",
+    "infinity",
+    "hi",
+    "high",
+    "range",
+    "out of range",
+];
+
 /// Whether a cell that is not a number is an instrument's overflow marker
-/// (a saturated reading): a word without digits such as `OVER`, `OVRFLW`,
-/// `Sat`, `****` or `inf`, or `>` followed by a number (`>4`). `NaN` and
-/// negative text are not.
+/// (a saturated reading): one of [`OVERFLOW_WORDS`], a run of `*` or `#`,
+/// or `>` followed by a number (`>4`). Other text (`x`, `abc`, `NaN`) is not:
+/// a garbled cell stays an error rather than silently becoming "saturated".
 pub fn is_overflow_marker(raw: &[u8], decimal_comma: bool) -> bool {
     let t = text(raw);
     let t = t.trim();
-    if t.eq_ignore_ascii_case("nan") || t.starts_with('-') {
-        return false;
-    }
     if let Some(rest) = t.strip_prefix('>') {
         return number(rest.as_bytes(), decimal_comma).is_ok();
     }
-    let word = t.trim_start_matches('+');
-    !word.is_empty()
-        && !word.bytes().any(|b| b.is_ascii_digit())
-        && word
-            .bytes()
-            .all(|b| b.is_ascii_alphabetic() || matches!(b, b'*' | b'#' | b'.' | b' '))
+    if !t.is_empty() && (t.bytes().all(|b| b == b'*') || t.bytes().all(|b| b == b'#')) {
+        return true;
+    }
+    let word = t.strip_suffix('.').unwrap_or(t).to_ascii_lowercase();
+    OVERFLOW_WORDS.contains(&word.as_str())
 }
 
 #[cfg(test)]
@@ -257,10 +274,12 @@ mod tests {
 
     #[test]
     fn overflow_markers_are_recognised() {
-        for m in ["OVER", "OVRFLW", "Sat", "****", ">4", "inf", "+OVER"] {
+        for m in [
+            "OVER", "OVRFLW", "Sat.", "****", "###", ">4", "inf", "Overflow",
+        ] {
             assert!(is_overflow_marker(m.as_bytes(), false), "{m}");
         }
-        for m in ["NaN", "-OVER", "abc1", ">x", "", "0.5"] {
+        for m in ["NaN", "-OVER", "abc1", ">x", "", "0.5", "x", "abc"] {
             assert!(!is_overflow_marker(m.as_bytes(), false), "{m}");
         }
     }
