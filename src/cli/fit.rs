@@ -259,6 +259,7 @@ fn run_with_curves(
     let bytes = read_input(&args.input)?;
     let read_options = ReadOptions {
         quantity: args.quantity.into(),
+        ..Default::default()
     };
     let file = spectra::read(&bytes, read_options).map_err(ctx)?;
     let report = crate::fit::fit_file_with(&file, refs, options, checks).map_err(ctx)?;
