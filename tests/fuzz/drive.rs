@@ -133,8 +133,11 @@ pub fn component(data: &[u8]) {
     );
 }
 
+/// A parser driver: bytes in, no panic out.
+pub type Target = fn(&[u8]);
+
 /// Every target by name (the folder names under `corpus/` and `regressions/`).
-pub const TARGETS: [(&str, fn(&[u8])); 6] = [
+pub const TARGETS: [(&str, Target); 6] = [
     ("spectra", spectra),
     ("epsilon", epsilon),
     ("concentrations", concentrations),
