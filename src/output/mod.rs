@@ -119,11 +119,39 @@ fn csv_rows(o: &Outcome, out: &mut String) {
             out.push('\n');
         }
         Outcome::Fitted(s) => {
-            // The residual-check columns are the same on every row of a sample.
-            let mut extra = String::new();
-            notes::csv_extra(s, &mut extra);
+            // The per-sample columns are the same on every row of a sample:
+            // format them once.
+            let mut tail = String::with_capacity(160);
+            opt(&mut tail, s.baseline.offset_au);
+            tail.push(',');
+            opt(&mut tail, s.baseline.slope_au_per_nm);
+            tail.push(',');
+            num(&mut tail, s.residual_rms);
+            tail.push(',');
+            opt(&mut tail, s.r_squared);
+            tail.push(',');
+            num(&mut tail, s.range_nm[0]);
+            tail.push(',');
+            num(&mut tail, s.range_nm[1]);
+            tail.push(',');
+            tail.push_str(itoa::Buffer::new().format(s.n_points));
+            tail.push(',');
+            num(&mut tail, s.pathlength_cm);
+            tail.push(',');
+            tail.push_str(&s.solver);
+            tail.push(',');
+            for (i, f) in s.flags.iter().enumerate() {
+                if i > 0 {
+                    tail.push(' ');
+                }
+                tail.push_str(f);
+            }
+            tail.push(',');
+            notes::csv_extra(s, &mut tail);
+            tail.push('\n');
+            let sample = csv_field(&s.sample);
             for c in &s.components {
-                out.push_str(&csv_field(&s.sample));
+                out.push_str(&sample);
                 out.push(',');
                 out.push_str(&csv_field(&c.name));
                 out.push(',');
@@ -139,28 +167,7 @@ fn csv_rows(o: &Outcome, out: &mut String) {
                 out.push(',');
                 opt(out, c.mass_fraction);
                 out.push(',');
-                opt(out, s.baseline.offset_au);
-                out.push(',');
-                opt(out, s.baseline.slope_au_per_nm);
-                out.push(',');
-                num(out, s.residual_rms);
-                out.push(',');
-                opt(out, s.r_squared);
-                out.push(',');
-                num(out, s.range_nm[0]);
-                out.push(',');
-                num(out, s.range_nm[1]);
-                out.push(',');
-                out.push_str(&s.n_points.to_string());
-                out.push(',');
-                num(out, s.pathlength_cm);
-                out.push(',');
-                out.push_str(&s.solver);
-                out.push(',');
-                out.push_str(&s.flags.join(" "));
-                out.push(',');
-                out.push_str(&extra);
-                out.push('\n');
+                out.push_str(&tail);
             }
         }
     }

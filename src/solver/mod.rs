@@ -110,6 +110,9 @@ pub struct Prepared {
     pub(crate) n_nonneg: usize,
     /// Scaled columns, column-major (unit length).
     pub(crate) columns: Vec<f64>,
+    /// The same columns row-major in groups of eight (zero-padded): row i of
+    /// group g holds columns 8g..8g+8 at point i, for the Eᵀa pass.
+    pub(crate) rows8: Vec<[f64; 8]>,
     /// Column norms (the scaling), one per column.
     pub(crate) scale: Vec<f64>,
     /// Gram matrix of the scaled columns, row-major p × p.
@@ -234,6 +237,7 @@ impl Prepared {
             n,
             p,
             n_nonneg,
+            rows8: normal::interleave(&scaled, n, p),
             columns: scaled,
             scale,
             gram,

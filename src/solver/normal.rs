@@ -172,49 +172,52 @@ fn back_solve(f: &Factor, r: &[f64], z: &mut [f64], tmp: &mut [f64]) {
 /// Dot product with eight independent accumulators over exact chunks, a
 /// shape the compiler turns into packed SIMD multiply-adds without bounds
 /// checks.
-/// r = Eᵀa for column-major `columns` (n points each), four columns per
-/// pass so each loaded value of `a` serves four products; returns aᵀa.
-/// Compiled for AVX2 as well as the baseline, chosen at run time; the
-/// summation order is fixed by the code, so every version gives the same
-/// bits.
+/// Column-major columns (n points each, p columns) as row-major groups of
+/// eight, zero-padded: `out[g * n + i][l]` is column 8g + l at point i.
+pub(crate) fn interleave(columns: &[f64], n: usize, p: usize) -> Vec<[f64; 8]> {
+    let groups = p.div_ceil(8);
+    let mut out = vec![[0.0f64; 8]; groups * n];
+    for j in 0..p {
+        let (g, l) = (j / 8, j % 8);
+        for i in 0..n {
+            out[g * n + i][l] = columns[j * n + i];
+        }
+    }
+    out
+}
+
+/// r = Eᵀa from the row-major groups of [`interleave`]: one pass over the
+/// spectrum per eight columns, each a[i] broadcast against eight column
+/// values (two accumulator sets for even and odd points hide the add
+/// latency); returns aᵀa. Compiled for AVX2 as well as the baseline and
+/// chosen at run time; the summation order is fixed by the code, so every
+/// version gives the same bits.
 #[multiversion::multiversion(targets("x86_64+avx2"))]
-pub(crate) fn project(columns: &[f64], n: usize, a: &[f64], r: &mut [f64]) -> f64 {
+pub(crate) fn project(rows8: &[[f64; 8]], n: usize, a: &[f64], r: &mut [f64]) -> f64 {
     let p = r.len();
     let a = &a[..n];
-    let mut j = 0;
-    while j + 4 <= p {
-        let c0 = &columns[j * n..(j + 1) * n];
-        let c1 = &columns[(j + 1) * n..(j + 2) * n];
-        let c2 = &columns[(j + 2) * n..(j + 3) * n];
-        let c3 = &columns[(j + 3) * n..(j + 4) * n];
-        let mut acc = [[0.0f64; 4]; 4];
-        let it = a
-            .chunks_exact(4)
-            .zip(c0.chunks_exact(4))
-            .zip(c1.chunks_exact(4))
-            .zip(c2.chunks_exact(4))
-            .zip(c3.chunks_exact(4));
-        for ((((x, y0), y1), y2), y3) in it {
-            for l in 0..4 {
-                acc[0][l] += x[l] * y0[l];
-                acc[1][l] += x[l] * y1[l];
-                acc[2][l] += x[l] * y2[l];
-                acc[3][l] += x[l] * y3[l];
+    for (g, group) in rows8.chunks_exact(n).enumerate() {
+        let mut even = [0.0f64; 8];
+        let mut odd = [0.0f64; 8];
+        let pairs = group.chunks_exact(2).zip(a.chunks_exact(2));
+        for (rows, x) in pairs {
+            for l in 0..8 {
+                even[l] += rows[0][l] * x[0];
+                odd[l] += rows[1][l] * x[1];
             }
         }
-        let tail = n - n % 4;
-        for (q, c) in [c0, c1, c2, c3].iter().enumerate() {
-            let mut s = (acc[q][0] + acc[q][2]) + (acc[q][1] + acc[q][3]);
-            for i in tail..n {
-                s += a[i] * c[i];
+        if n % 2 == 1 {
+            let x = a[n - 1];
+            for l in 0..8 {
+                even[l] += group[n - 1][l] * x;
             }
-            r[j + q] = s;
         }
-        j += 4;
-    }
-    while j < p {
-        r[j] = dot(&columns[j * n..(j + 1) * n], a);
-        j += 1;
+        for l in 0..8 {
+            let j = g * 8 + l;
+            if j < p {
+                r[j] = even[l] + odd[l];
+            }
+        }
     }
     dot(a, a)
 }
@@ -281,28 +284,30 @@ fn solve_mask(prep: &Prepared, ws: &mut Workspace, mask: u64) -> Result<()> {
 /// bitmask and the status.
 pub(crate) fn solve(prep: &Prepared, a: &[f64], ws: &mut Workspace) -> Result<(f64, u64, Status)> {
     let (n, p, nn) = (prep.n, prep.p, prep.n_nonneg);
-    let aa = project(&prep.columns, n, a, &mut ws.r);
+    let aa = project(&prep.rows8, n, a, &mut ws.r);
     // A new right-hand side: any cached z is stale.
     ws.z_mask = None;
     let free_mask: u64 = (nn..p).fold(0, |m, j| m | (1 << j));
     let rmax = ws.r.iter().fold(0.0f64, |m, v| m.max(v.abs()));
     let tol = 1e-12 * rmax.max(f64::MIN_POSITIVE);
 
-    // Start: the previous spectrum's passive set if it is feasible here,
-    // else only the free variables.
-    let mut mask = free_mask;
-    let mut started = false;
-    if let Some(warm) = ws.last_mask
-        && warm != free_mask
-    {
-        solve_mask(prep, ws, warm)?;
-        if (0..nn).all(|j| warm & (1 << j) == 0 || ws.z[j] > 0.0) {
-            mask = warm;
-            started = true;
-        }
-    }
-    if !started {
+    // Start from the previous spectrum's passive set (every variable for the
+    // first spectrum of a chunk) and drop the components whose
+    // least-squares value is not positive until the rest are: a feasible
+    // start with x_P > 0 solving the sub-problem, as the Lawson–Hanson
+    // iteration requires. Usually one or two sub-solves instead of adding
+    // the components one at a time.
+    let all_mask: u64 = (0..p).fold(0, |m, j| m | (1 << j));
+    let mut mask = ws.last_mask.unwrap_or(all_mask) | free_mask;
+    loop {
         solve_mask(prep, ws, mask)?;
+        let bad = (0..nn)
+            .filter(|&j| mask & (1 << j) != 0 && ws.z[j] <= 0.0)
+            .fold(0u64, |m, j| m | (1 << j));
+        if bad == 0 {
+            break;
+        }
+        mask &= !bad;
     }
     ws.x.copy_from_slice(&ws.z);
 
