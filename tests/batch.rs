@@ -843,3 +843,48 @@ fn help_names_the_layouts_outputs_and_exit_codes() {
         assert!(help.contains(needle), "{needle} missing from help");
     }
 }
+
+/// Overflow words in the wide and long layouts are saturated points too
+/// (left out, well flagged), not a parse error that loses the well.
+#[test]
+fn overflow_words_in_wide_and_long_files_are_saturated_points() {
+    let dir = temp_dir("overflow-wide");
+    let refs = Refs::new(grid_400_700());
+    let mut rng = Rng(11);
+    let mut wide = String::from("sample");
+    for w in &refs.wavelengths_nm {
+        write!(wide, ",{w}").unwrap();
+    }
+    wide.push('\n');
+    let mut long = String::from("sample,wavelength_nm,absorbance\n");
+    for (i, well) in ["A1", "A2"].iter().enumerate() {
+        let s = refs.spectrum(&truth(i), 1.0, 0.0, &mut rng);
+        wide.push_str(well);
+        for (p, v) in s.iter().enumerate() {
+            let cell = if i == 1 && (100..103).contains(&p) {
+                "OVER".to_string()
+            } else {
+                reading(*v)
+            };
+            write!(wide, ",{cell}").unwrap();
+            writeln!(long, "{well},{},{cell}", refs.wavelengths_nm[p]).unwrap();
+        }
+        wide.push('\n');
+    }
+    std::fs::write(dir.join("wide.csv"), wide).unwrap();
+    std::fs::write(dir.join("long.csv"), long).unwrap();
+    for (input, out) in [("wide.csv", "out-wide"), ("long.csv", "out-long")] {
+        let o = run_batch(&[input, "--out-dir", out], &dir);
+        let stderr = String::from_utf8_lossy(&o.stderr);
+        assert_eq!(o.status.code(), Some(0), "{input}: {stderr}");
+        let wells = csv_rows(&dir.join(format!("{out}/wells.csv")));
+        let a2: Vec<_> = wells.iter().filter(|r| r["well"] == "A2").collect();
+        assert!(!a2.is_empty(), "{input}: A2 missing");
+        assert!(
+            a2[0]["flags"].contains("saturated-reading"),
+            "{input}: {:?}",
+            a2[0]
+        );
+    }
+    std::fs::remove_dir_all(&dir).unwrap();
+}

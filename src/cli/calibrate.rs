@@ -145,6 +145,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         &bytes,
         ReadOptions {
             quantity: args.quantity.into(),
+            ..Default::default()
         },
     )
     .map_err(|e| Failure::new(format!("{shown}: {e}")))?;

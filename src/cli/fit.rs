@@ -170,6 +170,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let ctx = |e: crate::Error| Failure::new(format!("{shown}: {e}"));
     let read_options = ReadOptions {
         quantity: args.quantity.into(),
+        ..Default::default()
     };
     match spectra::open(reader, read_options).map_err(ctx)? {
         Opened::Long(file) => {

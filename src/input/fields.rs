@@ -200,6 +200,44 @@ pub fn number(field: &[u8], decimal_comma: bool) -> Result<f64, NumberError> {
     }
 }
 
+/// Words plate readers and spectrometers print for a reading above their
+/// range (compared case-insensitively, a trailing `.` ignored). Common
+/// practice across instruments, no single source.
+pub const OVERFLOW_WORDS: &[&str] = &[
+    "over",
+    "overflow",
+    "ovrflw",
+    "ovrflow",
+    "ovfl",
+    "ovf",
+    "sat",
+    "saturated",
+    "inf",
+    "+inf",
+    "infinity",
+    "hi",
+    "high",
+    "range",
+    "out of range",
+];
+
+/// Whether a cell that is not a number is an instrument's overflow marker
+/// (a saturated reading): one of [`OVERFLOW_WORDS`], a run of `*` or `#`,
+/// or `>` followed by a number (`>4`). Other text (`x`, `abc`, `NaN`) is not:
+/// a garbled cell stays an error rather than silently becoming "saturated".
+pub fn is_overflow_marker(raw: &[u8], decimal_comma: bool) -> bool {
+    let t = text(raw);
+    let t = t.trim();
+    if let Some(rest) = t.strip_prefix('>') {
+        return number(rest.as_bytes(), decimal_comma).is_ok();
+    }
+    if !t.is_empty() && (t.bytes().all(|b| b == b'*') || t.bytes().all(|b| b == b'#')) {
+        return true;
+    }
+    let word = t.strip_suffix('.').unwrap_or(t).to_ascii_lowercase();
+    OVERFLOW_WORDS.contains(&word.as_str())
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -232,6 +270,18 @@ mod tests {
         assert_eq!(number(b"abc", false), Err(NumberError::NotANumber));
         assert_eq!(number(b"  ", false), Err(NumberError::Empty));
         assert!((number(b" \"1.5e-3\" ", false).unwrap() - 1.5e-3).abs() < 1e-18);
+    }
+
+    #[test]
+    fn overflow_markers_are_recognised() {
+        for m in [
+            "OVER", "OVRFLW", "Sat.", "****", "###", ">4", "inf", "Overflow",
+        ] {
+            assert!(is_overflow_marker(m.as_bytes(), false), "{m}");
+        }
+        for m in ["NaN", "-OVER", "abc1", ">x", "", "0.5", "x", "abc"] {
+            assert!(!is_overflow_marker(m.as_bytes(), false), "{m}");
+        }
     }
 
     #[test]

@@ -323,26 +323,10 @@ fn cell(raw: &[u8], decimal_comma: bool, quantity: Quantity) -> std::result::Res
         Err(fields::NumberError::Empty) => Ok(Cell::Missing),
         Err(_) => {
             let t = fields::text(raw);
-            let t = t.trim();
-            if t.eq_ignore_ascii_case("nan") {
+            if t.trim().eq_ignore_ascii_case("nan") {
                 return Err(format!("{} (NaN is not a reading)", expected()));
             }
-            if t.starts_with('-') {
-                return Err(expected());
-            }
-            if let Some(rest) = t.strip_prefix('>') {
-                return match fields::number(rest.as_bytes(), decimal_comma) {
-                    Ok(_) => Ok(Cell::Saturated),
-                    Err(_) => Err(expected()),
-                };
-            }
-            let word = t.trim_start_matches('+');
-            if !word.is_empty()
-                && !word.bytes().any(|b| b.is_ascii_digit())
-                && word
-                    .bytes()
-                    .all(|b| b.is_ascii_alphabetic() || matches!(b, b'*' | b'#' | b'.' | b' '))
-            {
+            if fields::is_overflow_marker(raw, decimal_comma) {
                 Ok(Cell::Saturated)
             } else {
                 Err(expected())

@@ -96,8 +96,14 @@ impl RawPlate {
                 text.extend_from_slice(&rows);
                 // Rows start on line 2 of `text`; shift messages to the file.
                 let shift = self.first_line.saturating_sub(2);
-                let file = spectra::read(&text, ReadOptions { quantity })
-                    .map_err(|e| shift_lines(e, shift))?;
+                let file = spectra::read(
+                    &text,
+                    ReadOptions {
+                        quantity,
+                        overflow_as_saturated: true,
+                    },
+                )
+                .map_err(|e| shift_lines(e, shift))?;
                 from_spectra(&self.name, file, shift)
                     .pop()
                     .ok_or_else(|| Error::structure(self.first_line, "no rows for this plate"))
@@ -365,7 +371,13 @@ impl<R: Read> PlateStream<R> {
             .map(|i| end + 1 + i)
             .unwrap_or(s.buf.len());
         let probe = s.buf[..probe_len].to_vec();
-        let layout = match spectra::read(&probe, ReadOptions { quantity }) {
+        let layout = match spectra::read(
+            &probe,
+            ReadOptions {
+                quantity,
+                overflow_as_saturated: true,
+            },
+        ) {
             Ok(f) => f.layout,
             Err(e) => {
                 let e = shift_lines(e, header_line - 1);
@@ -398,7 +410,13 @@ impl<R: Read> PlateStream<R> {
             text.extend_from_slice(s.header.as_deref().map_or(&[][..], |h| h.as_slice()));
             text.push(b'\n');
             text.append(&mut s.buf);
-            let file = spectra::read(&text, ReadOptions { quantity })?;
+            let file = spectra::read(
+                &text,
+                ReadOptions {
+                    quantity,
+                    overflow_as_saturated: true,
+                },
+            )?;
             drop(text);
             let stem = s.stem.clone();
             for p in from_spectra(&stem, file, 0) {

@@ -80,6 +80,11 @@ pub enum Layout {
 pub struct ReadOptions {
     /// What the numbers measure.
     pub quantity: Quantity,
+    /// Read instrument overflow markers (`OVER`, `>4`, …; see
+    /// [`fields::is_overflow_marker`]) as saturated points, `f64::INFINITY`,
+    /// instead of failing the row. Only for callers that mask such points
+    /// (plate batches); `fit` leaves it off.
+    pub overflow_as_saturated: bool,
 }
 
 /// Spectra that share one wavelength grid, stored row-major.
@@ -774,6 +779,13 @@ fn parse_wide_row<'a>(
                 ));
             }
             for (col, field) in scratch[1..].iter().enumerate() {
+                if options.overflow_as_saturated
+                    && fields::number(field, decimal_comma).is_err()
+                    && fields::is_overflow_marker(field, decimal_comma)
+                {
+                    dst[col] = f64::INFINITY;
+                    continue;
+                }
                 let v = fields::number(field, decimal_comma)
                     .map_err(|e| e.expected(options.quantity.noun()))
                     .and_then(|v| options.quantity.to_absorbance(v).map_err(str::to_string))
@@ -852,6 +864,12 @@ fn read_long(
             let w = fields::number(scratch[1], decimal_comma).map_err(|e| {
                 Error::parse(line_no, 2, scratch[1], e.expected("a wavelength in nm"))
             })?;
+            if options.overflow_as_saturated
+                && fields::number(scratch[2], decimal_comma).is_err()
+                && fields::is_overflow_marker(scratch[2], decimal_comma)
+            {
+                return Ok((w, f64::INFINITY));
+            }
             let v = fields::number(scratch[2], decimal_comma)
                 .map_err(|e| e.expected(options.quantity.noun()))
                 .and_then(|v| options.quantity.to_absorbance(v).map_err(str::to_string))
@@ -1007,6 +1025,7 @@ mod tests {
     fn transmittance_is_converted_to_absorbance() {
         let opts = ReadOptions {
             quantity: Quantity::TransmittancePercent,
+            ..Default::default()
         };
         let f = read("sample,400\ns,10\n".as_bytes(), opts).unwrap();
         assert!((f.blocks[0].row(0)[0] - 1.0).abs() < 1e-12);
