@@ -34,19 +34,26 @@ fn ascending(xs: &[f64]) -> bool {
 /// Spectrum CSV, wide and long layouts (the layout is detected from the
 /// header, so one entry point covers both).
 pub fn spectra(data: &[u8]) {
-    let Ok(file) = spectra::read(
-        data,
-        ReadOptions {
-            quantity: quantity(data),
-        },
-    ) else {
+    // Both reading modes: overflow markers fail the row (`fit`) or become
+    // saturated points, +inf (plate batches).
+    let overflow_as_saturated = data.get(1).is_some_and(|b| b % 2 == 1);
+    let options = ReadOptions {
+        quantity: quantity(data),
+        overflow_as_saturated,
+    };
+    let Ok(file) = spectra::read(data, options) else {
         return;
     };
     for block in &file.blocks {
         let grid = block.grid.wavelengths_nm();
         assert!(ascending(grid), "accepted grid is not ascending");
         assert_eq!(block.absorbance_au.len(), block.ids.len() * grid.len());
-        assert!(block.absorbance_au.iter().all(|v| v.is_finite()));
+        assert!(
+            block
+                .absorbance_au
+                .iter()
+                .all(|v| v.is_finite() || (overflow_as_saturated && plate::is_saturated(*v)))
+        );
     }
 }
 
