@@ -4,14 +4,47 @@
 //! rename stays on one file system), is flushed to disk, and is renamed over
 //! the target only when complete. A failed or interrupted run leaves either
 //! the old file or the new one, never half of one.
+//!
+//! Temporaries still open are recorded, so that an interrupted run (Ctrl-C,
+//! SIGINT or SIGTERM; see [`exit_removing_temporaries`]) removes them before it
+//! exits instead of leaving `.NAME.tmp-…` files beside the outputs.
 
 use crate::error::{Error, Result};
 use std::fs::{self, File};
 use std::io::{BufWriter, Write};
 use std::path::{Path, PathBuf};
+use std::sync::Mutex;
 use std::sync::atomic::{AtomicU64, Ordering};
 
 static COUNTER: AtomicU64 = AtomicU64::new(0);
+
+/// Temporary files created and not yet renamed or removed.
+static OPEN: Mutex<Vec<PathBuf>> = Mutex::new(Vec::new());
+
+fn open_temp(tmp: &Path) {
+    if let Ok(mut open) = OPEN.lock() {
+        open.push(tmp.to_path_buf());
+    }
+}
+
+fn close_temp(tmp: &Path) {
+    if let Ok(mut open) = OPEN.lock() {
+        open.retain(|p| p != tmp);
+    }
+}
+
+/// Remove every temporary file this process has open and exit with `code`,
+/// for a run that is being interrupted. The targets are untouched: they keep
+/// their previous content (or stay absent). The list stays locked until the
+/// process ends, so no writer can record a new temporary meanwhile.
+pub fn exit_removing_temporaries(code: i32) -> ! {
+    // A poisoned lock still holds the list; the paths are what matters.
+    let open = OPEN.lock().unwrap_or_else(|p| p.into_inner());
+    for p in open.iter() {
+        let _ = fs::remove_file(p);
+    }
+    std::process::exit(code)
+}
 
 /// A temporary name beside `target`, unique to this process and call.
 pub fn temp_path(target: &Path) -> PathBuf {
@@ -33,6 +66,7 @@ where
 {
     let shown = target.display().to_string();
     let tmp = temp_path(target);
+    open_temp(&tmp);
     let result = (|| -> std::io::Result<()> {
         let file = File::create(&tmp)?;
         let mut w = BufWriter::with_capacity(1 << 16, file);
@@ -48,8 +82,11 @@ where
         }
         Ok(())
     })();
-    if let Err(e) = result {
+    if result.is_err() {
         let _ = fs::remove_file(&tmp);
+    }
+    close_temp(&tmp);
+    if let Err(e) = result {
         if no_clobber && e.kind() == std::io::ErrorKind::AlreadyExists {
             return Err(Error::Invalid(format!(
                 "{shown} already exists: choose another name or pass --replace"
@@ -81,7 +118,14 @@ impl AtomicFile {
     /// Create the temporary file for `target`.
     pub fn create(target: &Path) -> Result<Self> {
         let tmp = temp_path(target);
-        let file = File::create(&tmp).map_err(|e| Error::io(target.display().to_string(), e))?;
+        open_temp(&tmp);
+        let file = match File::create(&tmp) {
+            Ok(f) => f,
+            Err(e) => {
+                close_temp(&tmp);
+                return Err(Error::io(target.display().to_string(), e));
+            }
+        };
         Ok(AtomicFile {
             target: target.to_path_buf(),
             tmp,
@@ -106,6 +150,9 @@ impl AtomicFile {
             file.sync_all()?;
             fs::rename(&self.tmp, &self.target)
         })();
+        if result.is_ok() {
+            close_temp(&self.tmp);
+        }
         result.map_err(|e| Error::io(shown, e))
     }
 }
@@ -138,6 +185,7 @@ impl Drop for AtomicFile {
         if self.writer.take().is_some() || self.tmp.exists() {
             let _ = fs::remove_file(&self.tmp);
         }
+        close_temp(&self.tmp);
     }
 }
 

@@ -14,6 +14,8 @@
 //! → [`preprocess`] (range, interpolation, baseline) → [`solver`] (NNLS) →
 //! [`fit`] (results and flags) → [`output`] (table, CSV, JSON).
 #![warn(missing_docs)]
+// Nothing panics on user input (STYLE.md): no unwrap/expect outside tests.
+#![cfg_attr(not(test), deny(clippy::unwrap_used, clippy::expect_used))]
 
 pub mod atomic;
 pub mod batch;

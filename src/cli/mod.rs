@@ -26,6 +26,9 @@ pub mod exit {
     pub const USAGE: u8 = 2;
     /// Partly done: some samples could not be fitted; the rest were.
     pub const PARTIAL: u8 = 3;
+    /// Interrupted (Ctrl-C, SIGINT or SIGTERM): 128 + SIGINT, the shell's
+    /// convention. Outputs keep their previous content.
+    pub const INTERRUPTED: u8 = 130;
 }
 
 const AFTER_HELP: &str = "\
@@ -34,6 +37,7 @@ Exit codes:
   1  failure: nothing was fitted or written (bad file, library or option)
   2  command-line usage error
   3  partial: some samples failed (listed in the output), the others were fitted
+  130  interrupted (Ctrl-C): outputs keep their previous content
 
 Results are decision support, not a certified analysis.";
 
@@ -91,6 +95,14 @@ impl From<crate::Error> for Failure {
 
 /// Parse the command line, run it, and return the exit code.
 pub fn main() -> ExitCode {
+    // An interrupted run removes its temporary files; the outputs it was
+    // writing keep their previous content (see `atomic`). If the handler
+    // cannot be installed the default applies: the process stops at once and
+    // temporaries stay behind, but no output is ever half written.
+    let _ = ctrlc::set_handler(|| {
+        eprintln!("unblend: interrupted: outputs left as they were");
+        crate::atomic::exit_removing_temporaries(i32::from(exit::INTERRUPTED))
+    });
     let cli = match Cli::try_parse() {
         Ok(c) => c,
         Err(e) => {

@@ -1,0 +1,154 @@
+//! Feeds arbitrary bytes to each input parser. Shared by the fuzz targets
+//! (`tests/fuzz/fuzz_targets/*.rs`) and by the regression test that replays
+//! the kept corpus in the normal suite (`tests/fuzz_regressions.rs`).
+//!
+//! Each function must return without panicking whatever the bytes are; an
+//! `Err` is a fine outcome. Where a parser accepts the input, the values it
+//! hands on are checked against the guarantees later stages rely on
+//! (finite numbers, ascending wavelengths, consistent lengths).
+#![allow(dead_code)]
+
+use unblend::input::spectra::{self, Quantity, ReadOptions};
+use unblend::input::{concentrations, epsilon, plate, platemap, plates};
+use unblend::reference::Component;
+
+const QUANTITIES: [Quantity; 4] = [
+    Quantity::Absorbance,
+    Quantity::AbsorbanceNatural,
+    Quantity::Transmittance,
+    Quantity::TransmittancePercent,
+];
+
+/// The quantity to read with, picked from the input so every conversion is
+/// exercised.
+fn quantity(data: &[u8]) -> Quantity {
+    QUANTITIES[data
+        .first()
+        .map_or(0, |b| usize::from(*b) % QUANTITIES.len())]
+}
+
+fn ascending(xs: &[f64]) -> bool {
+    xs.windows(2).all(|w| w[0] < w[1])
+}
+
+/// Spectrum CSV, wide and long layouts (the layout is detected from the
+/// header, so one entry point covers both).
+pub fn spectra(data: &[u8]) {
+    // Both reading modes: overflow markers fail the row (`fit`) or become
+    // saturated points, +inf (plate batches).
+    let overflow_as_saturated = data.get(1).is_some_and(|b| b % 2 == 1);
+    let options = ReadOptions {
+        quantity: quantity(data),
+        overflow_as_saturated,
+    };
+    let Ok(file) = spectra::read(data, options) else {
+        return;
+    };
+    for block in &file.blocks {
+        let grid = block.grid.wavelengths_nm();
+        assert!(ascending(grid), "accepted grid is not ascending");
+        assert_eq!(block.absorbance_au.len(), block.ids.len() * grid.len());
+        assert!(
+            block
+                .absorbance_au
+                .iter()
+                .all(|v| v.is_finite() || (overflow_as_saturated && plate::is_saturated(*v)))
+        );
+    }
+}
+
+/// Molar absorptivity tables (`library add --from`).
+pub fn epsilon(data: &[u8]) {
+    if let Ok(table) = epsilon::read(data) {
+        let grid = table.grid.wavelengths_nm();
+        assert!(ascending(grid), "accepted ε grid is not ascending");
+        assert_eq!(table.epsilon_l_per_mol_cm.len(), grid.len());
+        assert!(table.epsilon_l_per_mol_cm.iter().all(|v| v.is_finite()));
+    }
+}
+
+/// Calibration concentration files, with and without a unit flag and a
+/// molar mass.
+pub fn concentrations(data: &[u8]) {
+    for unit in [None, Some(concentrations::ConcentrationUnit::MgPerL)] {
+        if let Ok(table) = concentrations::read(data, unit) {
+            for molar_mass in [None, Some(294.18)] {
+                if let Ok(standards) = table.standards(molar_mass) {
+                    for s in standards {
+                        assert!(s.concentration_mol_per_l.is_finite());
+                        assert!(s.concentration_mol_per_l >= 0.0);
+                    }
+                }
+            }
+        }
+    }
+}
+
+/// Plate grids, one plate parsed directly and the same bytes as a stream
+/// of plates (any layout).
+pub fn plate_grid(data: &[u8]) {
+    let q = quantity(data);
+    if let Ok(p) = plate::parse_grid(data, 1, "fuzz", q) {
+        check_plate(&p);
+    }
+    let Ok(mut stream) = plates::PlateStream::open(data, "fuzz", q) else {
+        return;
+    };
+    // A stream over bytes cannot fail on I/O; stop at the first error anyway.
+    while let Ok(Some(raw)) = stream.next_plate() {
+        if let Ok(p) = raw.parse(q) {
+            check_plate(&p);
+        }
+    }
+}
+
+/// What `PlateSpectra` promises: one row per well, every value finite or a
+/// saturated reading (`+inf`).
+fn check_plate(p: &plate::PlateSpectra) {
+    let n = p.grid.as_ref().map_or(0, |g| g.len());
+    assert_eq!(p.absorbance_au.len(), p.wells.len() * n);
+    assert!(
+        p.absorbance_au
+            .iter()
+            .all(|v| v.is_finite() || plate::is_saturated(*v))
+    );
+}
+
+/// Plate maps.
+pub fn platemap(data: &[u8]) {
+    if let Ok(map) = platemap::read(data) {
+        let _ = map.for_plate("fuzz");
+        for name in map.plates.keys() {
+            let _ = map.for_plate(name);
+        }
+    }
+}
+
+/// Component files (`<name>.toml`): read, written back and read again.
+pub fn component(data: &[u8]) {
+    let text = String::from_utf8_lossy(data);
+    let Ok(c) = Component::from_toml(&text, "fuzz.toml") else {
+        return;
+    };
+    let (lo, hi) = c.range_nm();
+    assert!(lo <= hi, "range {lo}..{hi} nm is reversed");
+    let _ = c.epsilon_at(0.5 * (lo + hi));
+    let again = Component::from_toml(&c.to_toml(), "fuzz.toml");
+    assert!(
+        again.is_ok(),
+        "a component that was read does not read back: {again:?}"
+    );
+}
+
+/// A parser driver: bytes in, no panic out.
+pub type Target = fn(&[u8]);
+
+/// Every target by name (the folder names under `corpus/` and `regressions/`).
+pub const TARGETS: [(&str, Target); 6] = [
+    ("spectra", spectra),
+    ("epsilon", epsilon),
+    ("concentrations", concentrations),
+    ("plate_grid", plate_grid),
+    ("platemap", platemap),
+    ("component", component),
+];
