@@ -7,95 +7,15 @@
 //! Lanczos approximation (g = 7, 9 terms; Lanczos, SIAM J. Numer. Anal. B
 //! 1:86, 1964).
 
-/// ln Γ(x) for x > 0.
+/// ln Γ(x) for x > 0 (the shared implementation in `diagnostics::stats`).
 pub fn ln_gamma(x: f64) -> f64 {
-    const G: f64 = 7.0;
-    const COEF: [f64; 9] = [
-        0.999_999_999_999_809_9,
-        676.520_368_121_885_1,
-        -1_259.139_216_722_402_8,
-        771.323_428_777_653_1,
-        -176.615_029_162_140_6,
-        12.507_343_278_686_905,
-        -0.138_571_095_265_720_12,
-        9.984_369_578_019_572e-6,
-        1.505_632_735_149_311_6e-7,
-    ];
-    if x < 0.5 {
-        // Reflection: Γ(x)·Γ(1 − x) = π / sin(πx).
-        let pi = std::f64::consts::PI;
-        return (pi / (pi * x).sin()).abs().ln() - ln_gamma(1.0 - x);
-    }
-    let x = x - 1.0;
-    let mut a = COEF[0];
-    for (i, c) in COEF.iter().enumerate().skip(1) {
-        a += c / (x + i as f64);
-    }
-    let t = x + G + 0.5;
-    0.5 * (2.0 * std::f64::consts::PI).ln() + (x + 0.5) * t.ln() - t + a.ln()
+    crate::diagnostics::stats::ln_gamma(x)
 }
 
-/// The regularised incomplete beta function I_x(a, b), a, b > 0.
+/// The regularised incomplete beta function I_x(a, b), a, b > 0 (the shared
+/// implementation in `diagnostics::stats`).
 pub fn regularized_beta(a: f64, b: f64, x: f64) -> f64 {
-    if x <= 0.0 {
-        return 0.0;
-    }
-    if x >= 1.0 {
-        return 1.0;
-    }
-    let ln_front = ln_gamma(a + b) - ln_gamma(a) - ln_gamma(b) + a * x.ln() + b * (1.0 - x).ln();
-    let front = ln_front.exp();
-    // The continued fraction converges fast for x < (a + 1)/(a + b + 2);
-    // use the symmetry I_x(a, b) = 1 − I_{1−x}(b, a) otherwise.
-    if x < (a + 1.0) / (a + b + 2.0) {
-        front * beta_fraction(a, b, x) / a
-    } else {
-        1.0 - front * beta_fraction(b, a, 1.0 - x) / b
-    }
-}
-
-fn beta_fraction(a: f64, b: f64, x: f64) -> f64 {
-    const TINY: f64 = 1e-300;
-    const EPS: f64 = 1e-15;
-    let (qab, qap, qam) = (a + b, a + 1.0, a - 1.0);
-    let mut c = 1.0;
-    let mut d = 1.0 - qab * x / qap;
-    if d.abs() < TINY {
-        d = TINY;
-    }
-    d = 1.0 / d;
-    let mut h = d;
-    for m in 1..=300 {
-        let m = m as f64;
-        let m2 = 2.0 * m;
-        let aa = m * (b - m) * x / ((qam + m2) * (a + m2));
-        d = 1.0 + aa * d;
-        if d.abs() < TINY {
-            d = TINY;
-        }
-        c = 1.0 + aa / c;
-        if c.abs() < TINY {
-            c = TINY;
-        }
-        d = 1.0 / d;
-        h *= d * c;
-        let aa = -(a + m) * (qab + m) * x / ((a + m2) * (qap + m2));
-        d = 1.0 + aa * d;
-        if d.abs() < TINY {
-            d = TINY;
-        }
-        c = 1.0 + aa / c;
-        if c.abs() < TINY {
-            c = TINY;
-        }
-        d = 1.0 / d;
-        let step = d * c;
-        h *= step;
-        if (step - 1.0).abs() < EPS {
-            break;
-        }
-    }
-    h
+    crate::diagnostics::stats::beta_inc(a, b, x)
 }
 
 /// Two-sided p-value of Student's t statistic with `df` degrees of freedom:
