@@ -8,6 +8,8 @@
 //! errors are about 0.3 % of the concentrations used here (as wells.csv
 //! reports), so the checks below sit at several standard errors.
 
+mod common;
+
 use serde::Deserialize;
 use std::collections::HashMap;
 use std::fmt::Write as _;
@@ -887,4 +889,190 @@ fn overflow_words_in_wide_and_long_files_are_saturated_points() {
         );
     }
     std::fs::remove_dir_all(&dir).unwrap();
+}
+
+/// Every `href="#x"` in a page has a matching `id="x"`.
+fn links_resolve(html: &str) -> usize {
+    let ids: std::collections::HashSet<&str> = html
+        .split("id=\"")
+        .skip(1)
+        .filter_map(|t| t.split('"').next())
+        .collect();
+    let mut n = 0;
+    for t in html.split("href=\"#").skip(1) {
+        let target = t.split('"').next().unwrap();
+        assert!(ids.contains(target), "link to #{target} has no target");
+        n += 1;
+    }
+    n
+}
+
+/// The tooltip (`<title>`) texts of a plate figure's cells for one well.
+fn cell_titles<'a>(figure: &'a str, well: &str) -> Vec<&'a str> {
+    figure
+        .split("<title>")
+        .skip(1)
+        .filter_map(|t| t.split("</title>").next())
+        .filter(|t| t.starts_with(&format!("{well} · ")))
+        .collect()
+}
+
+#[test]
+fn batch_report_maps_each_plate_and_links_every_well_to_its_fit() {
+    let dir = temp_dir("report");
+    let (plates, map) = grid_fixture(&dir);
+    let out = dir.join("out");
+    let report = dir.join("plates.html");
+    let o = run_batch(
+        &[
+            plates.to_str().unwrap(),
+            "--plate-map",
+            map.to_str().unwrap(),
+            "--out-dir=out",
+            "--report=plates.html",
+        ],
+        &dir,
+    );
+    let stderr = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(3), "{stderr}");
+    assert!(stderr.contains("plates.html"), "{stderr}");
+    let run: RunJson =
+        serde_json::from_str(&std::fs::read_to_string(out.join("run.json")).unwrap()).unwrap();
+    let html = std::fs::read_to_string(&report).unwrap();
+    // Self-contained: no scripts, nothing fetched.
+    assert!(html.starts_with("<!DOCTYPE html>") && html.trim_end().ends_with("</html>"));
+    assert!(!html.contains("<script") && !html.contains(" src=") && !html.contains("<link"));
+    assert_eq!(
+        html.matches("http").count(),
+        html.matches("http://www.w3.org/2000/svg").count()
+    );
+    // One fit figure per fitted well, one figure per plate.
+    let wells_fitted = run.summary.wells_fitted;
+    assert_eq!(html.matches("<svg").count(), wells_fitted + 2);
+    assert_eq!(html.matches("</svg>").count(), wells_fitted + 2);
+    assert_eq!(html.matches("class=\"plate\" width=").count(), 2);
+    assert_eq!(html.matches("class=\"fit\"").count(), wells_fitted);
+    // run.json keeps no curves unless asked.
+    assert!(
+        !std::fs::read_to_string(out.join("run.json"))
+            .unwrap()
+            .contains("\"curves\"")
+    );
+    // Every link lands: plate index, heatmap cells, table rows, back links.
+    let links = links_resolve(&html);
+    assert!(links > 2 * 96 * 4, "{links} links");
+
+    let figure = |k: usize| {
+        let start = html
+            .match_indices("<svg xmlns=\"http://www.w3.org/2000/svg\" class=\"plate\"")
+            .nth(k)
+            .unwrap()
+            .0;
+        &html[start..start + html[start..].find("</svg>").unwrap()]
+    };
+    let p1 = figure(0);
+    let p2 = figure(1);
+    // Wells are labelled: row letters and column numbers on every panel.
+    assert!(p1.contains(">H</text>") && p1.contains(">12</text>"));
+    // Three component heatmaps and the state map per plate.
+    assert_eq!(p1.matches("font-weight=\"bold\"").count(), 4);
+    // Each component heatmap cell shows the specimen concentration that
+    // wells.csv reports (dilution applied), in the panel's unit (µmol/L here).
+    let wells = csv_rows(&out.join("wells.csv"));
+    let row = wells
+        .iter()
+        .find(|r| r["plate"] == "P1" && r["well"] == "B5" && r["component"] == "fjord-blue")
+        .unwrap();
+    let want = f(row, "undiluted_mol_per_l") * 1e6;
+    let title = cell_titles(p1, "B5")
+        .into_iter()
+        .find(|t| t.contains("fjord-blue"))
+        .unwrap();
+    let shown: f64 = title
+        .rsplit("fjord-blue ")
+        .next()
+        .and_then(|t| t.split(' ').next())
+        .unwrap()
+        .parse()
+        .unwrap();
+    assert!(
+        (shown - want).abs() < 1e-4 * want.max(1.0),
+        "{title} vs {want}"
+    );
+    // The largest value of a panel gets the light end of the scale.
+    assert!(p1.contains("#fde725"));
+    // State map: the saturated well, the pipetting outlier, the blanks, and
+    // on plate 2 the well with a garbled cell (not fitted).
+    let states =
+        |fig: &str, well: &str| cell_titles(fig, well).last().copied().unwrap().to_string();
+    assert!(
+        states(p1, "D2").contains("saturated-reading"),
+        "{}",
+        states(p1, "D2")
+    );
+    assert!(
+        states(p1, "F5").contains("replicate-outlier"),
+        "{}",
+        states(p1, "F5")
+    );
+    assert!(states(p2, "E3").contains("0.1x"), "{}", states(p2, "E3"));
+    assert!(cell_titles(p1, "A1").iter().all(|t| t.contains("blank")));
+    // The fitted well's cells link to its fit section; the failed one to its table row.
+    assert!(p1.contains("href=\"#fit-1-B5\""));
+    assert!(p2.contains("href=\"#well-2-E3\""));
+    assert!(!html.contains("id=\"fit-2-E3\""));
+
+    // `unblend report run.json` afterwards: the same plates, without fit
+    // figures unless the run kept the curves.
+    let o = Command::new(bin())
+        .args(["report", "out/run.json", "--out", "later.html"])
+        .current_dir(&dir)
+        .output()
+        .unwrap();
+    let stderr = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(0), "{stderr}");
+    assert!(stderr.contains("no fit curves"), "{stderr}");
+    let later = std::fs::read_to_string(dir.join("later.html")).unwrap();
+    assert_eq!(later.matches("<svg").count(), 2);
+    links_resolve(&later);
+    let o = run_batch(
+        &[
+            plates.to_str().unwrap(),
+            "--plate-map",
+            map.to_str().unwrap(),
+            "--out-dir",
+            "kept",
+            "--with-curves",
+        ],
+        &dir,
+    );
+    assert_eq!(o.status.code(), Some(3));
+    let o = Command::new(bin())
+        .args(["report", "kept/run.json"])
+        .current_dir(&dir)
+        .output()
+        .unwrap();
+    assert_eq!(
+        o.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    let kept = std::fs::read_to_string(dir.join("kept/run.html")).unwrap();
+    assert_eq!(kept.matches("<svg").count(), wells_fitted + 2);
+
+    // Headless Chromium, where installed: the page loads without console
+    // errors and has the figures.
+    if let Some(chromium) = common::chromium::find() {
+        let page = common::chromium::render(chromium, &report, &dir);
+        assert_eq!(page.dom.matches("<svg").count(), wells_fitted + 2);
+        assert!(
+            page.console.is_empty(),
+            "console messages: {:?}",
+            page.console
+        );
+        assert!(common::chromium::is_png(&page.png));
+    } else {
+        eprintln!("skipped the Chromium render: chromium is not installed");
+    }
 }

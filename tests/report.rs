@@ -2,6 +2,8 @@
 //! (plain Rust, always runs) and, where Debian's `chromium` is installed, a
 //! headless render with a screenshot and a console check.
 
+mod common;
+
 use serde::Deserialize;
 use std::path::{Path, PathBuf};
 use std::process::Command;
@@ -219,10 +221,19 @@ fn fit_writes_report_plot_and_curves_and_rejects_bad_requests() {
     assert_eq!(code, 0, "{stderr}");
     let res: Results = serde_json::from_str(&stdout).expect("typed JSON");
     assert_eq!(res.curves.map(|c| c.len()), Some(DEMO_SAMPLES));
-    // Bad requests say what was expected.
+    // A PNG figure: the extension picks the format; twice the SVG's size.
     let (code, _, stderr) = run(&dir, &["fit", &input, "--library", &lib, "--plot", "x.png"]);
+    assert_eq!(code, 0, "{stderr}");
+    let png = std::fs::read(dir.join("x.png")).unwrap();
+    assert!(common::chromium::is_png(&png));
+    // IHDR width and height, big-endian u32 (ISO/IEC 15948, section 11.2.2).
+    assert_eq!(u32::from_be_bytes(png[16..20].try_into().unwrap()), 1520);
+    assert_eq!(u32::from_be_bytes(png[20..24].try_into().unwrap()), 860);
+    // Bad requests say what was expected.
+    let (code, _, stderr) = run(&dir, &["fit", &input, "--library", &lib, "--plot", "x.jpg"]);
     assert_eq!(code, 1);
-    assert!(stderr.contains(".svg"), "{stderr}");
+    assert!(stderr.contains(".svg or .png"), "{stderr}");
+    assert!(!dir.join("x.jpg").exists());
     let (code, _, stderr) = run(&dir, &["fit", &input, "--library", &lib, "--with-curves"]);
     assert_eq!(code, 1);
     assert!(stderr.contains("--format json"), "{stderr}");
@@ -254,65 +265,22 @@ fn fit_writes_report_plot_and_curves_and_rejects_bad_requests() {
 /// where Chromium is not installed; `.ci/run` installs it when it can.
 #[test]
 fn demo_report_renders_in_headless_chromium() {
-    let Some(chromium) = ["chromium", "chromium-browser"].into_iter().find(|c| {
-        Command::new(c)
-            .arg("--version")
-            .output()
-            .is_ok_and(|o| o.status.success())
-    }) else {
+    let Some(chromium) = common::chromium::find() else {
         eprintln!("skipped: chromium is not installed (the structural report tests still ran)");
         return;
     };
     let dir = tempdir("chromium");
     let (code, _, stderr) = run(&dir, &["demo"]);
     assert_eq!(code, 0, "{stderr}");
-    let page = dir.join("unblend-demo/report.html");
-    let url = format!("file://{}", page.display());
-    let profile = dir.join("profile");
-    let flags = [
-        "--headless",
-        "--no-sandbox",
-        "--disable-gpu",
-        "--disable-quic",
-        "--no-first-run",
-        "--disable-background-networking",
-        "--disable-component-update",
-        "--disable-sync",
-        "--enable-logging=stderr",
-        "--v=0",
-    ];
-    let profile_flag = format!("--user-data-dir={}", profile.display());
-    let dom = Command::new(chromium)
-        .args(flags)
-        .arg(&profile_flag)
-        .arg("--dump-dom")
-        .arg(&url)
-        .output()
-        .expect("run chromium");
-    assert!(
-        dom.status.success(),
-        "{}",
-        String::from_utf8_lossy(&dom.stderr)
-    );
-    let text = String::from_utf8_lossy(&dom.stdout);
+    let page = common::chromium::render(chromium, &dir.join("unblend-demo/report.html"), &dir);
     // One figure per sample; the demo is not a plate run, so no plate maps.
-    assert_eq!(text.matches("<svg").count(), DEMO_SAMPLES);
-    let log = String::from_utf8_lossy(&dom.stderr);
-    let console: Vec<&str> = log.lines().filter(|l| l.contains("CONSOLE")).collect();
-    assert!(console.is_empty(), "console messages: {console:?}");
-    let shot = dir.join("report.png");
-    let s = Command::new(chromium)
-        .args(flags)
-        .arg(&profile_flag)
-        .arg(format!("--screenshot={}", shot.display()))
-        .arg("--window-size=1100,1400")
-        .arg(&url)
-        .output()
-        .expect("run chromium");
-    assert!(s.status.success(), "{}", String::from_utf8_lossy(&s.stderr));
-    let png = std::fs::read(&shot).expect("screenshot written");
-    // PNG signature (ISO/IEC 15948, section 5.2).
-    assert!(png.starts_with(&[0x89, b'P', b'N', b'G', 0x0D, 0x0A, 0x1A, 0x0A]));
+    assert_eq!(page.dom.matches("<svg").count(), DEMO_SAMPLES);
+    assert!(
+        page.console.is_empty(),
+        "console messages: {:?}",
+        page.console
+    );
+    assert!(common::chromium::is_png(&page.png));
 }
 
 #[test]

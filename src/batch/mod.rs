@@ -38,12 +38,13 @@
 pub mod run;
 pub mod stats;
 
+use crate::curves::Curves;
 use crate::fit::{FitOptions, Model, Outcome, SampleResult};
 use crate::input::plate::{PlateSpectra, Well, is_saturated};
 use crate::input::platemap::{MapEntry, Role};
 use crate::reference::ReferenceSet;
 use crate::spectrum::Grid;
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 use std::collections::HashMap;
 use std::sync::{Arc, Mutex};
 
@@ -102,6 +103,9 @@ pub struct BatchOptions {
     pub outlier_alpha: f64,
     /// Keep outlier wells in the statistics (they are still flagged).
     pub keep_outliers: bool,
+    /// Keep each fitted well's curves (measured, fitted, contributions,
+    /// residual) for the report and `--with-curves`.
+    pub curves: bool,
 }
 
 impl Default for BatchOptions {
@@ -111,12 +115,13 @@ impl Default for BatchOptions {
             water: None,
             outlier_alpha: OUTLIER_ALPHA,
             keep_outliers: false,
+            curves: false,
         }
     }
 }
 
 /// Where a well's pathlength came from.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub enum PathlengthSource {
     /// The plate map.
@@ -139,7 +144,7 @@ impl PathlengthSource {
 }
 
 /// A component's concentration in the specimen (dilution applied).
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, Deserialize)]
 pub struct Undiluted {
     /// Component name.
     pub name: String,
@@ -157,7 +162,7 @@ pub struct Undiluted {
 }
 
 /// The result for one well.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, Deserialize)]
 pub struct WellResult {
     /// Well, e.g. `B3`.
     pub well: String,
@@ -183,16 +188,19 @@ pub struct WellResult {
     #[serde(skip_serializing_if = "Option::is_none")]
     pub fit: Option<SampleResult>,
     /// Concentrations in the specimen (dilution applied).
-    #[serde(skip_serializing_if = "Vec::is_empty")]
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub undiluted: Vec<Undiluted>,
     /// Batch flags (the fit's own flags are in `fit.flags`).
     pub flags: Vec<String>,
     /// Explanations of the flags.
-    #[serde(skip_serializing_if = "Vec::is_empty")]
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub notes: Vec<String>,
     /// Why the well could not be used.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub error: Option<String>,
+    /// The fit's curves (with [`BatchOptions::curves`]).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub curves: Option<Curves>,
 }
 
 impl WellResult {
@@ -211,6 +219,7 @@ impl WellResult {
             flags: Vec::new(),
             notes: Vec::new(),
             error: None,
+            curves: None,
         }
     }
 
@@ -227,7 +236,7 @@ impl WellResult {
 }
 
 /// The blank of one plate.
-#[derive(Debug, Clone, Default, Serialize)]
+#[derive(Debug, Clone, Default, Serialize, Deserialize)]
 pub struct BlankSummary {
     /// Blank wells read.
     pub wells: Vec<String>,
@@ -247,7 +256,7 @@ pub struct BlankSummary {
 }
 
 /// One component's statistics over a sample's replicate wells.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, Deserialize)]
 pub struct ComponentStats {
     /// Component name.
     pub name: String,
@@ -270,7 +279,7 @@ pub struct ComponentStats {
 }
 
 /// A specimen's results over its replicate wells on one plate.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, Deserialize)]
 pub struct SampleSummary {
     /// Specimen name.
     pub sample: String,
@@ -287,7 +296,7 @@ pub struct SampleSummary {
 }
 
 /// Everything about one plate.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, Deserialize)]
 pub struct PlateResult {
     /// Plate name.
     pub plate: String,
@@ -295,7 +304,7 @@ pub struct PlateResult {
     pub input: String,
     /// `96-well` or `384-well`.
     #[serde(skip_serializing_if = "Option::is_none")]
-    pub format: Option<&'static str>,
+    pub format: Option<String>,
     /// Wavelengths read per well.
     pub n_wavelengths: usize,
     /// Whether the plate map had entries for this plate.
@@ -460,7 +469,7 @@ pub fn process_plate(
     let mut result = PlateResult {
         plate: spectra.name.clone(),
         input: input.to_string(),
-        format: Some(spectra.format.name()),
+        format: Some(spectra.format.name().to_string()),
         n_wavelengths: spectra.n_points(),
         mapped: entries.is_some(),
         blank: BlankSummary::default(),
@@ -664,8 +673,14 @@ pub fn process_plate(
         }
         // Saturated points inside the fitted range leave the fit.
         let saturated: Vec<usize> = (start..end).filter(|&k| is_saturated(raw[k])).collect();
-        let outcome = if saturated.is_empty() {
-            model.fit_one(&label, &corrected, l_cm, &mut ws)
+        let want_curves = options.curves;
+        let (outcome, curves) = if saturated.is_empty() {
+            let o = model.fit_one(&label, &corrected, l_cm, &mut ws);
+            let c = match (&o, want_curves) {
+                (Outcome::Fitted(s), true) => crate::curves::compute(&model.design, s, &corrected),
+                _ => None,
+            };
+            (o, c)
         } else {
             let w = grid.wavelengths_nm();
             r.flags.push(FLAG_SATURATED.to_string());
@@ -689,18 +704,29 @@ pub fn process_plate(
                 Ok(m) => {
                     let row: Vec<f64> = keep.iter().map(|&k| corrected[k]).collect();
                     let mut sub_ws = m.prepared.workspace();
-                    m.fit_one(&label, &row, l_cm, &mut sub_ws)
+                    let o = m.fit_one(&label, &row, l_cm, &mut sub_ws);
+                    // The curves cover the points that were fitted: the
+                    // saturated ones have no finite reading to draw.
+                    let c = match (&o, want_curves) {
+                        (Outcome::Fitted(s), true) => crate::curves::compute(&m.design, s, &row),
+                        _ => None,
+                    };
+                    (o, c)
                 }
-                Err(msg) => Outcome::Failed(crate::fit::FailedSample {
-                    sample: label.clone(),
-                    error: format!(
-                        "{} of {} points are saturated, too few left to fit ({msg}): dilute and re-measure",
-                        saturated.len(),
-                        end - start
-                    ),
-                }),
+                Err(msg) => (
+                    Outcome::Failed(crate::fit::FailedSample {
+                        sample: label.clone(),
+                        error: format!(
+                            "{} of {} points are saturated, too few left to fit ({msg}): dilute and re-measure",
+                            saturated.len(),
+                            end - start
+                        ),
+                    }),
+                    None,
+                ),
             }
         };
+        r.curves = curves;
         match outcome {
             Outcome::Fitted(s) => {
                 r.undiluted = s

@@ -9,8 +9,9 @@ use crate::batch::run::{self, Event, InputSummary, RunSpec};
 use crate::batch::{BatchOptions, Models, PlateResult, WaterBand};
 use crate::fit::FitOptions;
 use crate::input::platemap;
-use crate::output::batch::{RenderedPlate, SAMPLES_HEADER, WELLS_HEADER, render_plate};
+use crate::output::batch::{RenderedPlate, SAMPLES_HEADER, WELLS_HEADER, render_plate_with};
 use crate::reference::{Library, ReferenceSet};
+use crate::report::plates::{PlateReport, RunHead};
 use sha2::{Digest, Sha256};
 use std::io::{IsTerminal, Write};
 use std::path::{Path, PathBuf};
@@ -91,6 +92,14 @@ pub struct Args {
     /// Library folder of candidate components to try on flagged wells (one extra component at a time, F-test).
     #[arg(long, value_name = "DIR")]
     pub screen_with: Option<PathBuf>,
+    /// Also write a self-contained HTML report: per plate a heatmap of each component's
+    /// concentration and a map of well states and flags, linked to each well's fit figure.
+    #[arg(long, value_name = "FILE.html")]
+    pub report: Option<PathBuf>,
+    /// Add each fitted well's curves (measured, fitted, contributions, residual; AU) to
+    /// run.json, so `unblend report run.json` can draw the fit figures later.
+    #[arg(long)]
+    pub with_curves: bool,
     /// Residual tests and saturation masking (as in `fit`).
     #[command(flatten)]
     pub checks: DiagnosticArgs,
@@ -151,6 +160,7 @@ impl TryFrom<&Args> for BatchOptions {
             }),
             outlier_alpha: a.outlier_alpha,
             keep_outliers: a.keep_outliers,
+            curves: a.report.is_some() || a.with_curves,
         })
     }
 }
@@ -190,6 +200,12 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     std::fs::create_dir_all(&args.out_dir)
         .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
     let mut out = Outputs::create(&args.out_dir)?;
+    if let Some(path) = &args.report {
+        out.report = Some((
+            AtomicFile::create(path)?,
+            PlateReport::new(refs.names().into_iter().map(String::from).collect()),
+        ));
+    }
     out.begin(&refs, &options, &args)
         .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
 
@@ -228,11 +244,16 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         bytes_read: &bytes_read,
     };
     let models = Models::new(&refs, options.fit, checks);
-    let result = run::run(&spec, &models, render_plate, |event| {
+    let with_curves = args.with_curves;
+    let render = |p: &PlateResult| render_plate_with(p, with_curves);
+    let result = run::run(&spec, &models, render, |event| {
         match event {
             Event::Plate(p, rendered) => {
                 tally.plate(&p);
                 out.plate(&rendered)?;
+                if let Some((_, r)) = out.report.as_mut() {
+                    r.plate(&p);
+                }
             }
             Event::Input(s) => {
                 if let Some(e) = &s.error {
@@ -397,6 +418,8 @@ struct Outputs {
     json: AtomicFile,
     log: AtomicFile,
     first_plate: bool,
+    /// `--report`: the file and the report being built.
+    report: Option<(AtomicFile, PlateReport)>,
 }
 
 struct LogInfo<'a> {
@@ -417,6 +440,7 @@ impl Outputs {
             json: AtomicFile::create(&dir.join("run.json"))?,
             log: AtomicFile::create(&dir.join("run-log.txt"))?,
             first_plate: true,
+            report: None,
         })
     }
 
@@ -473,12 +497,65 @@ impl Outputs {
         self.json.write_all(&tail.as_bytes()[1..]).map_err(io)?;
         self.json.write_all(b"\n").map_err(io)?;
         write_log(&mut self.log, t, log).map_err(io)?;
+        let mut files = vec![self.wells, self.samples, self.json, self.log];
+        if let Some((mut file, report)) = self.report {
+            let html = report.finish(&run_head(t, log));
+            file.write_all(html.as_bytes()).map_err(io)?;
+            files.push(file);
+        }
         let mut paths = Vec::new();
-        for f in [self.wells, self.samples, self.json, self.log] {
+        for f in files {
             paths.push(f.target().display().to_string());
             f.commit()?;
         }
         Ok(paths)
+    }
+}
+
+/// The report's summary lines: what was run, on what.
+fn run_head(t: &Tally, l: &LogInfo) -> RunHead {
+    let mut rows = vec![
+        ("started (UTC)".to_string(), l.started_utc.clone()),
+        (
+            "command".to_string(),
+            std::env::args()
+                .map(|a| shell_word(&a))
+                .collect::<Vec<_>>()
+                .join(" "),
+        ),
+    ];
+    for s in &t.inputs {
+        let mut v = format!("{} ({} plate(s)", s.path, s.plates);
+        if let Some(h) = &s.sha256 {
+            v.push_str(&format!(", sha256 {h}"));
+        }
+        v.push(')');
+        if let Some(e) = &s.error {
+            v.push_str(&format!(": {e}"));
+        }
+        rows.push(("input".to_string(), v));
+    }
+    rows.push((
+        "plate map".to_string(),
+        l.map.clone().unwrap_or_else(|| "none".into()),
+    ));
+    rows.push(("library".to_string(), l.library_dir.display().to_string()));
+    if let serde_json::Value::Object(m) = options_json(l.options, l.args) {
+        for (k, v) in m {
+            let v = match v {
+                serde_json::Value::String(s) => s,
+                serde_json::Value::Null => "(not set)".to_string(),
+                other => other.to_string(),
+            };
+            rows.push((format!("option {k}"), v));
+        }
+    }
+    rows.push(("elapsed (s)".to_string(), format!("{:.2}", l.elapsed_s)));
+    RunHead {
+        title: "unblend batch report".to_string(),
+        tool: format!("unblend {}", env!("CARGO_PKG_VERSION")),
+        rows,
+        warnings: t.warnings.clone(),
     }
 }
 

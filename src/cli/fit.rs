@@ -51,8 +51,8 @@ pub struct Args {
     /// Also write a self-contained HTML report (summary, one figure per sample: measured, fitted, stacked component contributions, residual with the ±2σ noise band).
     #[arg(long, value_name = "FILE.html")]
     pub report: Option<PathBuf>,
-    /// Also write one sample's fit figure as SVG (the first fitted sample, or --plot-sample).
-    #[arg(long, value_name = "FILE.svg")]
+    /// Also write one sample's fit figure, as SVG or PNG after the file's extension (the first fitted sample, or --plot-sample).
+    #[arg(long, value_name = "FILE.svg|FILE.png")]
     pub plot: Option<PathBuf>,
     /// The sample --plot draws [default: the first fitted sample].
     #[arg(long, value_name = "NAME", requires = "plot")]
@@ -179,10 +179,10 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         ));
     }
     if let Some(p) = &args.plot
-        && !p.extension().is_some_and(|e| e.eq_ignore_ascii_case("svg"))
+        && plot_kind(p).is_none()
     {
         return Err(Failure::new(format!(
-            "--plot {}: expected a file name ending in .svg (the figure is written as SVG; PNG is not supported)",
+            "--plot {}: expected a file name ending in .svg or .png (the extension picks the format)",
             p.display()
         )));
     }
@@ -244,6 +244,28 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     }
 }
 
+/// Pixels per SVG pixel in a PNG figure (sharp on high-density screens and
+/// in print: the 760 × 430 px figure becomes 1520 × 860).
+const PNG_SCALE: f32 = 2.0;
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum PlotKind {
+    Svg,
+    Png,
+}
+
+/// The figure format a `--plot` file name asks for.
+fn plot_kind(path: &std::path::Path) -> Option<PlotKind> {
+    let ext = path.extension()?;
+    if ext.eq_ignore_ascii_case("svg") {
+        Some(PlotKind::Svg)
+    } else if ext.eq_ignore_ascii_case("png") {
+        Some(PlotKind::Png)
+    } else {
+        None
+    }
+}
+
 /// Fit the whole input in memory and keep each sample's curves for the
 /// report, the figure or the JSON.
 fn run_with_curves(
@@ -285,11 +307,21 @@ fn run_with_curves(
                 })?,
             };
         let svg = crate::report::sample_figure(curve);
-        crate::atomic::write_with(path, false, |w| {
-            w.write_all(b"<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n")?;
-            w.write_all(svg.as_bytes())?;
-            w.write_all(b"\n")
-        })?;
+        if plot_kind(path) == Some(PlotKind::Png) {
+            let png = crate::report::png::render(&svg, PNG_SCALE).map_err(Failure::new)?;
+            if !png.has_font {
+                eprintln!(
+                    "unblend: warning: no system font found: the PNG's text labels are missing (install a sans-serif font, or write the figure as .svg)"
+                );
+            }
+            crate::atomic::write_with(path, false, |w| w.write_all(&png.bytes))?;
+        } else {
+            crate::atomic::write_with(path, false, |w| {
+                w.write_all(b"<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n")?;
+                w.write_all(svg.as_bytes())?;
+                w.write_all(b"\n")
+            })?;
+        }
         eprintln!(
             "unblend: wrote the fit of {} to {}",
             curve.sample,

@@ -26,7 +26,7 @@ use crate::error::{Error, Result};
 use std::collections::HashMap;
 
 /// What a well holds.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, serde::Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, serde::Serialize, serde::Deserialize)]
 #[serde(rename_all = "lowercase")]
 pub enum Role {
     /// Solvent or buffer only: averaged and subtracted from the plate.

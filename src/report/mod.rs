@@ -11,6 +11,8 @@
 //! the masked points. Plotted points are decimated above
 //! [`MAX_PLOT_POINTS`]; the numbers in the tables never are.
 
+pub mod plates;
+pub mod png;
 pub mod svg;
 
 use crate::curves::Curves;
@@ -246,7 +248,17 @@ fn display_unit(samples: &[SampleResult]) -> (&'static str, f64) {
         .filter(|c| *c > 0.0)
         .collect();
     v.sort_by(f64::total_cmp);
-    let typical = v.get(v.len() / 2).copied().unwrap_or(1e-6);
+    unit_for(v.get(v.len() / 2).copied().unwrap_or(1e-6))
+}
+
+/// The display unit for concentrations of about `typical` mol/L: label and
+/// factor from mol/L (the largest unit in which it reads 0.1 or more).
+pub(crate) fn unit_for(typical: f64) -> (&'static str, f64) {
+    let typical = if typical.is_finite() && typical > 0.0 {
+        typical
+    } else {
+        1e-6
+    };
     for (label, f) in [("mol/L", 1.0), ("mmol/L", 1e3), ("µmol/L", 1e6)] {
         if typical * f >= 0.1 {
             return (label, f);
@@ -260,7 +272,7 @@ pub fn sample_anchor(n: usize) -> String {
     format!("sample-{}", n + 1)
 }
 
-const CSS: &str = "body{font-family:sans-serif;margin:1.5em auto;max-width:1100px;color:#111;line-height:1.35}\
+pub(crate) const CSS: &str = "body{font-family:sans-serif;margin:1.5em auto;max-width:1100px;color:#111;line-height:1.35}\
 h1{font-size:1.5em}h2{font-size:1.2em;border-bottom:1px solid #999;margin-top:1.6em}h3{font-size:1.05em;margin-bottom:.3em}\
 table{border-collapse:collapse;margin:.4em 0}td,th{border:1px solid #bbb;padding:2px 6px;text-align:right;white-space:nowrap}\
 th{background:#eee}td:first-child,th:first-child{text-align:left}.flag{color:#a33f00;font-weight:bold}\
@@ -356,16 +368,21 @@ fn summary(h: &mut String, doc: &JsonReport) {
         row(&format!("flag {f}"), &format!("{k} sample(s)"));
     }
     h.push_str("</table>\n");
-    if !doc.warnings.is_empty() {
+    warning_list(h, &doc.warnings);
+}
+
+/// The run's warnings as a list (nothing when there are none).
+pub(crate) fn warning_list(h: &mut String, warnings: &[String]) {
+    if !warnings.is_empty() {
         h.push_str("<h3>Warnings</h3><ul>\n");
-        for w in &doc.warnings {
+        for w in warnings {
             let _ = writeln!(h, "<li>{}</li>", escape(w));
         }
         h.push_str("</ul>\n");
     }
 }
 
-fn conc(v: f64, se: Option<f64>, factor: f64) -> String {
+pub(crate) fn conc(v: f64, se: Option<f64>, factor: f64) -> String {
     match se {
         Some(se) => format!("{:.4} ± {:.4}", v * factor, se * factor),
         None => format!("{:.4} ± ?", v * factor),
@@ -403,7 +420,7 @@ fn sample_table(h: &mut String, doc: &JsonReport, unit: &str, factor: f64) {
     h.push_str("</table>\n<p class=\"note\">concentrations ± standard error</p>\n");
 }
 
-fn sample_numbers(h: &mut String, s: &SampleResult, unit: &str, factor: f64) {
+pub(crate) fn sample_numbers(h: &mut String, s: &SampleResult, unit: &str, factor: f64) {
     h.push_str("<table><tr><th>component</th>");
     let _ = write!(h, "<th>concentration ± SE ({unit})</th>");
     h.push_str("<th>mg/L</th><th>mole fraction</th><th>mass fraction</th></tr>\n");

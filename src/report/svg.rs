@@ -200,7 +200,7 @@ impl Panel {
     pub fn line(&self, out: &mut String, x: &[f64], y: &[f64], idx: &[usize], style: &str) {
         out.push_str(r#"<polyline fill="none" points=""#);
         for &i in idx {
-            let _ = write!(out, "{:.1},{:.1} ", self.px(x[i]), self.py(y[i]));
+            point(out, self.px(x[i]), self.py(y[i]));
         }
         let _ = write!(out, r#"" {style}/>"#);
     }
@@ -217,10 +217,10 @@ impl Panel {
     ) {
         out.push_str(r#"<polygon points=""#);
         for &i in idx {
-            let _ = write!(out, "{:.1},{:.1} ", self.px(x[i]), self.py(hi[i]));
+            point(out, self.px(x[i]), self.py(hi[i]));
         }
         for &i in idx.iter().rev() {
-            let _ = write!(out, "{:.1},{:.1} ", self.px(x[i]), self.py(lo[i]));
+            point(out, self.px(x[i]), self.py(lo[i]));
         }
         let _ = write!(out, r#"" {style}/>"#);
     }
@@ -240,6 +240,27 @@ impl Panel {
             cx + 3.0,
             cy - 3.0
         );
+    }
+}
+
+/// One vertex of a polyline or polygon, in whole pixels: a pixel is finer
+/// than the eye follows a curve at this size, and it keeps the report small
+/// (an integer is half the characters of a coordinate with a decimal).
+fn point(out: &mut String, x: f64, y: f64) {
+    let mut b = itoa::Buffer::new();
+    out.push_str(b.format(clamp_px(x)));
+    out.push(',');
+    out.push_str(b.format(clamp_px(y)));
+    out.push(' ');
+}
+
+/// A pixel coordinate rounded to an integer; non-finite values (which a
+/// plot never should hold) go to 0, huge ones are clamped.
+fn clamp_px(v: f64) -> i32 {
+    if v.is_finite() {
+        v.round().clamp(-1e6, 1e6) as i32
+    } else {
+        0
     }
 }
 
