@@ -1061,6 +1061,19 @@ fn batch_report_maps_each_plate_and_links_every_well_to_its_fit() {
     let kept = std::fs::read_to_string(dir.join("kept/run.html")).unwrap();
     assert_eq!(kept.matches("<svg").count(), wells_fitted + 2);
 
+    // A report in a folder that does not exist: refused before anything is written.
+    let o = run_batch(
+        &[
+            plates.to_str().unwrap(),
+            "--out-dir=never",
+            "--report=no-such-folder/r.html",
+        ],
+        &dir,
+    );
+    assert_eq!(o.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("--report no-such-folder/r.html"));
+    assert!(!dir.join("never").exists());
+
     // Headless Chromium, where installed: the page loads without console
     // errors and has the figures.
     if let Some(chromium) = common::chromium::find() {

@@ -196,16 +196,25 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let library = Library::open(&dir)?;
     let refs = library.select(&args.components)?;
     let checks = checks(&args)?;
+    // The report's temporary file first: a report path in a missing folder
+    // fails before the output folder is created.
+    let report_file = match &args.report {
+        Some(path) => Some(AtomicFile::create(path).map_err(|e| {
+            Failure::new(format!(
+                "--report {}: cannot write there ({e}); does its folder exist?",
+                path.display()
+            ))
+        })?),
+        None => None,
+    };
     let created_dir = !args.out_dir.exists();
     std::fs::create_dir_all(&args.out_dir)
         .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
     let mut out = Outputs::create(&args.out_dir)?;
-    if let Some(path) = &args.report {
-        out.report = Some((
-            AtomicFile::create(path)?,
-            PlateReport::new(refs.names().into_iter().map(String::from).collect()),
-        ));
-    }
+    out.report = report_file.map(|f| {
+        let names = refs.names().into_iter().map(String::from).collect();
+        (f, PlateReport::new(names))
+    });
     out.begin(&refs, &options, &args)
         .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
 
