@@ -3,9 +3,11 @@
 //!
 //! Per spectrum: one fused pass forms r = Eᵀa and aᵀa; the active-set loop
 //! then works on the p × p Gram matrix only. Sub-problems G_PP·z = r_P are
-//! solved with Cholesky factors cached per passive set P (a bitmask), so a
-//! batch that keeps hitting the same few sets factors each once. The final
-//! answer is always computed from the cached factor of the final set, so it
+//! solved with G_PP⁻¹ (from a Cholesky factor, checked for positive pivots)
+//! cached per passive set P (a bitmask), so a batch that keeps hitting the
+//! same few sets factors each once and each sub-solve is one small
+//! matrix–vector product. The final answer is always computed from the
+//! cached inverse of the final set, so it
 //! does not depend on the path taken (warm start or not): results are
 //! identical whatever the chunking or thread count.
 
@@ -13,17 +15,15 @@ use super::{Prepared, Status};
 use crate::error::{Error, Result};
 use std::collections::HashMap;
 
-/// A Cholesky factor of G restricted to one passive set.
+/// G restricted to one passive set, inverted through its Cholesky factor.
 #[derive(Debug, Clone)]
 struct Factor {
-    /// Indices of the passive variables, ascending.
-    idx: Vec<usize>,
-    /// Lower-triangular L (m × m, row-major) with L·Lᵀ = G_PP.
-    l: Vec<f64>,
-    /// 1 / L_ii: back substitution multiplies instead of dividing.
-    inv_l_diag: Vec<f64>,
     /// Diagonal of G_PP⁻¹ placed at full indices (0 elsewhere).
     inv_diag: Vec<f64>,
+    /// G_PP⁻¹ placed at full indices (p × p, row-major, 0 outside P × P):
+    /// z = G_PP⁻¹·r_P is then one small matrix–vector product with
+    /// independent rows, instead of two dependent triangular sweeps.
+    inv: Vec<f64>,
 }
 
 /// Per-thread scratch space: factor cache and warm start.
@@ -39,7 +39,6 @@ pub struct Workspace {
     pub(crate) solution: Option<super::Solution>,
     x: Vec<f64>,
     z: Vec<f64>,
-    tmp: Vec<f64>,
 }
 
 const SMALL_CACHE_BITS: usize = 14;
@@ -60,7 +59,6 @@ impl Workspace {
             solution: Some(super::Solution::default()),
             x: vec![0.0; p],
             z: vec![0.0; p],
-            tmp: vec![0.0; p],
         }
     }
 
@@ -137,36 +135,16 @@ fn build_factor(prep: &Prepared, mask: u64) -> Result<Factor> {
     for (c, &j) in idx.iter().enumerate() {
         inv_diag[j] = (c..m).map(|i| linv[i * m + c].powi(2)).sum();
     }
-    let inv_l_diag = (0..m).map(|i| 1.0 / l[i * m + i]).collect();
-    Ok(Factor {
-        idx,
-        l,
-        inv_l_diag,
-        inv_diag,
-    })
-}
-
-/// Solve G_PP·z_P = r_P with a factor; z is zero outside P.
-fn back_solve(f: &Factor, r: &[f64], z: &mut [f64], tmp: &mut [f64]) {
-    let m = f.idx.len();
-    z.iter_mut().for_each(|v| *v = 0.0);
-    for i in 0..m {
-        let mut s = r[f.idx[i]];
-        for k in 0..i {
-            s -= f.l[i * m + k] * tmp[k];
+    // G_PP⁻¹ = L⁻ᵀ·L⁻¹: entry (a, b) sums linv[i][a]·linv[i][b] over i ≥ max(a, b).
+    let mut inv = vec![0.0; p * p];
+    for a in 0..m {
+        for b in 0..=a {
+            let v: f64 = (a..m).map(|i| linv[i * m + a] * linv[i * m + b]).sum();
+            inv[idx[a] * p + idx[b]] = v;
+            inv[idx[b] * p + idx[a]] = v;
         }
-        tmp[i] = s * f.inv_l_diag[i];
     }
-    for i in (0..m).rev() {
-        let mut s = tmp[i];
-        for k in i + 1..m {
-            s -= f.l[k * m + i] * tmp[k];
-        }
-        tmp[i] = s * f.inv_l_diag[i];
-    }
-    for (c, &j) in f.idx.iter().enumerate() {
-        z[j] = tmp[c];
-    }
+    Ok(Factor { inv_diag, inv })
 }
 
 /// Dot product with eight independent accumulators over exact chunks, a
@@ -261,17 +239,18 @@ fn solve_mask(prep: &Prepared, ws: &mut Workspace, mask: u64) -> Result<()> {
         return Ok(());
     }
     let mut z = std::mem::take(&mut ws.z);
-    let mut tmp = std::mem::take(&mut ws.tmp);
     let r = std::mem::take(&mut ws.r);
+    let p = prep.p;
     let out = match ws.factor(prep, mask) {
         Ok(f) => {
-            back_solve(f, &r, &mut z, &mut tmp);
+            for (zi, row) in z.iter_mut().zip(f.inv.chunks_exact(p)) {
+                *zi = row.iter().zip(&r).map(|(g, v)| g * v).sum();
+            }
             Ok(())
         }
         Err(e) => Err(e),
     };
     ws.z = z;
-    ws.tmp = tmp;
     ws.r = r;
     if out.is_err() {
         ws.z_mask = None;
