@@ -501,27 +501,28 @@ impl Model {
         let d = &self.design;
         let k = d.n_components;
         let n = a.len();
-        let conc: Vec<f64> = sol.x[..k].iter().map(|x| x / l_cm).collect();
-        let se: Vec<f64> = sol.std_error[..k].iter().map(|s| s / l_cm).collect();
-        let total: f64 = conc.iter().sum();
+        let conc = |i: usize| sol.x[i] / l_cm;
+        let se = |i: usize| sol.std_error[i] / l_cm;
+        let total: f64 = (0..k).map(conc).sum();
         let all_masses = self.molar_masses.iter().all(Option::is_some);
-        let mass_total: f64 = conc
-            .iter()
-            .zip(&self.molar_masses)
-            .map(|(c, m)| c * m.unwrap_or(0.0))
+        let mass_total: f64 = (0..k)
+            .map(|i| conc(i) * self.molar_masses[i].unwrap_or(0.0))
             .sum();
         let components = (0..k)
-            .map(|i| ComponentResult {
-                name: self.names[i].clone(),
-                concentration_mol_per_l: conc[i],
-                std_error_mol_per_l: se[i].is_finite().then_some(se[i]),
-                concentration_mg_per_l: self.molar_masses[i].map(|m| conc[i] * m * 1000.0),
-                std_error_mg_per_l: self.molar_masses[i]
-                    .filter(|_| se[i].is_finite())
-                    .map(|m| se[i] * m * 1000.0),
-                mole_fraction: (total > 0.0).then(|| conc[i] / total),
-                mass_fraction: (all_masses && mass_total > 0.0)
-                    .then(|| conc[i] * self.molar_masses[i].unwrap_or(0.0) / mass_total),
+            .map(|i| {
+                let (c, se) = (conc(i), se(i));
+                ComponentResult {
+                    name: self.names[i].clone(),
+                    concentration_mol_per_l: c,
+                    std_error_mol_per_l: se.is_finite().then_some(se),
+                    concentration_mg_per_l: self.molar_masses[i].map(|m| c * m * 1000.0),
+                    std_error_mg_per_l: self.molar_masses[i]
+                        .filter(|_| se.is_finite())
+                        .map(|m| se * m * 1000.0),
+                    mole_fraction: (total > 0.0).then(|| c / total),
+                    mass_fraction: (all_masses && mass_total > 0.0)
+                        .then(|| c * self.molar_masses[i].unwrap_or(0.0) / mass_total),
+                }
             })
             .collect();
         let baseline = BaselineResult {
@@ -529,13 +530,7 @@ impl Model {
             slope_au_per_nm: (d.baseline.n_terms() == 2).then(|| sol.x[k + 1] / d.half_span_nm),
             reference_nm: d.centre_nm,
         };
-        // One pass: sum, sum of squares and peak.
-        let (mut sum, mut aa, mut peak) = (0.0, 0.0, f64::NEG_INFINITY);
-        for &v in a {
-            sum += v;
-            aa += v * v;
-            peak = f64::max(peak, v);
-        }
+        let (sum, aa, peak) = moments(a);
         let sstot = aa - sum * sum / n as f64;
         let r_squared = (sstot > 0.0 && sstot.is_finite()).then(|| 1.0 - sol.rss / sstot);
         let mut flags = Vec::new();
@@ -551,11 +546,7 @@ impl Model {
         if peak < LOW_SIGNAL_AU {
             flags.push(FLAG_LOW_SIGNAL.to_string());
         }
-        if conc
-            .iter()
-            .zip(&self.calibrated_max_mol_per_l)
-            .any(|(c, max)| max.is_some_and(|m| *c > m))
-        {
+        if (0..k).any(|i| self.calibrated_max_mol_per_l[i].is_some_and(|m| conc(i) > m)) {
             flags.push(FLAG_BEYOND_CALIBRATED_RANGE.to_string());
         }
         let (lo, hi) = d.range_nm();
@@ -575,6 +566,35 @@ impl Model {
             screening: None,
         }
     }
+}
+
+/// Sum, sum of squares and largest value of a spectrum in one pass, four
+/// lanes wide so the compiler keeps it in vector registers (the lanes are
+/// combined in a fixed order: the result does not depend on the CPU).
+fn moments(a: &[f64]) -> (f64, f64, f64) {
+    let mut sum = [0.0f64; 4];
+    let mut sq = [0.0f64; 4];
+    let mut peak = [f64::NEG_INFINITY; 4];
+    let quads = a.chunks_exact(4);
+    let rest = quads.remainder();
+    for q in quads {
+        for l in 0..4 {
+            sum[l] += q[l];
+            sq[l] += q[l] * q[l];
+            peak[l] = if q[l] > peak[l] { q[l] } else { peak[l] };
+        }
+    }
+    for (l, &v) in rest.iter().enumerate() {
+        sum[l] += v;
+        sq[l] += v * v;
+        peak[l] = if v > peak[l] { v } else { peak[l] };
+    }
+    let max2 = |x: f64, y: f64| if y > x { y } else { x };
+    (
+        (sum[0] + sum[1]) + (sum[2] + sum[3]),
+        (sq[0] + sq[1]) + (sq[2] + sq[3]),
+        max2(max2(peak[0], peak[1]), max2(peak[2], peak[3])),
+    )
 }
 
 fn fit_block(
@@ -678,8 +698,19 @@ pub fn fit_stream_with<R: std::io::Read + Send, E>(
         let (tx, rx) = mpsc::sync_channel::<Result<crate::input::spectra::Chunk>>(1);
         let (back_tx, back_rx) = mpsc::channel::<Block>();
         scope.spawn(move || {
+            // Chunks handed to the fitter and not yet given back. Past
+            // `STREAM_BUFFERS` the reader waits for one to come back and
+            // reuses its storage: fresh buffers cost page faults and zero
+            // filling, recycled ones neither.
+            let mut in_flight = 0usize;
             loop {
-                if let Ok(spare) = back_rx.try_recv() {
+                let back = if in_flight >= STREAM_BUFFERS {
+                    back_rx.recv().ok()
+                } else {
+                    back_rx.try_recv().ok()
+                };
+                if let Some(spare) = back {
+                    in_flight -= 1;
                     stream.recycle(spare);
                 }
                 let item = match stream.next_chunk() {
@@ -691,6 +722,7 @@ pub fn fit_stream_with<R: std::io::Read + Send, E>(
                 if tx.send(item).is_err() || stop {
                     break;
                 }
+                in_flight += 1;
             }
         });
         // Leaving this loop early drops `rx`, which stops the reader.
@@ -704,6 +736,10 @@ pub fn fit_stream_with<R: std::io::Read + Send, E>(
         Ok(warnings)
     })
 }
+
+/// Chunk buffers a streamed fit keeps in circulation: one being read, one
+/// queued, one being fitted.
+const STREAM_BUFFERS: usize = 3;
 
 /// Why a streamed fit stopped.
 #[derive(Debug)]
