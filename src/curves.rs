@@ -70,7 +70,7 @@ pub fn compute(design: &Design, result: &SampleResult, full_row: &[f64]) -> Opti
         .iter()
         .enumerate()
         .map(|(j, c)| ComponentCurve {
-            name: c.name.clone(),
+            name: c.name.to_string(),
             au: design
                 .column(j)
                 .iter()

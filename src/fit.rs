@@ -65,8 +65,9 @@ impl Default for FitOptions {
 /// One component's result in one sample.
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 pub struct ComponentResult {
-    /// Component name.
-    pub name: String,
+    /// Component name (shared with the model: one allocation per run, not
+    /// per sample).
+    pub name: std::sync::Arc<str>,
     /// Concentration, mol/L.
     pub concentration_mol_per_l: f64,
     /// Standard error of the concentration, mol/L; `None` (JSON null) only
@@ -119,7 +120,7 @@ pub struct SampleResult {
     /// Pathlength used, cm.
     pub pathlength_cm: f64,
     /// Solver method (`normal-equations` or `lawson-hanson`).
-    pub solver: String,
+    pub solver: std::borrow::Cow<'static, str>,
     /// Flags raised for this sample.
     pub flags: Vec<String>,
     /// Residual diagnostics (absent when switched off).
@@ -264,6 +265,8 @@ pub struct Model {
     pub prepared: Prepared,
     molar_masses: Vec<Option<f64>>,
     names: Vec<String>,
+    /// The component names as shared strings for the results.
+    shared_names: Vec<std::sync::Arc<str>>,
     column_names: Vec<String>,
     checks: diagnostics::Options,
     moments: SerialMoments,
@@ -332,6 +335,11 @@ impl Model {
                 .map(|c| c.molar_mass_g_per_mol)
                 .collect(),
             names: refs.names().iter().map(|s| s.to_string()).collect(),
+            shared_names: refs
+                .names()
+                .iter()
+                .map(|s| std::sync::Arc::from(*s))
+                .collect(),
             calibrated_max_mol_per_l: refs
                 .components
                 .iter()
@@ -441,7 +449,7 @@ impl Model {
             Err(e) => return fail(e.to_string()),
         };
         let mut r = self.assemble(sample, &a_kept, &sol, l_cm);
-        r.solver = prepared.method().name().to_string();
+        r.solver = std::borrow::Cow::Borrowed(prepared.method().name());
         let peak = a.iter().fold(f64::NEG_INFINITY, |m, &v| m.max(v));
         if peak > HIGH_ABSORBANCE_AU && !r.flags.iter().any(|f| f == FLAG_HIGH_ABSORBANCE) {
             r.flags.push(FLAG_HIGH_ABSORBANCE.to_string());
@@ -512,7 +520,7 @@ impl Model {
             .map(|i| {
                 let (c, se) = (conc(i), se(i));
                 ComponentResult {
-                    name: self.names[i].clone(),
+                    name: self.shared_names[i].clone(),
                     concentration_mol_per_l: c,
                     std_error_mol_per_l: se.is_finite().then_some(se),
                     concentration_mg_per_l: self.molar_masses[i].map(|m| c * m * 1000.0),
@@ -559,7 +567,7 @@ impl Model {
             range_nm: [lo, hi],
             n_points: n,
             pathlength_cm: l_cm,
-            solver: self.prepared.method().name().to_string(),
+            solver: std::borrow::Cow::Borrowed(self.prepared.method().name()),
             flags,
             diagnostics: None,
             masking: None,

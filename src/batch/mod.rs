@@ -733,7 +733,7 @@ pub fn process_plate(
                     .components
                     .iter()
                     .map(|c| Undiluted {
-                        name: c.name.clone(),
+                        name: c.name.to_string(),
                         concentration_mol_per_l: c.concentration_mol_per_l * entry.dilution,
                         std_error_mol_per_l: c.std_error_mol_per_l.map(|v| v * entry.dilution),
                         concentration_mg_per_l: c

@@ -433,10 +433,12 @@ fn stream_csv<R: Read + Send>(
         // Formatting runs here (in parallel); a writer thread does the I/O
         // so the next chunk's fit overlaps this chunk's write.
         std::thread::scope(|scope| {
-            let (tx, rx) = std::sync::mpsc::sync_channel::<String>(2);
+            let (tx, rx) = std::sync::mpsc::sync_channel::<Vec<String>>(2);
             let writer = scope.spawn(move || -> std::io::Result<()> {
-                for text in rx {
-                    w.write_all(text.as_bytes())?;
+                for parts in rx {
+                    for text in parts {
+                        w.write_all(text.as_bytes())?;
+                    }
                 }
                 Ok(())
             });
@@ -446,7 +448,7 @@ fn stream_csv<R: Read + Send>(
                     .iter()
                     .filter(|o| matches!(o, Outcome::Failed(_)))
                     .count();
-                tx.send(output::csv_rows_parallel(&chunk))
+                tx.send(output::csv_row_parts(&chunk))
                     .map_err(|_| std::io::Error::other("the output writer stopped"))
             });
             drop(tx);

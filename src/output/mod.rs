@@ -205,17 +205,30 @@ pub fn write_csv(report: &FitReport, w: &mut dyn Write) -> io::Result<()> {
 
 /// The CSV rows (no header) of some outcomes, formatted in parallel.
 pub fn csv_rows_parallel(outcomes: &[Outcome]) -> String {
-    let parts: Vec<String> = outcomes
+    csv_row_parts(outcomes).concat()
+}
+
+/// [`csv_rows_parallel`] in pieces (of 1,024 samples each), to be written
+/// one after another without joining them first.
+pub fn csv_row_parts(outcomes: &[Outcome]) -> Vec<String> {
+    outcomes
         .par_chunks(1024)
         .map(|chunk| {
-            let mut s = String::with_capacity(chunk.len() * 400);
+            // About 200 bytes per component row: one allocation per piece.
+            let rows: usize = chunk
+                .iter()
+                .map(|o| match o {
+                    Outcome::Fitted(s) => s.components.len().max(1),
+                    Outcome::Failed(_) => 1,
+                })
+                .sum();
+            let mut s = String::with_capacity(rows * 224);
             for o in chunk {
                 csv_rows(o, &mut s);
             }
             s
         })
-        .collect();
-    parts.concat()
+        .collect()
 }
 
 /// A concentration unit for display.

@@ -1,7 +1,9 @@
 //! Speed of the main job (criterion). Run: `cargo bench --bench fit`.
 //!
 //! - `solve/...`: the NNLS solve alone, in memory (Eᵀa, active set, standard
-//!   errors), 6 components + offset × 401 wavelengths, parallel over spectra.
+//!   errors), 6 components + offset × 401 wavelengths, parallel over spectra,
+//!   into the workspace's reused solution buffer (`Prepared::solve_here`, as
+//!   `fit` does).
 //! - `fit_block/...`: the same plus building each sample's full result.
 //! - `parse_fit_csv/...`: parse a wide CSV held in memory, fit, and format
 //!   the tidy CSV output (everything but disk I/O).
@@ -98,7 +100,7 @@ fn benches(c: &mut Criterion) {
                         .iter()
                         .map(|&i| {
                             let a = &block.row(i)[model.design.start..model.design.end];
-                            model.prepared.solve(a, &mut ws).expect("solves").rss
+                            model.prepared.solve_here(a, &mut ws).expect("solves").rss
                         })
                         .sum::<f64>()
                 })
