@@ -357,6 +357,7 @@ pub fn discover(
         columns: &columns,
         n_components: k + 1,
         moments: &moments,
+        uniform_step: diagnostics::uniform_step(&design.wavelengths_nm),
     };
     let l = options.pathlength_cm;
     let peak_eps = d.peak_epsilon_l_per_mol_cm;

@@ -267,6 +267,8 @@ pub struct Model {
     names: Vec<String>,
     /// The component names as shared strings for the results.
     shared_names: Vec<std::sync::Arc<str>>,
+    /// Whether the design's wavelengths are evenly spaced (noise estimate).
+    uniform_step: bool,
     column_names: Vec<String>,
     checks: diagnostics::Options,
     moments: SerialMoments,
@@ -321,6 +323,7 @@ impl Model {
             }
             _ => (None, Vec::new()),
         };
+        let uniform_step = diagnostics::uniform_step(&design.wavelengths_nm);
         Ok(Model {
             design,
             prepared,
@@ -340,6 +343,7 @@ impl Model {
                 .iter()
                 .map(|s| std::sync::Arc::from(*s))
                 .collect(),
+            uniform_step,
             calibrated_max_mol_per_l: refs
                 .components
                 .iter()
@@ -399,6 +403,7 @@ impl Model {
                     columns: &d.columns,
                     n_components: d.n_components,
                     moments: &self.moments,
+                    uniform_step: self.uniform_step,
                 };
                 self.check(&mut r, view, a, sol, None);
                 Outcome::Fitted(r)
@@ -465,6 +470,7 @@ impl Model {
             columns: &cols,
             n_components: d.n_components,
             moments: &moments,
+            uniform_step: diagnostics::uniform_step(&w_kept),
         };
         self.check(&mut r, view, &a_kept, &sol, Some(keep));
         Outcome::Fitted(r)
@@ -651,18 +657,32 @@ pub fn merge_chunk(
     fitted: Vec<Outcome>,
     failures: Vec<crate::input::spectra::RowFailure>,
 ) -> Vec<Outcome> {
-    let mut all: Vec<(usize, Outcome)> = block.positions.iter().copied().zip(fitted).collect();
-    all.extend(failures.into_iter().map(|f| {
-        (
-            f.position,
-            Outcome::Failed(FailedSample {
-                sample: f.sample,
-                error: f.error.to_string(),
-            }),
-        )
-    }));
-    all.sort_by_key(|(p, _)| *p);
-    all.into_iter().map(|(_, o)| o).collect()
+    if failures.is_empty() {
+        // Already in input order: nothing to move.
+        return fitted;
+    }
+    // Both sides are in input order: one merge, each outcome moved once.
+    let mut out = Vec::with_capacity(fitted.len() + failures.len());
+    let mut failed = failures
+        .into_iter()
+        .map(|f| {
+            (
+                f.position,
+                Outcome::Failed(FailedSample {
+                    sample: f.sample,
+                    error: f.error.to_string(),
+                }),
+            )
+        })
+        .peekable();
+    for (&p, o) in block.positions.iter().zip(fitted) {
+        while let Some((_, f)) = failed.next_if(|(q, _)| *q < p) {
+            out.push(f);
+        }
+        out.push(o);
+    }
+    out.extend(failed.map(|(_, f)| f));
+    out
 }
 
 /// Fit a wide file chunk by chunk, handing each chunk's outcomes (in input

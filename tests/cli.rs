@@ -670,8 +670,8 @@ fn semicolon_decimal_comma_export_is_read() {
     assert!((c - 4e-6).abs() < 1e-9, "{c}");
 }
 
-/// More rows than one streaming chunk (8192 lines), with a bad cell deep in
-/// the second chunk: line numbers, order and counts stay right.
+/// More rows than one streaming chunk (2,048 lines), with a bad cell deep in
+/// a later chunk: line numbers, order and counts stay right.
 #[test]
 fn long_files_stream_in_chunks_without_losing_rows_or_line_numbers() {
     let dir = tempdir("stream");

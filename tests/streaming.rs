@@ -1,4 +1,4 @@
-//! The streamed fit (wide files read in chunks of 8,192 lines, with the
+//! The streamed fit (wide files read in chunks of 2,048 lines, with the
 //! chunk buffers recycled between the reader and the fitter) gives the same
 //! outcomes, in the same order, as fitting the whole file read at once.
 //! Four chunks and more, so every buffer is handed back and reused.

@@ -433,12 +433,15 @@ fn stream_csv<R: Read + Send>(
         // Formatting runs here (in parallel); a writer thread does the I/O
         // so the next chunk's fit overlaps this chunk's write.
         std::thread::scope(|scope| {
-            let (tx, rx) = std::sync::mpsc::sync_channel::<Vec<String>>(2);
+            // The outcomes travel with their text so the writer thread, not
+            // the fitting one, spends the time freeing them.
+            let (tx, rx) = std::sync::mpsc::sync_channel::<(Vec<String>, Vec<Outcome>)>(2);
             let writer = scope.spawn(move || -> std::io::Result<()> {
-                for parts in rx {
+                for (parts, outcomes) in rx {
                     for text in parts {
                         w.write_all(text.as_bytes())?;
                     }
+                    drop(outcomes);
                 }
                 Ok(())
             });
@@ -448,7 +451,8 @@ fn stream_csv<R: Read + Send>(
                     .iter()
                     .filter(|o| matches!(o, Outcome::Failed(_)))
                     .count();
-                tx.send(output::csv_row_parts(&chunk))
+                let parts = output::csv_row_parts(&chunk);
+                tx.send((parts, chunk))
                     .map_err(|_| std::io::Error::other("the output writer stopped"))
             });
             drop(tx);

@@ -233,6 +233,9 @@ impl Residual {
 }
 
 /// r = a − E·x for column-major `columns` (n points each) and coefficients x.
+// Compiled for AVX2 as well as the baseline (chosen at run time); the
+// operations and their order are the same, so every version gives the same bits.
+#[multiversion::multiversion(targets("x86_64+avx2"))]
 pub fn residual(a: &[f64], columns: &[f64], x: &[f64]) -> Vec<f64> {
     let n = a.len();
     let mut r = a.to_vec();
@@ -274,14 +277,43 @@ pub fn pseudo_residuals(wavelengths_nm: &[f64], r: &[f64]) -> Vec<f64> {
 /// Robust noise σ (AU) of a residual: 1.4826 × median |pseudo-residual|.
 /// `None` with fewer than 3 points.
 pub fn noise_au(wavelengths_nm: &[f64], r: &[f64]) -> Option<f64> {
-    let mut e = pseudo_residuals(wavelengths_nm, r);
-    if e.is_empty() {
+    noise_au_with(wavelengths_nm, r, uniform_step(wavelengths_nm))
+}
+
+/// Whether every step of a wavelength grid is the same (to 1e-9 relative),
+/// as [`pseudo_residuals`] decides point by point.
+pub fn uniform_step(wavelengths_nm: &[f64]) -> bool {
+    wavelengths_nm.windows(3).all(|t| {
+        let (h1, h2) = (t[1] - t[0], t[2] - t[1]);
+        (h1 - h2).abs() <= 1e-9 * h1
+    })
+}
+
+/// [`noise_au`] with the grid's [`uniform_step`] already known. On an even
+/// grid the pseudo-residuals are (½(rᵢ₋₁ + rᵢ₊₁) − rᵢ)/√1.5, computed in one
+/// pass; the median of their magnitudes is selected on the bit patterns
+/// (for non-negative floats the integer order is the numeric order), which
+/// gives the same value as comparing the floats, faster.
+pub fn noise_au_with(wavelengths_nm: &[f64], r: &[f64], uniform: bool) -> Option<f64> {
+    let n = r.len().min(wavelengths_nm.len());
+    if n < 3 {
         return None;
     }
-    e.iter_mut().for_each(|v| *v = v.abs());
-    let mid = e.len() / 2;
-    let (_, med, _) = e.select_nth_unstable_by(mid, f64::total_cmp);
-    Some(MAD_TO_SIGMA * *med)
+    let mut bits: Vec<u64> = if uniform {
+        let even = 1.0 / 1.5f64.sqrt();
+        r[..n]
+            .windows(3)
+            .map(|t| ((0.5 * (t[0] + t[2]) - t[1]) * even).abs().to_bits())
+            .collect()
+    } else {
+        pseudo_residuals(wavelengths_nm, r)
+            .iter()
+            .map(|v| v.abs().to_bits())
+            .collect()
+    };
+    let mid = bits.len() / 2;
+    let (_, med, _) = bits.select_nth_unstable(mid);
+    Some(MAD_TO_SIGMA * f64::from_bits(*med))
 }
 
 /// Durbin–Watson statistic Σ(rᵢ − rᵢ₋₁)² / Σrᵢ²; `None` for a zero residual.
@@ -349,7 +381,14 @@ pub struct SerialMoments {
     c: Vec<f64>,
     /// The moments with every column free (the usual case), computed once.
     all_free: Option<(f64, f64, usize)>,
+    /// The moments per passive set (bitmask), computed on first use and
+    /// shared by every thread (designs of up to [`MOMENT_CACHE_BITS`] columns).
+    by_mask: Vec<std::sync::OnceLock<Option<(f64, f64, usize)>>>,
 }
+
+/// Designs with at most this many columns cache their Durbin–Watson moments
+/// per passive set (2¹⁴ slots at most).
+const MOMENT_CACHE_BITS: usize = 14;
 
 impl SerialMoments {
     /// From column-major columns (`p` columns of `n` points).
@@ -391,6 +430,13 @@ impl SerialMoments {
             b,
             c,
             all_free: None,
+            by_mask: if p <= MOMENT_CACHE_BITS {
+                (0..1usize << p)
+                    .map(|_| std::sync::OnceLock::new())
+                    .collect()
+            } else {
+                Vec::new()
+            },
         };
         m.all_free = m.compute(&vec![true; p]);
         m
@@ -402,7 +448,14 @@ impl SerialMoments {
         if passive.iter().all(|b| *b) {
             return self.all_free;
         }
-        self.compute(passive)
+        if self.by_mask.is_empty() || passive.len() != self.p {
+            return self.compute(passive);
+        }
+        let mask = passive
+            .iter()
+            .enumerate()
+            .fold(0usize, |m, (j, &b)| if b { m | (1 << j) } else { m });
+        *self.by_mask[mask].get_or_init(|| self.compute(passive))
     }
 
     fn compute(&self, passive: &[bool]) -> Option<(f64, f64, usize)> {
@@ -443,6 +496,9 @@ pub struct View<'a> {
     pub n_components: usize,
     /// The design's Durbin–Watson moments.
     pub moments: &'a SerialMoments,
+    /// Whether the wavelengths are evenly spaced ([`uniform_step`]): the
+    /// noise estimate then takes its fast path.
+    pub uniform_step: bool,
 }
 
 /// Test one fitted spectrum `a` with solution `x` (unscaled) against noise.
@@ -458,7 +514,10 @@ pub fn examine(view: View<'_>, a: &[f64], x: &[f64], opts: &ResidualOptions) -> 
     let rss: f64 = r.iter().map(|v| v * v).sum();
     let (noise, source) = match opts.noise_au {
         Some(s) => (Some(s), "given"),
-        None => (noise_au(view.wavelengths_nm, &r), "estimated"),
+        None => (
+            noise_au_with(view.wavelengths_nm, &r, view.uniform_step),
+            "estimated",
+        ),
     };
     let sigma = noise.unwrap_or(0.0);
     let nu = n.saturating_sub(n_free);
@@ -640,6 +699,33 @@ mod tests {
 
     fn grid(n: usize) -> Vec<f64> {
         (0..n).map(|i| 350.0 + i as f64).collect()
+    }
+
+    #[test]
+    fn fast_noise_path_gives_the_general_answer() {
+        // The even-grid pass and the selection on bit patterns must give the
+        // value of the point-by-point pseudo-residuals and a float median.
+        let w = grid(401);
+        let mut state: u64 = 3;
+        let r: Vec<f64> = (0..401)
+            .map(|_| {
+                state = state
+                    .wrapping_mul(6364136223846793005)
+                    .wrapping_add(1442695040888963407);
+                ((state >> 11) as f64 / (1u64 << 53) as f64 - 0.5) * 1e-3
+            })
+            .collect();
+        assert!(uniform_step(&w));
+        let mut e: Vec<f64> = pseudo_residuals(&w, &r).iter().map(|v| v.abs()).collect();
+        let mid = e.len() / 2;
+        let (_, med, _) = e.select_nth_unstable_by(mid, f64::total_cmp);
+        let want = MAD_TO_SIGMA * *med;
+        assert_eq!(noise_au_with(&w, &r, true), Some(want));
+        assert_eq!(noise_au_with(&w, &r, false), Some(want));
+        assert_eq!(noise_au(&w, &r), Some(want));
+        let mut uneven = w.clone();
+        uneven[200] += 0.3;
+        assert!(!uniform_step(&uneven));
     }
 
     #[test]

@@ -218,6 +218,7 @@ impl Screener {
                 columns,
                 n_components: k + 1,
                 moments,
+                uniform_step: super::uniform_step(wl),
             };
             let still_flagged = examine(view, input.a, &sol.x, opts).flagged();
             let l = input.pathlength_cm;

@@ -193,7 +193,7 @@ pub enum Opened<R: Read> {
 
 /// Lines per chunk of a wide stream. Fixed (not tied to byte counts or
 /// threads), so chunking never depends on the machine.
-pub const LINES_PER_CHUNK: usize = 8192;
+pub const LINES_PER_CHUNK: usize = 2048;
 
 /// What the header of a wide file says.
 #[derive(Debug, Clone)]
