@@ -448,6 +448,9 @@ impl Component {
             note: Option<&'a str>,
             created: &'a str,
             epsilon_unit: &'a str,
+        }
+        #[derive(Serialize)]
+        struct Tables<'a> {
             conditions: &'a Conditions,
             source: &'a Source,
         }
@@ -459,16 +462,36 @@ impl Component {
             note: self.note.as_deref(),
             created: &self.created,
             epsilon_unit: "L/(mol*cm)",
-            conditions: &self.conditions,
-            source: &self.source,
         };
+        // Keys this version does not know are kept. Plain values must come
+        // before the first table header (after one they would belong to that
+        // table), so they follow the head; unknown tables go after ours.
+        let is_table = |v: &toml::Value| match v {
+            toml::Value::Table(_) => true,
+            toml::Value::Array(a) => !a.is_empty() && a.iter().all(toml::Value::is_table),
+            _ => false,
+        };
+        let (extra_tables, extra_values): (toml::Table, toml::Table) = self
+            .extra
+            .iter()
+            .map(|(k, v)| (k.clone(), v.clone()))
+            .partition(|(_, v)| is_table(v));
         let mut out = String::from(
             "# unblend reference component: molar absorptivity curve and provenance\n",
         );
         out.push_str(&toml::to_string(&head).unwrap_or_default());
-        if !self.extra.is_empty() {
+        if !extra_values.is_empty() {
+            out.push_str(&toml::to_string(&extra_values).unwrap_or_default());
+        }
+        out.push('\n');
+        let tables = Tables {
+            conditions: &self.conditions,
+            source: &self.source,
+        };
+        out.push_str(&toml::to_string(&tables).unwrap_or_default());
+        if !extra_tables.is_empty() {
             out.push('\n');
-            out.push_str(&toml::to_string(&self.extra).unwrap_or_default());
+            out.push_str(&toml::to_string(&extra_tables).unwrap_or_default());
         }
         out.push_str("\n[absorptivity]\n");
         if self.epsilon_std_error_l_per_mol_cm.is_some() {
