@@ -722,14 +722,16 @@ pub fn fit_stream_with<R: std::io::Read + Send, E>(
         .chain(model.separability_warnings())
         .chain(model.check_warnings().iter().cloned())
         .collect();
+    let header = stream.header.clone();
+    let read_options = stream.options();
     std::thread::scope(|scope| {
-        let (tx, rx) = mpsc::sync_channel::<Result<crate::input::spectra::Chunk>>(1);
-        let (back_tx, back_rx) = mpsc::channel::<Block>();
+        let (tx, rx) = mpsc::sync_channel::<Result<crate::input::spectra::RawChunk>>(1);
+        let (back_tx, back_rx) = mpsc::channel::<Vec<u8>>();
         scope.spawn(move || {
             // Chunks handed to the fitter and not yet given back. Past
             // `STREAM_BUFFERS` the reader waits for one to come back and
-            // reuses its storage: fresh buffers cost page faults and zero
-            // filling, recycled ones neither.
+            // reuses its storage: fresh buffers cost page faults, recycled
+            // ones do not.
             let mut in_flight = 0usize;
             loop {
                 let back = if in_flight >= STREAM_BUFFERS {
@@ -737,11 +739,10 @@ pub fn fit_stream_with<R: std::io::Read + Send, E>(
                 } else {
                     back_rx.try_recv().ok()
                 };
-                if let Some(spare) = back {
+                if back.is_some() {
                     in_flight -= 1;
-                    stream.recycle(spare);
                 }
-                let item = match stream.next_chunk() {
+                let item = match stream.next_raw_chunk(back) {
                     Ok(Some(c)) => Ok(c),
                     Ok(None) => break,
                     Err(e) => Err(e),
@@ -756,13 +757,54 @@ pub fn fit_stream_with<R: std::io::Read + Send, E>(
         // Leaving this loop early drops `rx`, which stops the reader.
         for item in rx {
             let chunk = item.map_err(StreamError::Engine)?;
-            let fitted = model.fit_block(&chunk.block, options.pathlength_cm);
-            let outcomes = merge_chunk(&chunk.block, fitted, chunk.failures);
-            let _ = back_tx.send(chunk.block);
+            let outcomes =
+                model.parse_and_fit(&chunk, &header, read_options, options.pathlength_cm);
+            let _ = back_tx.send(chunk.text);
             sink(outcomes).map_err(StreamError::Sink)?;
         }
         Ok(warnings)
     })
+}
+
+impl Model {
+    /// Parse and fit every line of a raw chunk in parallel, in fixed pieces
+    /// of [`CHUNK`] lines (as [`Model::fit_block`]): each row is fitted right
+    /// after it is parsed, while it is in cache. Rows that cannot be read
+    /// are failed outcomes in their place; outcomes in input order.
+    pub fn parse_and_fit(
+        &self,
+        chunk: &crate::input::spectra::RawChunk,
+        header: &crate::input::spectra::WideHeader,
+        read_options: crate::input::spectra::ReadOptions,
+        pathlength_cm: f64,
+    ) -> Vec<Outcome> {
+        let n = header.grid.len();
+        let idx: Vec<usize> = (0..chunk.lines.len()).collect();
+        let out: Vec<Vec<Outcome>> = idx
+            .par_chunks(CHUNK)
+            .map(|piece| {
+                let mut ws = self.prepared.workspace();
+                let mut row = vec![0.0; n];
+                let mut scratch = Vec::new();
+                piece
+                    .iter()
+                    .map(|&i| {
+                        let line = chunk.line(i);
+                        let line_no = chunk.lines[i].line_no;
+                        match header.parse_row(line, line_no, read_options, &mut row, &mut scratch)
+                        {
+                            Ok(id) => self.fit_one(&id, &row, pathlength_cm, &mut ws),
+                            Err((sample, error)) => Outcome::Failed(FailedSample {
+                                sample,
+                                error: error.to_string(),
+                            }),
+                        }
+                    })
+                    .collect()
+            })
+            .collect();
+        out.into_iter().flatten().collect()
+    }
 }
 
 /// Chunk buffers a streamed fit keeps in circulation: one being read, one

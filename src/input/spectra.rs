@@ -219,6 +219,52 @@ pub struct Chunk {
     pub failures: Vec<RowFailure>,
 }
 
+/// One data line of a [`RawChunk`].
+#[derive(Debug, Clone, Copy)]
+pub struct RawLine {
+    /// Line number in the file (1-based).
+    pub line_no: usize,
+    /// Byte range of the line in [`RawChunk::text`] (without the line end).
+    pub start: usize,
+    /// End of the byte range.
+    pub end: usize,
+}
+
+/// A chunk of a wide file's data lines, not yet parsed.
+#[derive(Debug)]
+pub struct RawChunk {
+    /// The bytes the lines point into.
+    pub text: Vec<u8>,
+    /// The data lines (blank and comment lines left out), in file order.
+    pub lines: Vec<RawLine>,
+    /// Position (row index from the start of the file) of the first line.
+    pub first_position: usize,
+}
+
+impl RawChunk {
+    /// The bytes of line `i`.
+    pub fn line(&self, i: usize) -> &[u8] {
+        let l = self.lines[i];
+        &self.text[l.start..l.end]
+    }
+}
+
+impl WideHeader {
+    /// Parse one data line of this file into `dst` (one absorbance per
+    /// wavelength of [`WideHeader::grid`], ascending). Returns the sample
+    /// name, or the sample name (or `(line N)`) and what is wrong.
+    pub fn parse_row<'a>(
+        &self,
+        line: &'a [u8],
+        line_no: usize,
+        options: ReadOptions,
+        dst: &mut [f64],
+        scratch: &mut Vec<&'a [u8]>,
+    ) -> std::result::Result<String, (String, Error)> {
+        parse_wide_row(line, line_no, self, options, dst, scratch)
+    }
+}
+
 /// A wide-layout file read in chunks of [`LINES_PER_CHUNK`] lines, so memory
 /// stays bounded however long the file is. Rows are parsed in parallel.
 pub struct WideStream<R: Read> {
@@ -355,6 +401,11 @@ impl<R: Read> WideStream<R> {
         self.rows
     }
 
+    /// The reading options the stream was opened with.
+    pub fn options(&self) -> ReadOptions {
+        self.options
+    }
+
     /// Hand back a block's storage for reuse by the next chunk.
     pub fn recycle(&mut self, block: Block) {
         self.spare = block.absorbance_au;
@@ -384,7 +435,56 @@ impl<R: Read> WideStream<R> {
     /// Read the next chunk of up to [`LINES_PER_CHUNK`] lines; `None` at the
     /// end of the file.
     pub fn next_chunk(&mut self) -> Result<Option<Chunk>> {
-        // Drop consumed bytes, then read until the chunk's lines are complete.
+        self.next_chunk_parsed()
+    }
+
+    /// Read the next chunk of up to [`LINES_PER_CHUNK`] lines without parsing
+    /// them: the caller parses each row with [`WideHeader::parse_row`] where
+    /// it uses it (`fit::fit_stream` parses and fits a row in one go, while
+    /// it is in cache). `spare` is a buffer to reuse for the text (a
+    /// previous chunk's, handed back). `None` at the end of the file.
+    pub fn next_raw_chunk(&mut self, spare: Option<Vec<u8>>) -> Result<Option<RawChunk>> {
+        let Some((end, first_line)) = self.gather()? else {
+            return Ok(None);
+        };
+        let delim = self.header.delimiter.byte();
+        let mut lines: Vec<RawLine> = Vec::with_capacity(LINES_PER_CHUNK);
+        let mut count = 0;
+        let base = self.buf.as_ptr() as usize;
+        for (n, line) in fields::lines(&self.buf[..end]) {
+            count = n;
+            if !fields::is_skippable(line, delim) {
+                let start = line.as_ptr() as usize - base;
+                lines.push(RawLine {
+                    line_no: first_line + n - 1,
+                    start,
+                    end: start + line.len(),
+                });
+            }
+        }
+        self.next_line += count;
+        let first_position = self.rows;
+        self.rows += lines.len();
+        // The chunk takes the buffer; the rest of the input moves to the spare.
+        let mut rest = spare.unwrap_or_default();
+        rest.clear();
+        rest.extend_from_slice(&self.buf[end..]);
+        let text = std::mem::replace(&mut self.buf, rest);
+        self.start = 0;
+        if lines.is_empty() && self.eof && self.buf.is_empty() {
+            return Ok(None);
+        }
+        Ok(Some(RawChunk {
+            text,
+            lines,
+            first_position,
+        }))
+    }
+
+    /// Drop consumed bytes and read until the next chunk's lines are
+    /// complete: the chunk's end in `buf` and its first line number, or
+    /// `None` when nothing is left.
+    fn gather(&mut self) -> Result<Option<(usize, usize)>> {
         if self.start > 0 {
             self.buf.drain(..self.start);
             self.start = 0;
@@ -408,8 +508,14 @@ impl<R: Read> WideStream<R> {
         } else {
             self.buf.len()
         };
+        Ok(Some((end, self.next_line)))
+    }
+
+    fn next_chunk_parsed(&mut self) -> Result<Option<Chunk>> {
+        let Some((end, first_line)) = self.gather()? else {
+            return Ok(None);
+        };
         let delim = self.header.delimiter.byte();
-        let first_line = self.next_line;
         let mut lines: Vec<(usize, &[u8])> = Vec::with_capacity(LINES_PER_CHUNK);
         let mut count = 0;
         for (n, line) in fields::lines(&self.buf[..end]) {
