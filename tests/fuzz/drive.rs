@@ -44,6 +44,7 @@ pub fn spectra(data: &[u8]) {
     let Ok(file) = spectra::read(data, options) else {
         return;
     };
+    raw_rows_agree(data, options, &file);
     for block in &file.blocks {
         let grid = block.grid.wavelengths_nm();
         assert!(ascending(grid), "accepted grid is not ascending");
@@ -55,6 +56,44 @@ pub fn spectra(data: &[u8]) {
                 .all(|v| v.is_finite() || (overflow_as_saturated && plate::is_saturated(*v)))
         );
     }
+}
+
+/// The streamed path of `fit` (raw chunks, each row parsed where it is
+/// fitted) reads the same rows, values and failures as `read`.
+fn raw_rows_agree(data: &[u8], options: ReadOptions, file: &spectra::SpectraFile) {
+    let Ok(spectra::Opened::Wide(mut stream)) = spectra::open(data, options) else {
+        return;
+    };
+    let header = stream.header.clone();
+    let n = header.grid.len();
+    let mut ids = Vec::new();
+    let mut values = Vec::new();
+    let mut failed = 0;
+    let mut spare = None;
+    let mut row = vec![0.0; n];
+    while let Ok(Some(chunk)) = stream.next_raw_chunk(spare.take()) {
+        let mut scratch = Vec::new();
+        for (i, l) in chunk.lines.iter().enumerate() {
+            match header.parse_row(chunk.line(i), l.line_no, options, &mut row, &mut scratch) {
+                Ok(id) => {
+                    ids.push(id);
+                    values.extend_from_slice(&row);
+                }
+                Err(_) => failed += 1,
+            }
+        }
+        spare = Some(chunk.text);
+    }
+    let block_ids: Vec<&String> = file.blocks.iter().flat_map(|b| &b.ids).collect();
+    assert_eq!(ids.iter().collect::<Vec<_>>(), block_ids, "rows differ");
+    assert_eq!(failed, file.failures.len(), "failures differ");
+    let block_values: Vec<u64> = file
+        .blocks
+        .iter()
+        .flat_map(|b| b.absorbance_au.iter().map(|v| v.to_bits()))
+        .collect();
+    let raw_values: Vec<u64> = values.iter().map(|v| v.to_bits()).collect();
+    assert_eq!(raw_values, block_values, "values differ");
 }
 
 /// Molar absorptivity tables (`library add --from`).
