@@ -167,10 +167,12 @@ pub(crate) fn interleave(columns: &[f64], n: usize, p: usize) -> Vec<[f64; 8]> {
 /// r = Eᵀa from the row-major groups of [`interleave`]: one pass over the
 /// spectrum per eight columns, each a[i] broadcast against eight column
 /// values (two accumulator sets for even and odd points hide the add
-/// latency); returns aᵀa. Compiled for AVX2 as well as the baseline and
-/// chosen at run time; the summation order is fixed by the code, so every
-/// version gives the same bits.
-#[multiversion::multiversion(targets("x86_64+avx2"))]
+/// latency); returns aᵀa. Compiled for AVX2 with FMA, AVX2 and the baseline,
+/// chosen at run time. The summation order is fixed by the code; the FMA
+/// version rounds once per multiply-add, so its last bits can differ from a
+/// CPU without FMA. On one machine the version is fixed, so results never
+/// depend on the thread count.
+#[multiversion::multiversion(targets("x86_64+avx2+fma", "x86_64+avx2"))]
 pub(crate) fn project(rows8: &[[f64; 8]], n: usize, a: &[f64], r: &mut [f64]) -> f64 {
     let p = r.len();
     let a = &a[..n];
@@ -178,10 +180,18 @@ pub(crate) fn project(rows8: &[[f64; 8]], n: usize, a: &[f64], r: &mut [f64]) ->
         let mut even = [0.0f64; 8];
         let mut odd = [0.0f64; 8];
         let pairs = group.chunks_exact(2).zip(a.chunks_exact(2));
+        // Known when this version is compiled: the branch not taken is removed.
+        let fma = multiversion::target::selected_target!()
+            .contains(multiversion::target_features::x86_64::FMA);
         for (rows, x) in pairs {
             for l in 0..8 {
-                even[l] += rows[0][l] * x[0];
-                odd[l] += rows[1][l] * x[1];
+                if fma {
+                    even[l] = rows[0][l].mul_add(x[0], even[l]);
+                    odd[l] = rows[1][l].mul_add(x[1], odd[l]);
+                } else {
+                    even[l] += rows[0][l] * x[0];
+                    odd[l] += rows[1][l] * x[1];
+                }
             }
         }
         if n % 2 == 1 {
