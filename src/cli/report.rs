@@ -36,7 +36,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     }
     let doc: JsonReport = serde_json::from_slice(&bytes).map_err(|e| {
         Failure::new(format!(
-            "{shown}: line {}, column {}: expected the JSON results of `unblend fit --format json` ({e})",
+            "{shown}: line {}, column {}: expected the JSON results of `unblend fit --format json` or the run.json of `unblend batch` ({e})",
             e.line(),
             e.column()
         ))
