@@ -139,29 +139,19 @@ mod tests {
     use super::*;
     use crate::fit::{FitOptions, fit_file};
     use crate::input::spectra::{ReadOptions, read};
-    use crate::reference::{Component, Conditions, Source};
-    use crate::spectrum::Grid;
+    use crate::reference::Component;
 
     /// Sums of floats of order 1 agree to a few ulps.
     const TOL_AU: f64 = 1e-9;
 
     fn comp(name: &str, eps: Vec<f64>) -> Component {
-        Component {
-            name: name.into(),
-            molar_mass_g_per_mol: None,
-            note: None,
-            created: String::new(),
-            conditions: Conditions::default(),
-            source: Source {
-                kind: "imported".into(),
-                file: None,
-                sha256: None,
-            },
-            grid: Grid::new(vec![400.0, 450.0, 500.0, 550.0, 600.0]).unwrap(),
-            epsilon_l_per_mol_cm: eps,
-            epsilon_std_error_l_per_mol_cm: None,
-            extra: Default::default(),
-        }
+        Component::from_curve(
+            name,
+            vec![400.0, 450.0, 500.0, 550.0, 600.0],
+            eps,
+            "imported",
+        )
+        .unwrap()
     }
 
     #[test]

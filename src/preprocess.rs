@@ -183,25 +183,10 @@ pub fn design(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::reference::{Component, Conditions, Source};
+    use crate::reference::Component;
 
     fn comp(name: &str, lo: f64, hi: f64) -> Component {
-        Component {
-            name: name.into(),
-            molar_mass_g_per_mol: None,
-            note: None,
-            created: String::new(),
-            conditions: Conditions::default(),
-            source: Source {
-                kind: "imported".into(),
-                file: None,
-                sha256: None,
-            },
-            grid: Grid::new(vec![lo, hi]).unwrap(),
-            epsilon_l_per_mol_cm: vec![1000.0, 2000.0],
-            epsilon_std_error_l_per_mol_cm: None,
-            extra: toml::Table::new(),
-        }
+        Component::from_curve(name, vec![lo, hi], vec![1000.0, 2000.0], "imported").unwrap()
     }
 
     #[test]

@@ -973,7 +973,7 @@ fn replicates(wells: &mut [WellResult], options: &BatchOptions) -> Vec<SampleSum
 mod tests {
     use super::*;
     use crate::input::plate::PlateFormat;
-    use crate::reference::{Component, Conditions, Source};
+    use crate::reference::Component;
 
     /// A smooth invented band (Gaussian), ε in L/(mol·cm).
     fn band(name: &str, centre_nm: f64, peak: f64) -> Component {
@@ -982,22 +982,7 @@ mod tests {
             .iter()
             .map(|x| peak * (-((x - centre_nm) / 40.0).powi(2)).exp())
             .collect();
-        Component {
-            name: name.into(),
-            molar_mass_g_per_mol: None,
-            note: None,
-            created: String::new(),
-            conditions: Conditions::default(),
-            source: Source {
-                kind: "imported".into(),
-                file: None,
-                sha256: None,
-            },
-            grid: Grid::new(w).unwrap(),
-            epsilon_l_per_mol_cm: e,
-            epsilon_std_error_l_per_mol_cm: None,
-            extra: toml::Table::new(),
-        }
+        Component::from_curve(name, w, e, "imported").unwrap()
     }
 
     fn refs() -> ReferenceSet {

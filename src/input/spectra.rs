@@ -700,21 +700,9 @@ fn fast_decimal<const DECIMAL_COMMA: bool>(
             }
         }
     }
-    let mut k = 0;
-    let neg = len > 0 && bytes[0] == b'-';
-    if len > 0 && (bytes[0] == b'-' || bytes[0] == b'+') {
-        k = 1;
-    }
-    let mut mant: u64 = 0;
-    let int_start = k;
-    while k < len {
-        let d = bytes[k].wrapping_sub(b'0');
-        if d > 9 {
-            break;
-        }
-        mant = mant.wrapping_mul(10).wrapping_add(u64::from(d));
-        k += 1;
-    }
+    let neg = bytes.first() == Some(&b'-');
+    let int_start = sign;
+    let (mut k, mut mant) = digit_run(bytes, sign, 0);
     let mut digits = k - int_start;
     let mut frac = 0;
     if k < len && (bytes[k] == b'.' || (DECIMAL_COMMA && bytes[k] == b',')) {
@@ -731,18 +719,26 @@ fn fast_decimal<const DECIMAL_COMMA: bool>(
                 return finish(mant, digits, frac, neg, bytes, k, delim, i);
             }
         }
-        while k < len {
-            let d = bytes[k].wrapping_sub(b'0');
-            if d > 9 {
-                break;
-            }
-            mant = mant.wrapping_mul(10).wrapping_add(u64::from(d));
-            k += 1;
-        }
+        (k, mant) = digit_run(bytes, k, mant);
         frac = k - frac_start;
         digits += frac;
     }
     finish(mant, digits, frac, neg, bytes, k, delim, i)
+}
+
+/// Decimal digits from `k` on, appended to `mant` (wrapping: `finish`
+/// rejects more than 18 digits); returns the end and the new mantissa.
+#[inline(always)]
+fn digit_run(bytes: &[u8], mut k: usize, mut mant: u64) -> (usize, u64) {
+    while let Some(d) = bytes
+        .get(k)
+        .map(|b| b.wrapping_sub(b'0'))
+        .filter(|d| *d <= 9)
+    {
+        mant = mant.wrapping_mul(10).wrapping_add(u64::from(d));
+        k += 1;
+    }
+    (k, mant)
 }
 
 /// Powers of ten as integers, for shifting the mantissa by a digit count.

@@ -7,7 +7,7 @@
 //! the `undiluted_` columns are the specimen's (dilution applied). In
 //! `samples.csv` every concentration is the specimen's.
 
-use super::csv_field;
+use super::{csv_field, num, opt};
 use crate::batch::{PlateResult, WellResult};
 use std::fmt::Write as _;
 
@@ -26,19 +26,6 @@ pub struct RenderedPlate {
     pub samples_csv: String,
     /// The plate's object in the run JSON's `plates` array.
     pub json: String,
-}
-
-fn num(out: &mut String, v: f64) {
-    if v.is_finite() {
-        let mut b = ryu::Buffer::new();
-        out.push_str(b.format(v));
-    }
-}
-
-fn opt(out: &mut String, v: Option<f64>) {
-    if let Some(v) = v {
-        num(out, v);
-    }
 }
 
 fn text(out: &mut String, s: &str) {

@@ -119,14 +119,16 @@ pub fn csv_field(s: &str) -> std::borrow::Cow<'_, str> {
     }
 }
 
-fn num(out: &mut String, v: f64) {
+/// A finite number in shortest round-trip form (nothing for NaN/inf).
+pub(crate) fn num(out: &mut String, v: f64) {
     if v.is_finite() {
         let mut b = ryu::Buffer::new();
         out.push_str(b.format(v));
     }
 }
 
-fn opt(out: &mut String, v: Option<f64>) {
+/// [`num`] of a value that may be absent.
+pub(crate) fn opt(out: &mut String, v: Option<f64>) {
     if let Some(v) = v {
         num(out, v);
     }
