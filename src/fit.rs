@@ -388,12 +388,24 @@ impl Model {
         pathlength_cm: f64,
         ws: &mut crate::solver::Workspace,
     ) -> Outcome {
+        self.fit_named(sample.to_string(), full_row, pathlength_cm, ws)
+    }
+
+    /// [`Model::fit_one`] for a name the caller owns (it moves into the
+    /// result: no copy per sample).
+    fn fit_named(
+        &self,
+        sample: String,
+        full_row: &[f64],
+        pathlength_cm: f64,
+        ws: &mut crate::solver::Workspace,
+    ) -> Outcome {
         let d = &self.design;
         let a = &full_row[d.start..d.end];
         if let Some(ceiling) = self.checks.max_absorbance_au
             && let Some(keep) = mask::keep(a, ceiling)
         {
-            return self.fit_masked(sample, a, &keep, ceiling, pathlength_cm);
+            return self.fit_masked(&sample, a, &keep, ceiling, pathlength_cm);
         }
         match self.prepared.solve_here(a, ws) {
             Ok(sol) => {
@@ -409,7 +421,7 @@ impl Model {
                 Outcome::Fitted(r)
             }
             Err(e) => Outcome::Failed(FailedSample {
-                sample: sample.to_string(),
+                sample,
                 error: e.to_string(),
             }),
         }
@@ -453,7 +465,7 @@ impl Model {
             Ok(s) => s,
             Err(e) => return fail(e.to_string()),
         };
-        let mut r = self.assemble(sample, &a_kept, &sol, l_cm);
+        let mut r = self.assemble(sample.to_string(), &a_kept, &sol, l_cm);
         r.solver = std::borrow::Cow::Borrowed(prepared.method().name());
         let peak = a.iter().fold(f64::NEG_INFINITY, |m, &v| m.max(v));
         if peak > HIGH_ABSORBANCE_AU && !r.flags.iter().any(|f| f == FLAG_HIGH_ABSORBANCE) {
@@ -507,7 +519,7 @@ impl Model {
 
     fn assemble(
         &self,
-        sample: &str,
+        sample: String,
         a: &[f64],
         sol: &crate::solver::Solution,
         l_cm: f64,
@@ -565,7 +577,7 @@ impl Model {
         }
         let (lo, hi) = d.range_nm();
         SampleResult {
-            sample: sample.to_string(),
+            sample,
             components,
             residual_rms: (sol.rss / n as f64).sqrt(),
             r_squared,
@@ -793,7 +805,7 @@ impl Model {
                         let line_no = chunk.lines[i].line_no;
                         match header.parse_row(line, line_no, read_options, &mut row, &mut scratch)
                         {
-                            Ok(id) => self.fit_one(&id, &row, pathlength_cm, &mut ws),
+                            Ok(id) => self.fit_named(id, &row, pathlength_cm, &mut ws),
                             Err((sample, error)) => Outcome::Failed(FailedSample {
                                 sample,
                                 error: error.to_string(),

@@ -191,7 +191,7 @@ fn read_input(
 pub fn run<R, F, S>(spec: &RunSpec, models: &Models, render: F, mut sink: S) -> std::io::Result<()>
 where
     R: Send,
-    F: Fn(&PlateResult) -> R + Sync,
+    F: Fn(&mut PlateResult) -> R + Sync,
     S: FnMut(Event<R>) -> std::io::Result<()> + Send,
 {
     let window = WINDOW_PER_THREAD * rayon::current_num_threads().max(1);
@@ -210,7 +210,7 @@ where
             let input_name = &shown_inputs[input];
             let name = raw.name.clone();
             let entries = spec.map.and_then(|m| m.for_plate(&name));
-            let result = match raw.parse(spec.quantity) {
+            let mut result = match raw.parse(spec.quantity) {
                 Ok(spectra) => {
                     let mut r =
                         process_plate(spectra, input_name, entries.as_ref(), models, spec.options);
@@ -226,7 +226,7 @@ where
                 }
                 Err(e) => PlateResult::failed(&name, input_name, e.to_string()),
             };
-            let r = render(&result);
+            let r = render(&mut result);
             (Box::new(result), r)
         };
         let mut seen: HashMap<String, String> = HashMap::new();

@@ -254,7 +254,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     };
     let models = Models::new(&refs, options.fit, checks);
     let with_curves = args.with_curves;
-    let render = |p: &PlateResult| render_plate_with(p, with_curves);
+    let render = |p: &mut PlateResult| render_plate_with(p, with_curves);
     let result = run::run(&spec, &models, render, |event| {
         match event {
             Event::Plate(p, rendered) => {

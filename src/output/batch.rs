@@ -122,12 +122,6 @@ fn well_rows(out: &mut String, plate: &str, w: &WellResult) {
 /// Render one plate's rows and JSON object (with the wells' fit curves
 /// where they were kept).
 pub fn render_plate(p: &PlateResult) -> RenderedPlate {
-    render_plate_with(p, true)
-}
-
-/// Render one plate; `with_curves` false leaves the wells' fit curves (kept
-/// for the report) out of the JSON.
-pub fn render_plate_with(p: &PlateResult, with_curves: bool) -> RenderedPlate {
     let mut wells_csv = String::with_capacity(p.wells.len() * 3 * 320);
     if let Some(e) = &p.error {
         text(&mut wells_csv, &p.plate);
@@ -167,17 +161,6 @@ pub fn render_plate_with(p: &PlateResult, with_curves: bool) -> RenderedPlate {
             samples_csv.push('\n');
         }
     }
-    let stripped;
-    let p = if !with_curves && p.wells.iter().any(|w| w.curves.is_some()) {
-        let mut q = p.clone();
-        for w in &mut q.wells {
-            w.curves = None;
-        }
-        stripped = q;
-        &stripped
-    } else {
-        p
-    };
     let json = serde_json::to_string(p).unwrap_or_else(|e| {
         format!(
             "{{\"plate\":{},\"error\":{}}}",
@@ -190,6 +173,21 @@ pub fn render_plate_with(p: &PlateResult, with_curves: bool) -> RenderedPlate {
         samples_csv,
         json,
     }
+}
+
+/// Render one plate; `with_curves` false leaves the wells' fit curves (kept
+/// for the report) out of the JSON. They are taken out while the plate is
+/// rendered and put back, not copied.
+pub fn render_plate_with(p: &mut PlateResult, with_curves: bool) -> RenderedPlate {
+    if with_curves || p.wells.iter().all(|w| w.curves.is_none()) {
+        return render_plate(p);
+    }
+    let kept: Vec<_> = p.wells.iter_mut().map(|w| w.curves.take()).collect();
+    let r = render_plate(p);
+    for (w, c) in p.wells.iter_mut().zip(kept) {
+        w.curves = c;
+    }
+    r
 }
 
 #[cfg(test)]

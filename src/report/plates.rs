@@ -537,19 +537,19 @@ impl PlateReport {
             }
         }
         // Which wells get a figure: in order, while the budget lasts.
-        let mut drawn: Vec<&str> = Vec::new();
+        let mut drawn: std::collections::HashSet<&str> = std::collections::HashSet::new();
         for w in &p.wells {
             if w.curves.is_some() {
                 self.with_curves = true;
                 if self.figures_left > 0 {
                     self.figures_left -= 1;
-                    drawn.push(&w.well);
+                    drawn.insert(&w.well);
                 } else {
                     self.wells_without_figure += 1;
                 }
             }
         }
-        let linked = |well: &str| drawn.contains(&well);
+        let linked = |well: &str| drawn.contains(well);
         h.push_str(&plate_figure(p, k, &self.components, &codes, &linked));
         h.push('\n');
         if !codes.is_empty() {
@@ -567,7 +567,7 @@ impl PlateReport {
         }
         replicate_table(h, p, &self.components);
         well_table(h, p, k, &self.components, &linked);
-        for w in p.wells.iter().filter(|w| drawn.contains(&w.well.as_str())) {
+        for w in p.wells.iter().filter(|w| drawn.contains(w.well.as_str())) {
             let (Some(c), Some(fit)) = (&w.curves, &w.fit) else {
                 continue;
             };
