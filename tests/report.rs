@@ -234,6 +234,19 @@ fn fit_writes_report_plot_and_curves_and_rejects_bad_requests() {
     assert_eq!(code, 1);
     assert!(stderr.contains(".svg or .png"), "{stderr}");
     assert!(!dir.join("x.jpg").exists());
+    // Nothing fitted: the message says why, with the sample's own error.
+    std::fs::write(
+        dir.join("bad.csv"),
+        "sample,400,410,420,430,440,450\ns1,0.1,abc,0.1,0.1,0.1,0.1\n",
+    )
+    .unwrap();
+    let (code, _, stderr) = run(
+        &dir,
+        &["fit", "bad.csv", "--library", &lib, "--plot", "b.png"],
+    );
+    assert_eq!(code, 1);
+    assert!(stderr.contains("line 2, column 3 ('abc')"), "{stderr}");
+    assert!(!dir.join("b.png").exists());
     let (code, _, stderr) = run(&dir, &["fit", &input, "--library", &lib, "--with-curves"]);
     assert_eq!(code, 1);
     assert!(stderr.contains("--format json"), "{stderr}");

@@ -290,22 +290,27 @@ fn run_with_curves(
     doc.run = Some(run_info(args, shown, library));
     doc.curves = Some(curves);
     if let Some(path) = &args.plot {
-        let curve =
-            match &args.plot_sample {
-                Some(name) => doc
-                    .curves
-                    .iter()
-                    .flatten()
-                    .find(|c| &c.sample == name)
-                    .ok_or_else(|| {
-                        Failure::new(format!(
-                            "--plot-sample '{name}': no fitted sample of that name in {shown}"
-                        ))
-                    })?,
-                None => doc.curves.iter().flatten().next().ok_or_else(|| {
-                    Failure::new(format!("--plot: no sample of {shown} was fitted"))
+        let curve = match &args.plot_sample {
+            Some(name) => doc
+                .curves
+                .iter()
+                .flatten()
+                .find(|c| &c.sample == name)
+                .ok_or_else(|| {
+                    Failure::new(format!(
+                        "--plot-sample '{name}': no fitted sample of that name in {shown}"
+                    ))
                 })?,
-            };
+            None => doc.curves.iter().flatten().next().ok_or_else(|| {
+                // Say why, with the first sample's own error.
+                let why = doc
+                    .failed
+                    .first()
+                    .map(|f| format!(" ({}: {})", f.sample, f.error))
+                    .unwrap_or_default();
+                Failure::new(format!("--plot: no sample of {shown} was fitted{why}"))
+            })?,
+        };
         let svg = crate::report::sample_figure(curve);
         if plot_kind(path) == Some(PlotKind::Png) {
             let png = crate::report::png::render(&svg, PNG_SCALE).map_err(Failure::new)?;
