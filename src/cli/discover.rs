@@ -107,8 +107,8 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     crate::atomic::write_with(&args.out, false, |w| {
         writeln!(w, "wavelength_nm,epsilon")?;
         for (x, e) in found.wavelengths_nm.iter().zip(&found.epsilon_l_per_mol_cm) {
-            let mut a = ryu::Buffer::new();
-            let mut b = ryu::Buffer::new();
+            let mut a = zmij::Buffer::new();
+            let mut b = zmij::Buffer::new();
             writeln!(w, "{},{}", a.format(*x), b.format(*e))?;
         }
         Ok(())

@@ -50,6 +50,7 @@ pub mod stats;
 use crate::error::{Error, Result};
 use crate::reference::ReferenceSet;
 use serde::{Deserialize, Serialize};
+use std::borrow::Cow;
 
 /// Default false-alarm rate of the unexplained-absorbance flag.
 pub const DEFAULT_ALARM_RATE: f64 = 0.01;
@@ -191,7 +192,7 @@ pub struct Residual {
     /// Noise σ used, AU.
     pub noise_au: f64,
     /// `estimated` (from the residual's pseudo-residuals) or `given` (`--noise-au`).
-    pub noise_source: String,
+    pub noise_source: Cow<'static, str>,
     /// RSS / (ν·σ²); about 1 when the residual is noise.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub reduced_chi_squared: Option<f64>,
@@ -299,42 +300,91 @@ pub fn noise_au_with(wavelengths_nm: &[f64], r: &[f64], uniform: bool) -> Option
     if n < 3 {
         return None;
     }
-    let mut bits: Vec<u64> = if uniform {
-        let even = 1.0 / 1.5f64.sqrt();
-        r[..n]
-            .windows(3)
-            .map(|t| ((0.5 * (t[0] + t[2]) - t[1]) * even).abs().to_bits())
-            .collect()
-    } else {
-        pseudo_residuals(wavelengths_nm, r)
-            .iter()
-            .map(|v| v.abs().to_bits())
-            .collect()
-    };
-    let mid = bits.len() / 2;
-    let (_, med, _) = bits.select_nth_unstable(mid);
-    Some(MAD_TO_SIGMA * f64::from_bits(*med))
+    thread_local! {
+        // One buffer per thread: a fit examines every sample, and a fresh
+        // vector per sample costs as much as the selection.
+        static BITS: std::cell::RefCell<Vec<u64>> = const { std::cell::RefCell::new(Vec::new()) };
+    }
+    BITS.with_borrow_mut(|bits| {
+        bits.clear();
+        if uniform {
+            let even = 1.0 / 1.5f64.sqrt();
+            bits.extend(
+                r[..n]
+                    .windows(3)
+                    .map(|t| ((0.5 * (t[0] + t[2]) - t[1]) * even).abs().to_bits()),
+            );
+        } else {
+            bits.extend(
+                pseudo_residuals(wavelengths_nm, r)
+                    .iter()
+                    .map(|v| v.abs().to_bits()),
+            );
+        }
+        let mid = bits.len() / 2;
+        let (_, med, _) = bits.select_nth_unstable(mid);
+        Some(MAD_TO_SIGMA * f64::from_bits(*med))
+    })
 }
 
 /// Durbin–Watson statistic Σ(rᵢ − rᵢ₋₁)² / Σrᵢ²; `None` for a zero residual.
 pub fn durbin_watson(r: &[f64]) -> Option<f64> {
-    let ss: f64 = r.iter().map(|v| v * v).sum();
-    if !(ss > 0.0 && ss.is_finite()) || r.len() < 2 {
-        return None;
+    let (ss, num) = square_sums(r);
+    durbin_watson_of(ss, num, r.len())
+}
+
+/// [`durbin_watson`] from the sums of [`square_sums`] over `n` points.
+fn durbin_watson_of(ss: f64, num: f64, n: usize) -> Option<f64> {
+    (ss > 0.0 && ss.is_finite() && n >= 2).then(|| num / ss)
+}
+
+/// Σrᵢ² and Σ(rᵢ − rᵢ₋₁)², each kept in four partial sums taken in turn, so
+/// that consecutive additions do not wait for each other (one running sum
+/// makes the pass as slow as the adder's latency). Fixed order: the same
+/// bits on every run and thread count.
+pub fn square_sums(r: &[f64]) -> (f64, f64) {
+    let mut ss = [0.0f64; 4];
+    let mut dd = [0.0f64; 4];
+    let sq = r.chunks_exact(4);
+    let tail = sq.remainder();
+    for c in sq {
+        for l in 0..4 {
+            ss[l] += c[l] * c[l];
+        }
     }
-    let num: f64 = r.windows(2).map(|p| (p[1] - p[0]).powi(2)).sum();
-    Some(num / ss)
+    let mut ss_sum = (ss[0] + ss[1]) + (ss[2] + ss[3]);
+    for v in tail {
+        ss_sum += v * v;
+    }
+    if r.len() < 2 {
+        return (ss_sum, 0.0);
+    }
+    let (later, earlier) = (&r[1..], &r[..r.len() - 1]);
+    let pairs = later.chunks_exact(4).zip(earlier.chunks_exact(4));
+    for (a, b) in pairs {
+        for l in 0..4 {
+            let d = a[l] - b[l];
+            dd[l] += d * d;
+        }
+    }
+    let done = later.len() / 4 * 4;
+    let mut dd_sum = (dd[0] + dd[1]) + (dd[2] + dd[3]);
+    for (a, b) in later[done..].iter().zip(&earlier[done..]) {
+        dd_sum += (a - b) * (a - b);
+    }
+    (ss_sum, dd_sum)
 }
 
 /// Wald–Wolfowitz runs test for too few runs of residual signs.
 pub fn runs_test(r: &[f64]) -> Option<RunsTest> {
     // Signs of a noisy residual are random, so count without branches; exact
     // zeros (no sign) are rare and take the filtered path.
-    let (n1, n2, runs) = if r.contains(&0.0) {
-        let kept: Vec<f64> = r.iter().copied().filter(|v| *v != 0.0).collect();
-        sign_runs(&kept)
-    } else {
-        sign_runs(r)
+    let (n1, n2, runs) = match sign_runs(r) {
+        Some(counts) => counts,
+        None => {
+            let kept: Vec<f64> = r.iter().copied().filter(|v| *v != 0.0).collect();
+            sign_runs(&kept).unwrap_or((0.0, 0.0, 0))
+        }
     };
     if n1 < 1.0 || n2 < 1.0 {
         return None;
@@ -353,20 +403,24 @@ pub fn runs_test(r: &[f64]) -> Option<RunsTest> {
     })
 }
 
-/// (positive count, negative count, runs) of a residual without zeros.
-fn sign_runs(r: &[f64]) -> (f64, f64, usize) {
+/// (positive count, negative count, runs) of a residual; `None` when it
+/// holds exact zeros (no sign), which the caller leaves out first. One pass
+/// that counts the zeros as it goes.
+fn sign_runs(r: &[f64]) -> Option<(f64, f64, usize)> {
     let Some(first) = r.first() else {
-        return (0.0, 0.0, 0);
+        return Some((0.0, 0.0, 0));
     };
     let mut prev = usize::from(*first > 0.0);
     let (mut pos, mut changes) = (prev, 0usize);
+    let mut zeros = usize::from(*first == 0.0);
     for v in &r[1..] {
         let s = usize::from(*v > 0.0);
+        zeros += usize::from(*v == 0.0);
         pos += s;
         changes += s ^ prev;
         prev = s;
     }
-    (pos as f64, (r.len() - pos) as f64, changes + 1)
+    (zeros == 0).then(|| (pos as f64, (r.len() - pos) as f64, changes + 1))
 }
 
 /// The pieces of the Durbin–Watson moments that depend only on the design:
@@ -511,7 +565,7 @@ pub fn examine(view: View<'_>, a: &[f64], x: &[f64], opts: &ResidualOptions) -> 
         .map(|(j, v)| j >= view.n_components || *v > 0.0)
         .collect();
     let n_free = passive.iter().filter(|b| **b).count();
-    let rss: f64 = r.iter().map(|v| v * v).sum();
+    let (rss, diff_ss) = square_sums(&r);
     let (noise, source) = match opts.noise_au {
         Some(s) => (Some(s), "given"),
         None => (
@@ -527,7 +581,7 @@ pub fn examine(view: View<'_>, a: &[f64], x: &[f64], opts: &ResidualOptions) -> 
         (Some(_), Some(c)) => Some(stats::chi_squared_sf(c, nu as f64)),
         _ => None,
     };
-    let d = durbin_watson(&r);
+    let d = durbin_watson_of(rss, diff_ss, n);
     let moments = view.moments.durbin_watson(&passive);
     let d_p = match (d, moments) {
         (Some(d), Some((mean, var, _))) => stats::beta_cdf_matched(d, 0.0, 4.0, mean, var),
@@ -541,7 +595,7 @@ pub fn examine(view: View<'_>, a: &[f64], x: &[f64], opts: &ResidualOptions) -> 
     };
     let mut out = Residual {
         noise_au: sigma,
-        noise_source: source.to_string(),
+        noise_source: Cow::Borrowed(source),
         reduced_chi_squared: reduced,
         chi_squared_p_value: chi_p,
         durbin_watson: d,
@@ -699,6 +753,22 @@ mod tests {
 
     fn grid(n: usize) -> Vec<f64> {
         (0..n).map(|i| 350.0 + i as f64).collect()
+    }
+
+    #[test]
+    fn square_sums_match_the_plain_sums() {
+        // Four partial sums change only the rounding, at every length
+        // (remainders of 0–3 after the groups of four).
+        for n in [0usize, 1, 2, 3, 4, 5, 7, 8, 9, 401] {
+            let r: Vec<f64> = (0..n)
+                .map(|i| ((i * 37 % 11) as f64 - 5.0) * 1e-3)
+                .collect();
+            let ss: f64 = r.iter().map(|v| v * v).sum();
+            let dd: f64 = r.windows(2).map(|p| (p[1] - p[0]).powi(2)).sum();
+            let (got_ss, got_dd) = square_sums(&r);
+            assert!((got_ss - ss).abs() <= 1e-14 * ss.max(1e-300), "{n}");
+            assert!((got_dd - dd).abs() <= 1e-14 * dd.max(1e-300), "{n}");
+        }
     }
 
     #[test]

@@ -122,8 +122,8 @@ pub fn csv_field(s: &str) -> std::borrow::Cow<'_, str> {
 /// A finite number in shortest round-trip form (nothing for NaN/inf).
 pub(crate) fn num(out: &mut String, v: f64) {
     if v.is_finite() {
-        let mut b = ryu::Buffer::new();
-        out.push_str(b.format(v));
+        let mut b = zmij::Buffer::new();
+        out.push_str(b.format_finite(v));
     }
 }
 

@@ -7,14 +7,7 @@ use std::io::{self, Write};
 /// Number of residual-check columns at the end of [`super::CSV_HEADER`].
 pub const CSV_EXTRA_COLUMNS: usize = 12;
 
-fn num(out: &mut String, v: Option<f64>) {
-    if let Some(v) = v
-        && v.is_finite()
-    {
-        let mut b = ryu::Buffer::new();
-        out.push_str(b.format(v));
-    }
-}
+use super::opt as num;
 
 /// Append the extra columns of one fitted sample, each preceded by a comma.
 pub fn csv_extra(s: &SampleResult, out: &mut String) {
