@@ -166,44 +166,44 @@ pub(crate) fn interleave(columns: &[f64], n: usize, p: usize) -> Vec<[f64; 8]> {
 
 /// r = Eᵀa from the row-major groups of [`interleave`]: one pass over the
 /// spectrum per eight columns, each a[i] broadcast against eight column
-/// values (two accumulator sets for even and odd points hide the add
-/// latency); returns aᵀa. Compiled for AVX2 with FMA, AVX2 and the baseline,
-/// chosen at run time. The summation order is fixed by the code; the FMA
-/// version rounds once per multiply-add, so its last bits can differ from a
-/// CPU without FMA. On one machine the version is fixed, so results never
-/// depend on the thread count.
+/// values (four accumulator sets, for the points in turn, so that enough
+/// multiply-adds are in flight to cover their latency: with two sets the
+/// pass waited on the adder); returns aᵀa. Compiled for AVX2 with FMA, AVX2
+/// and the baseline, chosen at run time. The summation order is fixed by the
+/// code; the FMA version rounds once per multiply-add, so its last bits can
+/// differ from a CPU without FMA. On one machine the version is fixed, so
+/// results never depend on the thread count.
 #[multiversion::multiversion(targets("x86_64+avx2+fma", "x86_64+avx2"))]
 pub(crate) fn project(rows8: &[[f64; 8]], n: usize, a: &[f64], r: &mut [f64]) -> f64 {
     let p = r.len();
     let a = &a[..n];
     for (g, group) in rows8.chunks_exact(n).enumerate() {
-        let mut even = [0.0f64; 8];
-        let mut odd = [0.0f64; 8];
-        let pairs = group.chunks_exact(2).zip(a.chunks_exact(2));
+        let mut acc = [[0.0f64; 8]; 4];
+        let quads = group.chunks_exact(4).zip(a.chunks_exact(4));
         // Known when this version is compiled: the branch not taken is removed.
         let fma = multiversion::target::selected_target!()
             .contains(multiversion::target_features::x86_64::FMA);
-        for (rows, x) in pairs {
-            for l in 0..8 {
-                if fma {
-                    even[l] = rows[0][l].mul_add(x[0], even[l]);
-                    odd[l] = rows[1][l].mul_add(x[1], odd[l]);
-                } else {
-                    even[l] += rows[0][l] * x[0];
-                    odd[l] += rows[1][l] * x[1];
+        for (rows, x) in quads {
+            for (k, sum) in acc.iter_mut().enumerate() {
+                for l in 0..8 {
+                    if fma {
+                        sum[l] = rows[k][l].mul_add(x[k], sum[l]);
+                    } else {
+                        sum[l] += rows[k][l] * x[k];
+                    }
                 }
             }
         }
-        if n % 2 == 1 {
-            let x = a[n - 1];
+        let done = n / 4 * 4;
+        for (k, (row, x)) in group[done..].iter().zip(&a[done..]).enumerate() {
             for l in 0..8 {
-                even[l] += group[n - 1][l] * x;
+                acc[k][l] += row[l] * x;
             }
         }
         for l in 0..8 {
             let j = g * 8 + l;
             if j < p {
-                r[j] = even[l] + odd[l];
+                r[j] = (acc[0][l] + acc[1][l]) + (acc[2][l] + acc[3][l]);
             }
         }
     }
