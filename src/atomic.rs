@@ -46,6 +46,42 @@ pub fn exit_removing_temporaries(code: i32) -> ! {
     std::process::exit(code)
 }
 
+/// Where a write to `target` goes.
+enum Placement {
+    /// An existing device, pipe or socket (`/dev/null`, `/dev/stdout`, a
+    /// FIFO): written straight to. Renaming a file over it would replace the
+    /// device node itself (as root, `/dev/null` would become a plain file).
+    Direct,
+    /// A regular file, new or existing, at this path (a symbolic link's
+    /// target, so the link stays a link): written beside it, then renamed.
+    Replace(PathBuf),
+}
+
+fn placement(target: &Path) -> Placement {
+    match fs::metadata(target) {
+        Ok(m) if !m.is_file() && !m.is_dir() => Placement::Direct,
+        Ok(m) if m.is_file() => {
+            let linked = fs::symlink_metadata(target).is_ok_and(|l| l.file_type().is_symlink());
+            match linked.then(|| fs::canonicalize(target)) {
+                Some(Ok(real)) => Placement::Replace(real),
+                _ => Placement::Replace(target.to_path_buf()),
+            }
+        }
+        _ => Placement::Replace(target.to_path_buf()),
+    }
+}
+
+/// Write to a device or pipe in place (no temporary, no rename, no sync).
+fn write_direct<F>(target: &Path, fill: F) -> std::io::Result<()>
+where
+    F: FnOnce(&mut (dyn Write + Send)) -> std::io::Result<()>,
+{
+    let file = fs::OpenOptions::new().write(true).open(target)?;
+    let mut w = BufWriter::with_capacity(1 << 16, file);
+    fill(&mut w)?;
+    w.flush()
+}
+
 /// A temporary name beside `target`, unique to this process and call.
 pub fn temp_path(target: &Path) -> PathBuf {
     let n = COUNTER.fetch_add(1, Ordering::Relaxed);
@@ -65,6 +101,16 @@ where
     F: FnOnce(&mut (dyn Write + Send)) -> std::io::Result<()>,
 {
     let shown = target.display().to_string();
+    let target = match placement(target) {
+        Placement::Direct if no_clobber => {
+            return Err(Error::Invalid(format!(
+                "{shown} already exists: choose another name or pass --replace"
+            )));
+        }
+        Placement::Direct => return write_direct(target, fill).map_err(|e| Error::io(shown, e)),
+        Placement::Replace(path) => path,
+    };
+    let target = target.as_path();
     let tmp = temp_path(target);
     open_temp(&tmp);
     let result = (|| -> std::io::Result<()> {
@@ -112,12 +158,29 @@ pub struct AtomicFile {
     target: PathBuf,
     tmp: PathBuf,
     writer: Option<BufWriter<File>>,
+    /// Writing straight to a device or pipe: `tmp` is the target itself.
+    direct: bool,
 }
 
 impl AtomicFile {
     /// Create the temporary file for `target`.
     pub fn create(target: &Path) -> Result<Self> {
-        let tmp = temp_path(target);
+        let real = match placement(target) {
+            Placement::Direct => {
+                let file = fs::OpenOptions::new()
+                    .write(true)
+                    .open(target)
+                    .map_err(|e| Error::io(target.display().to_string(), e))?;
+                return Ok(AtomicFile {
+                    target: target.to_path_buf(),
+                    tmp: target.to_path_buf(),
+                    writer: Some(BufWriter::with_capacity(1 << 16, file)),
+                    direct: true,
+                });
+            }
+            Placement::Replace(path) => path,
+        };
+        let tmp = temp_path(&real);
         open_temp(&tmp);
         let file = match File::create(&tmp) {
             Ok(f) => f,
@@ -127,9 +190,10 @@ impl AtomicFile {
             }
         };
         Ok(AtomicFile {
-            target: target.to_path_buf(),
+            target: real,
             tmp,
             writer: Some(BufWriter::with_capacity(1 << 16, file)),
+            direct: false,
         })
     }
 
@@ -147,6 +211,9 @@ impl AtomicFile {
                 .take()
                 .ok_or_else(|| std::io::Error::other("file already committed"))?;
             let file = w.into_inner().map_err(|e| e.into_error())?;
+            if self.direct {
+                return Ok(());
+            }
             file.sync_all()?;
             fs::rename(&self.tmp, &self.target)
         })();
@@ -182,6 +249,9 @@ impl Write for AtomicFile {
 
 impl Drop for AtomicFile {
     fn drop(&mut self) {
+        if self.direct {
+            return;
+        }
         if self.writer.take().is_some() || self.tmp.exists() {
             let _ = fs::remove_file(&self.tmp);
         }
@@ -214,6 +284,54 @@ mod tests {
         let e = write_with(&target, true, |w| w.write_all(b"new")).unwrap_err();
         assert!(e.to_string().contains("already exists"));
         assert_eq!(fs::read(&target).unwrap(), b"old");
+        fs::remove_dir_all(&dir).unwrap();
+    }
+
+    #[cfg(unix)]
+    #[test]
+    fn devices_and_pipes_are_written_in_place_and_links_stay_links() {
+        use std::os::unix::fs::FileTypeExt;
+        let dir = std::env::temp_dir().join(format!("unblend-atomic-d-{}", std::process::id()));
+        fs::create_dir_all(&dir).unwrap();
+        // A named pipe stands in for /dev/null or /dev/stdout: renaming a
+        // temporary over it would replace the node with a plain file.
+        let fifo = dir.join("pipe");
+        let made = std::process::Command::new("mkfifo").arg(&fifo).status();
+        if made.is_ok_and(|s| s.success()) {
+            for streamed in [false, true] {
+                let path = fifo.clone();
+                let reader = std::thread::spawn(move || fs::read(path).unwrap());
+                if streamed {
+                    let mut f = AtomicFile::create(&fifo).unwrap();
+                    f.write_all(b"streamed").unwrap();
+                    f.commit().unwrap();
+                } else {
+                    write_bytes(&fifo, b"whole").unwrap();
+                }
+                let got = reader.join().unwrap();
+                assert_eq!(
+                    got,
+                    if streamed {
+                        &b"streamed"[..]
+                    } else {
+                        &b"whole"[..]
+                    }
+                );
+                assert!(fs::symlink_metadata(&fifo).unwrap().file_type().is_fifo());
+            }
+        }
+        let real = dir.join("real.csv");
+        let link = dir.join("link.csv");
+        write_bytes(&real, b"old").unwrap();
+        std::os::unix::fs::symlink(&real, &link).unwrap();
+        write_bytes(&link, b"new").unwrap();
+        assert!(
+            fs::symlink_metadata(&link)
+                .unwrap()
+                .file_type()
+                .is_symlink()
+        );
+        assert_eq!(fs::read(&real).unwrap(), b"new");
         fs::remove_dir_all(&dir).unwrap();
     }
 
