@@ -741,7 +741,7 @@ fn digit_run(bytes: &[u8], mut k: usize, mut mant: u64) -> (usize, u64) {
     (k, mant)
 }
 
-/// The largest integer below which every integer converts to f64 exactly (2⁵³).
+/// Every integer up to 2⁵³ converts to f64 exactly; above it, not every one.
 const MAX_EXACT: u64 = 1 << 53;
 
 /// Powers of ten as integers, for shifting the mantissa by a digit count.

@@ -1,13 +1,12 @@
 //! Output of the residual checks: extra tidy-CSV columns and the notes
 //! printed under the terminal table.
 
+use super::opt as num;
 use crate::fit::{FitReport, Outcome, SampleResult};
 use std::io::{self, Write};
 
 /// Number of residual-check columns at the end of [`super::CSV_HEADER`].
 pub const CSV_EXTRA_COLUMNS: usize = 12;
-
-use super::opt as num;
 
 /// Append the extra columns of one fitted sample, each preceded by a comma.
 pub fn csv_extra(s: &SampleResult, out: &mut String) {

@@ -166,9 +166,10 @@ pub(crate) fn interleave(columns: &[f64], n: usize, p: usize) -> Vec<[f64; 8]> {
 
 /// r = Eᵀa from the row-major groups of [`interleave`]: one pass over the
 /// spectrum per eight columns, each a[i] broadcast against eight column
-/// values (four accumulator sets, for the points in turn, so that enough
-/// multiply-adds are in flight to cover their latency: with two sets the
-/// pass waited on the adder); returns aᵀa. Compiled for AVX2 with FMA, AVX2
+/// values (four accumulator sets, for the points in turn: eight independent
+/// multiply-add chains, enough to cover the adder's latency on two FMA
+/// units; against two sets the gain was within this machine's timing
+/// noise); returns aᵀa. Compiled for AVX2 with FMA, AVX2
 /// and the baseline, chosen at run time. The summation order is fixed by the
 /// code; the FMA version rounds once per multiply-add, so its last bits can
 /// differ from a CPU without FMA. On one machine the version is fixed, so
