@@ -119,7 +119,12 @@ proptest! {
                 let g: f64 = col.iter().zip(&e).map(|(c, r)| c * r).sum();
                 let tol = KKT_TOL * cnorm * anorm;
                 if j < k {
-                    prop_assert!(sol.x[j] >= 0.0, "{method:?}: x[{j}] = {}", sol.x[j]);
+                    // Not even -0: a concentration at its bound must print as 0.
+                    prop_assert!(
+                        sol.x[j] >= 0.0 && !sol.x[j].is_sign_negative(),
+                        "{method:?}: x[{j}] = {}",
+                        sol.x[j]
+                    );
                     if sol.x[j] > 0.0 {
                         prop_assert!(g.abs() <= tol, "{method:?}: passive gradient {g} > {tol}");
                     } else {

@@ -254,8 +254,15 @@ fn solve_mask(prep: &Prepared, ws: &mut Workspace, mask: u64) -> Result<()> {
     let p = prep.p;
     let out = match ws.factor(prep, mask) {
         Ok(f) => {
-            for (zi, row) in z.iter_mut().zip(f.inv.chunks_exact(p)) {
-                *zi = row.iter().zip(&r).map(|(g, v)| g * v).sum();
+            // Variables outside the passive set sit at their bound: exactly
+            // +0 (their rows of the inverse are zero, and a sum of zero
+            // products can come out as -0, which would print as "-0.000").
+            for (j, (zi, row)) in z.iter_mut().zip(f.inv.chunks_exact(p)).enumerate() {
+                *zi = if mask & (1 << j) != 0 {
+                    row.iter().zip(&r).map(|(g, v)| g * v).sum()
+                } else {
+                    0.0
+                };
             }
             Ok(())
         }
