@@ -501,6 +501,12 @@ impl Model {
             return;
         };
         let res = diagnostics::examine(view, a, &sol.x, opts);
+        if let Some(f) = res.std_error_factor {
+            for c in &mut r.components {
+                c.std_error_mol_per_l = c.std_error_mol_per_l.map(|v| v * f);
+                c.std_error_mg_per_l = c.std_error_mg_per_l.map(|v| v * f);
+            }
+        }
         if res.flagged() {
             r.flags.push(diagnostics::FLAG_UNEXPLAINED.to_string());
             if let Some(s) = &self.screener {

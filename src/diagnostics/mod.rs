@@ -44,6 +44,7 @@
 //! probability α.
 
 pub mod mask;
+pub mod noise;
 pub mod screen;
 pub mod stats;
 
@@ -224,6 +225,23 @@ pub struct Residual {
     /// fit); present when the sample is flagged.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub negative_band: Option<Band>,
+    /// Readings that share noise (instrument smoothing), when the noise is
+    /// correlated between neighbours; absent for white noise.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub noise_span_readings: Option<f64>,
+    /// Correlation between neighbouring readings' noise (moving-average
+    /// model), when correlated.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub lag1_correlation: Option<f64>,
+    /// Readings summed per block for the serial test (correlated noise).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub block_readings: Option<usize>,
+    /// Factor applied to the standard errors for correlated noise, √(f₀/σ̂²).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub std_error_factor: Option<f64>,
+    /// The fit is exact (residual at rounding level): not tested.
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub exact_fit: bool,
 }
 
 impl Residual {
@@ -430,6 +448,11 @@ fn sign_runs(r: &[f64]) -> Option<(f64, f64, usize)> {
 pub struct SerialMoments {
     n: usize,
     p: usize,
+    /// The (column-scaled) design, kept to build the block-summed moments.
+    columns: Vec<f64>,
+    /// The moments of the design summed over blocks of m readings (index m),
+    /// built on first use (correlated noise, see [`noise`]).
+    blocked: Vec<std::sync::OnceLock<Box<SerialMoments>>>,
     gram: Vec<f64>,
     b: Vec<f64>,
     c: Vec<f64>,
@@ -480,6 +503,10 @@ impl SerialMoments {
         let mut m = SerialMoments {
             n,
             p,
+            columns: columns.to_vec(),
+            blocked: (0..=noise::MAX_BLOCK)
+                .map(|_| std::sync::OnceLock::new())
+                .collect(),
             gram,
             b,
             c,
@@ -494,6 +521,19 @@ impl SerialMoments {
         };
         m.all_free = m.compute(&vec![true; p]);
         m
+    }
+
+    /// The moments of this design summed over blocks of `m` readings
+    /// (m ≤ [`noise::MAX_BLOCK`]), built once and shared by the threads.
+    pub fn blocked(&self, m: usize) -> Option<&SerialMoments> {
+        let slot = self.blocked.get(m)?;
+        if m < 2 || self.n / m < 3 {
+            return None;
+        }
+        Some(slot.get_or_init(|| {
+            let cols = noise::block_columns(&self.columns, self.n, self.p, m);
+            Box::new(SerialMoments::new(&cols, self.n / m, self.p))
+        }))
     }
 
     /// Exact mean and variance of d under white noise for the columns in
@@ -555,6 +595,11 @@ pub struct View<'a> {
     pub uniform_step: bool,
 }
 
+/// Below this ratio of residual to signal RMS a fit is exact: what is left
+/// is the rounding of the arithmetic (about 1e-16 relative) or of an export
+/// with at least nine significant digits, not noise, and is not tested.
+pub const EXACT_FIT_RELATIVE: f64 = 1e-9;
+
 /// Test one fitted spectrum `a` with solution `x` (unscaled) against noise.
 pub fn examine(view: View<'_>, a: &[f64], x: &[f64], opts: &ResidualOptions) -> Residual {
     let r = residual(a, view.columns, x);
@@ -566,33 +611,40 @@ pub fn examine(view: View<'_>, a: &[f64], x: &[f64], opts: &ResidualOptions) -> 
         .collect();
     let n_free = passive.iter().filter(|b| **b).count();
     let (rss, diff_ss) = square_sums(&r);
-    let (noise, source) = match opts.noise_au {
-        Some(s) => (Some(s), "given"),
-        None => (
-            noise_au_with(view.wavelengths_nm, &r, view.uniform_step),
-            "estimated",
-        ),
+    let near = noise_au_with(view.wavelengths_nm, &r, view.uniform_step);
+    let model = near.map(|s| noise::estimate(&r, s));
+    let (noise, source) = match (opts.noise_au, model) {
+        (Some(s), _) => (Some(s), "given"),
+        (None, m) => (m.map(|m| m.sigma_au), "estimated"),
     };
     let sigma = noise.unwrap_or(0.0);
+    let correlated = model.is_some_and(|m| m.correlated());
     let nu = n.saturating_sub(n_free);
     let chi2 = (sigma > 0.0 && nu > 0).then(|| rss / (sigma * sigma));
     let reduced = chi2.map(|c| c / nu as f64);
+    // The χ² test needs white noise of the given σ: under correlated noise
+    // RSS/σ² is no longer χ²(ν), so only the serial test decides.
     let chi_p = match (opts.noise_au, chi2) {
-        (Some(_), Some(c)) => Some(stats::chi_squared_sf(c, nu as f64)),
+        (Some(_), Some(c)) if !correlated => Some(stats::chi_squared_sf(c, nu as f64)),
         _ => None,
     };
     let d = durbin_watson_of(rss, diff_ss, n);
     let moments = view.moments.durbin_watson(&passive);
-    let d_p = match (d, moments) {
-        (Some(d), Some((mean, var, _))) => stats::beta_cdf_matched(d, 0.0, 4.0, mean, var),
-        _ => None,
+    let serial = match model.filter(|m| m.correlated()) {
+        Some(m) => blocked_test(view.moments, &r, &passive, m),
+        None => Serial::plain(d, moments),
     };
-    let alarm_p_value = match (d_p, chi_p) {
+    let exact = rss.sqrt() <= EXACT_FIT_RELATIVE * square_sums(a).0.sqrt();
+    let alarm_p_value = match (serial.p_value, chi_p) {
+        _ if exact => None,
         (Some(pd), Some(pc)) => Some(1.0 - (1.0 - pd.min(pc)).powi(2)),
         (Some(pd), None) => Some(pd),
         (None, Some(pc)) => Some(pc),
         (None, None) => None,
     };
+    let factor = model
+        .filter(|m| m.correlated())
+        .and_then(|m| std_error_factor(&r, m, serial.block, n_free, rss));
     let mut out = Residual {
         noise_au: sigma,
         noise_source: Cow::Borrowed(source),
@@ -600,12 +652,19 @@ pub fn examine(view: View<'_>, a: &[f64], x: &[f64], opts: &ResidualOptions) -> 
         chi_squared_p_value: chi_p,
         durbin_watson: d,
         durbin_watson_expected: moments.map(|m| m.0),
-        durbin_watson_p_value: d_p,
+        durbin_watson_p_value: serial.p_value,
         runs: runs_test(&r),
         alarm_rate: opts.alarm_rate,
         alarm_p_value,
         band: None,
         negative_band: None,
+        noise_span_readings: model.filter(|m| m.correlated()).map(|m| m.span_readings),
+        lag1_correlation: model
+            .filter(|m| m.correlated())
+            .map(|m| m.lag1_correlation()),
+        block_readings: (serial.block > 1).then_some(serial.block),
+        std_error_factor: factor,
+        exact_fit: exact,
     };
     if out.flagged() {
         let k = view.n_components.min(x.len());
@@ -615,6 +674,64 @@ pub fn examine(view: View<'_>, a: &[f64], x: &[f64], opts: &ResidualOptions) -> 
         (out.band, out.negative_band) = largest_bands(view.wavelengths_nm, &r, &explained);
     }
     out
+}
+
+/// The serial-correlation test's outcome: its p-value and the block length
+/// it ran on (1: the readings themselves).
+struct Serial {
+    p_value: Option<f64>,
+    block: usize,
+}
+
+impl Serial {
+    /// Durbin–Watson on the readings, with the design's exact moments.
+    fn plain(d: Option<f64>, moments: Option<(f64, f64, usize)>) -> Self {
+        let p_value = match (d, moments) {
+            (Some(d), Some((mean, var, _))) => stats::beta_cdf_matched(d, 0.0, 4.0, mean, var),
+            _ => None,
+        };
+        Serial { p_value, block: 1 }
+    }
+}
+
+/// Durbin–Watson on block sums of the residual (correlated noise, see
+/// [`noise`]), its moments those of the block-summed design with mean and
+/// SD scaled by (1 − ρ_B).
+fn blocked_test(
+    moments: &SerialMoments,
+    r: &[f64],
+    passive: &[bool],
+    model: noise::NoiseEstimate,
+) -> Serial {
+    let m = model.block_readings(r.len());
+    let Some(blocked) = moments.blocked(m) else {
+        return Serial::plain(durbin_watson(r), moments.durbin_watson(passive));
+    };
+    let sums = noise::block_sums(r, m);
+    let shrink = 1.0 - model.block_correlation(m);
+    let p_value = match (durbin_watson(&sums), blocked.durbin_watson(passive)) {
+        (Some(d), Some((mean, var, _))) => {
+            stats::beta_cdf_matched(d, 0.0, 4.0, mean * shrink, var * shrink * shrink)
+        }
+        _ => None,
+    };
+    Serial { p_value, block: m }
+}
+
+/// √(f₀/σ̂²): how much larger the standard errors are under correlated
+/// noise than the solver's white-noise ones (σ̂² = RSS/(n − n_free)).
+fn std_error_factor(
+    r: &[f64],
+    model: noise::NoiseEstimate,
+    block: usize,
+    n_free: usize,
+    rss: f64,
+) -> Option<f64> {
+    let dof = r.len().checked_sub(n_free).filter(|d| *d > 0)?;
+    let white = rss / dof as f64;
+    let m = block.max((noise::BLOCKS_PER_SPAN * model.span_readings).ceil() as usize);
+    let f0 = model.long_run_variance(r, m, n_free)?;
+    (white > 0.0 && f0 > 0.0).then(|| (f0 / white).sqrt())
 }
 
 /// Integration weights (trapezoid) for a grid, nm.
