@@ -100,6 +100,20 @@ pub struct Options {
     pub max_absorbance_au: Option<f64>,
     /// Candidate components tried on flagged samples (`--screen-with`).
     pub candidates: Option<ReferenceSet>,
+    /// How the readings are weighted in the fit.
+    pub weights: Weights,
+}
+
+/// How the readings are weighted in the fit.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum Weights {
+    /// Every reading counts the same (ordinary least squares).
+    None,
+    /// Each spectrum's noise growth with absorbance is estimated
+    /// ([`noise::growth`]); when it grows measurably the spectrum is refitted
+    /// with weights 1/σᵢ² (generalised least squares, Aitken 1935).
+    #[default]
+    Estimated,
 }
 
 impl Default for Options {
@@ -108,6 +122,7 @@ impl Default for Options {
             residual: Some(ResidualOptions::default()),
             max_absorbance_au: Some(DEFAULT_MAX_ABSORBANCE_AU),
             candidates: None,
+            weights: Weights::Estimated,
         }
     }
 }
@@ -119,6 +134,7 @@ impl Options {
             residual: None,
             max_absorbance_au: None,
             candidates: None,
+            weights: Weights::None,
         }
     }
 
@@ -239,6 +255,11 @@ pub struct Residual {
     /// Factor applied to the standard errors for correlated noise, √(f₀/σ̂²).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub std_error_factor: Option<f64>,
+    /// Share of the noise variance at 0 AU that is constant in transmittance
+    /// (σ² ∝ 1 + h·10^(2A), share h/(1 + h)); present when the noise grows
+    /// with absorbance and the fit was weighted.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub noise_transmittance_share: Option<f64>,
     /// The fit is exact (residual at rounding level): not tested.
     #[serde(default, skip_serializing_if = "std::ops::Not::not")]
     pub exact_fit: bool,
@@ -664,6 +685,7 @@ pub fn examine(view: View<'_>, a: &[f64], x: &[f64], opts: &ResidualOptions) -> 
             .map(|m| m.lag1_correlation()),
         block_readings: (serial.block > 1).then_some(serial.block),
         std_error_factor: factor,
+        noise_transmittance_share: None,
         exact_fit: exact,
     };
     if out.flagged() {

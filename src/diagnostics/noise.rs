@@ -193,6 +193,79 @@ pub fn estimate(r: &[f64], near_sigma: f64) -> NoiseEstimate {
     }
 }
 
+/// Fewest readings in each half of the absorbance range for the growth estimate.
+pub const MIN_GROWTH_POINTS: usize = 20;
+
+/// How many standard errors the log variance ratio of the two halves must
+/// exceed before the noise is taken to grow with absorbance (the MAD's σ̂
+/// has a relative SD of about 1.17/√n, Hampel 1974, so ln σ̂² about 2.34/√n).
+pub const GROWTH_SIGNIFICANCE: f64 = 2.0;
+
+/// Growth of the noise with absorbance: σ²(A) ∝ 1 + h·10^(2A), the sum of a
+/// constant term and one constant in transmittance (σ_A = 0.434·σ_T·10^A:
+/// common practice, no source). h (1/AU², per unit 10^(2A)) from the robust
+/// scales of the spacing-1 pseudo-residuals of the readings in the lower
+/// and upper half of the fitted absorbance `fitted`; `None` when the noise
+/// does not grow measurably (or the range is too narrow to tell);
+/// `Some(f64::INFINITY)` when it is all constant in transmittance.
+pub fn growth(r: &[f64], fitted: &[f64]) -> Option<f64> {
+    let n = r.len().min(fitted.len());
+    if n < 2 * MIN_GROWTH_POINTS + 2 {
+        return None;
+    }
+    let inner = &fitted[1..n - 1];
+    let (lo, hi) = inner
+        .iter()
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| (a.min(*v), b.max(*v)));
+    if !(hi - lo > 0.15) {
+        return None;
+    }
+    let mid = 0.5 * (lo + hi);
+    let pseudo = |i: usize| 0.5 * (r[i - 1] + r[i + 1]) - r[i];
+    let half = |upper: bool| {
+        let idx = (1..n - 1).filter(move |&i| (fitted[i] > mid) == upper);
+        let count = idx.clone().count();
+        let t = idx.clone().map(|i| 10f64.powf(2.0 * fitted[i])).sum::<f64>() / count.max(1) as f64;
+        let s = mad_sigma(idx.map(pseudo));
+        (count, t, s)
+    };
+    let (n_lo, t_lo, s_lo) = half(false);
+    let (n_hi, t_hi, s_hi) = half(true);
+    if n_lo < MIN_GROWTH_POINTS || n_hi < MIN_GROWTH_POINTS {
+        return None;
+    }
+    let (s_lo, s_hi) = (s_lo?, s_hi?);
+    if !(s_lo > 0.0) {
+        return None;
+    }
+    let q = (s_hi / s_lo).powi(2);
+    let se = 2.34 * (1.0 / n_lo as f64 + 1.0 / n_hi as f64).sqrt();
+    if !(q.ln() > GROWTH_SIGNIFICANCE * se) {
+        return None;
+    }
+    let denominator = t_hi - q * t_lo;
+    Some(if denominator > 1e-3 * t_hi {
+        (q - 1.0) / denominator
+    } else {
+        f64::INFINITY
+    })
+}
+
+/// Relative noise SD of each reading under growth `h` (see [`growth`]),
+/// √(1 + h·10^(2A)) (or 10^A for h = ∞), scaled to a mean square of 1.
+pub fn relative_sd(fitted: &[f64], h: f64) -> Vec<f64> {
+    let raw: Vec<f64> = fitted
+        .iter()
+        .map(|a| {
+            let t = 10f64.powf(2.0 * a.clamp(-1.0, 6.0));
+            if h.is_finite() { (1.0 + h * t).sqrt() } else { t.sqrt() }
+        })
+        .collect();
+    let ms = raw.iter().map(|v| v * v).sum::<f64>() / raw.len().max(1) as f64;
+    let k = 1.0 / ms.sqrt();
+    raw.into_iter().map(|v| v * k).collect()
+}
+
 /// Sums of `r` over consecutive blocks of `m` readings (the remainder at
 /// the end is left out).
 pub fn block_sums(r: &[f64], m: usize) -> Vec<f64> {

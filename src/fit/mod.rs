@@ -28,6 +28,8 @@ use crate::solver::{Method, Prepared, Status};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
+mod weighted;
+
 /// Spectra solved together in one chunk (warm start runs within a chunk).
 /// Fixed, so results do not depend on the number of threads.
 pub const CHUNK: usize = 256;
@@ -409,6 +411,9 @@ impl Model {
         }
         match self.prepared.solve_here(a, ws) {
             Ok(sol) => {
+                if let Some(out) = self.refit_weighted(&sample, a, sol, pathlength_cm) {
+                    return out;
+                }
                 let mut r = self.assemble(sample, a, sol, pathlength_cm);
                 let view = View {
                     wavelengths_nm: &d.wavelengths_nm,
