@@ -59,3 +59,25 @@ fn explore() {
         }
     }
 }
+
+#[test]
+#[ignore]
+fn debug_ma2() {
+    let sim = simulate(&Scenario {
+        noise: Noise::MovingAverage(2),
+        step_nm: 2.0,
+        n_samples: 3000,
+        seed: 7,
+        unknown: None,
+        spike_au: None,
+    });
+    let report = fit_file_with(&sim.file, &sim.refs, &FitOptions::default(), &checks(0.01)).unwrap();
+    let mut by_block = std::collections::BTreeMap::new();
+    for s in noise_sim::fitted(&report) {
+        let d = s.diagnostics.as_ref().unwrap();
+        let e = by_block.entry(d.block_readings.unwrap_or(1)).or_insert((0, 0));
+        e.0 += 1;
+        e.1 += usize::from(d.flagged());
+    }
+    println!("{by_block:?}");
+}

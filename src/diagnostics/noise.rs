@@ -55,7 +55,7 @@ pub const FAR_SPACING: usize = 6;
 /// taken as correlated (white noise gives 1; its sampling SD at 400
 /// readings is about 0.17, so white noise falls below 0.6 about 1 % of the
 /// time, and is then tested on blocks: still valid, less sensitive).
-pub const WHITE_RATIO: f64 = 0.6;
+pub const WHITE_RATIO: f64 = 0.75;
 
 /// Block length, in spans of correlated readings. At 4 spans the block
 /// sums of a moving average keep a correlation of about 0.04 (corrected).
