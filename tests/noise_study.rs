@@ -71,13 +71,42 @@ fn debug_ma2() {
         unknown: None,
         spike_au: None,
     });
-    let report = fit_file_with(&sim.file, &sim.refs, &FitOptions::default(), &checks(0.01)).unwrap();
+    let report =
+        fit_file_with(&sim.file, &sim.refs, &FitOptions::default(), &checks(0.01)).unwrap();
     let mut by_block = std::collections::BTreeMap::new();
     for s in noise_sim::fitted(&report) {
         let d = s.diagnostics.as_ref().unwrap();
-        let e = by_block.entry(d.block_readings.unwrap_or(1)).or_insert((0, 0));
+        let e = by_block
+            .entry(d.block_readings.unwrap_or(1))
+            .or_insert((0, 0));
         e.0 += 1;
         e.1 += usize::from(d.flagged());
     }
     println!("{by_block:?}");
+}
+
+#[test]
+#[ignore]
+fn explore_spikes() {
+    for spike in [None, Some(0.3)] {
+        let sim = simulate(&Scenario {
+            noise: Noise::White,
+            step_nm: 1.0,
+            n_samples: 1000,
+            seed: 9,
+            unknown: Some(noise_sim::Unknown {
+                peak_au: (0.01, 0.0100001),
+                fwhm_nm: (20.0, 60.0),
+            }),
+            spike_au: spike,
+        });
+        let report =
+            fit_file_with(&sim.file, &sim.refs, &FitOptions::default(), &checks(0.01)).unwrap();
+        let m = measure(&sim, &report, FLAG_UNEXPLAINED);
+        let s = measure(&sim, &report, unblend::fit::FLAG_SPIKE);
+        println!(
+            "spike {spike:?}: band flagged {:.4}, spike flagged {:.4}",
+            m.flagged, s.flagged
+        );
+    }
 }

@@ -216,7 +216,9 @@ pub fn growth(r: &[f64], fitted: &[f64]) -> Option<f64> {
     let inner = &fitted[1..n - 1];
     let (lo, hi) = inner
         .iter()
-        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| (a.min(*v), b.max(*v)));
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
+            (a.min(*v), b.max(*v))
+        });
     if !(hi - lo > 0.15) {
         return None;
     }
@@ -225,7 +227,11 @@ pub fn growth(r: &[f64], fitted: &[f64]) -> Option<f64> {
     let half = |upper: bool| {
         let idx = (1..n - 1).filter(move |&i| (fitted[i] > mid) == upper);
         let count = idx.clone().count();
-        let t = idx.clone().map(|i| 10f64.powf(2.0 * fitted[i])).sum::<f64>() / count.max(1) as f64;
+        let t = idx
+            .clone()
+            .map(|i| 10f64.powf(2.0 * fitted[i]))
+            .sum::<f64>()
+            / count.max(1) as f64;
         let s = mad_sigma(idx.map(pseudo));
         (count, t, s)
     };
@@ -258,7 +264,11 @@ pub fn relative_sd(fitted: &[f64], h: f64) -> Vec<f64> {
         .iter()
         .map(|a| {
             let t = 10f64.powf(2.0 * a.clamp(-1.0, 6.0));
-            if h.is_finite() { (1.0 + h * t).sqrt() } else { t.sqrt() }
+            if h.is_finite() {
+                (1.0 + h * t).sqrt()
+            } else {
+                t.sqrt()
+            }
         })
         .collect();
     let ms = raw.iter().map(|v| v * v).sum::<f64>() / raw.len().max(1) as f64;

@@ -28,7 +28,10 @@ use crate::solver::{Method, Prepared, Status};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
+mod spikes;
 mod weighted;
+
+pub use spikes::FLAG_SPIKE;
 
 /// Spectra solved together in one chunk (warm start runs within a chunk).
 /// Fixed, so results do not depend on the number of threads.
@@ -131,6 +134,9 @@ pub struct SampleResult {
     /// Saturation masking (absent when no point was masked).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub masking: Option<Box<mask::Masking>>,
+    /// Wavelengths of the readings left out as spikes, nm (flag `spike`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub spikes_nm: Option<Vec<f64>>,
     /// Candidate screening (flagged samples, with `--screen-with`).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub screening: Option<Box<diagnostics::screen::Screening>>,
@@ -411,6 +417,9 @@ impl Model {
         }
         match self.prepared.solve_here(a, ws) {
             Ok(sol) => {
+                if let Some(out) = self.refit_without_spikes(&sample, a, sol, pathlength_cm) {
+                    return out;
+                }
                 if let Some(out) = self.refit_weighted(&sample, a, sol, pathlength_cm) {
                     return out;
                 }
@@ -600,6 +609,7 @@ impl Model {
             flags,
             diagnostics: None,
             masking: None,
+            spikes_nm: None,
             screening: None,
         }
     }

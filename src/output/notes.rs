@@ -50,6 +50,14 @@ fn p_text(p: f64) -> String {
 /// One line per remark: unexplained bands, masking, screening results.
 pub fn notes(s: &SampleResult, unit: &super::DisplayUnit) -> Vec<String> {
     let mut out = Vec::new();
+    if let Some(spikes) = &s.spikes_nm {
+        let at: Vec<String> = spikes.iter().map(|w| format!("{w}")).collect();
+        out.push(format!(
+            "{} spike(s) left out of the fit (single readings far outside the noise at {} nm)",
+            spikes.len(),
+            at.join(", ")
+        ));
+    }
     if let Some(m) = &s.masking {
         let spans: Vec<String> = m
             .masked_nm
