@@ -219,7 +219,7 @@ pub fn growth(r: &[f64], fitted: &[f64]) -> Option<f64> {
         .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
             (a.min(*v), b.max(*v))
         });
-    if !(hi - lo > 0.15) {
+    if hi - lo <= 0.15 || hi.is_nan() || lo.is_nan() {
         return None;
     }
     let mid = 0.5 * (lo + hi);
@@ -241,12 +241,12 @@ pub fn growth(r: &[f64], fitted: &[f64]) -> Option<f64> {
         return None;
     }
     let (s_lo, s_hi) = (s_lo?, s_hi?);
-    if !(s_lo > 0.0) {
+    if s_lo <= 0.0 || s_lo.is_nan() {
         return None;
     }
     let q = (s_hi / s_lo).powi(2);
     let se = 2.34 * (1.0 / n_lo as f64 + 1.0 / n_hi as f64).sqrt();
-    if !(q.ln() > GROWTH_SIGNIFICANCE * se) {
+    if q.is_nan() || q.ln() <= GROWTH_SIGNIFICANCE * se {
         return None;
     }
     let denominator = t_hi - q * t_lo;

@@ -45,7 +45,7 @@ pub fn find(r: &[f64], fitted: &[f64]) -> Vec<usize> {
         return Vec::new();
     };
     let limit = SPIKE_SIGMAS * scale;
-    if !(limit > 0.0) || u.iter().all(|v| *v <= limit) {
+    if limit <= 0.0 || limit.is_nan() || u.iter().all(|v| *v <= limit) {
         return Vec::new();
     }
     let profile = noise::growth(r, fitted).map(|h| {
