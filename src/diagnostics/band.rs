@@ -35,7 +35,6 @@ pub struct Band {
     pub signal_fraction: f64,
 }
 
-
 /// Integration weights (trapezoid) for a grid, nm.
 fn weights_nm(w: &[f64]) -> Vec<f64> {
     let n = w.len();
@@ -132,13 +131,7 @@ fn moving_average(r: &[f64], h: usize) -> Vec<f64> {
 }
 
 /// Describe the residual segment of `seg`.
-fn describe_band(
-    w: &[f64],
-    r: &[f64],
-    wt: &[f64],
-    seg: Segment,
-    explained_area: f64,
-) -> Band {
+fn describe_band(w: &[f64], r: &[f64], wt: &[f64], seg: Segment, explained_area: f64) -> Band {
     let n = r.len();
     let Segment {
         sign,
@@ -197,7 +190,6 @@ fn describe_band(
         signal_fraction: if total > 0.0 { area_abs / total } else { 0.0 },
     }
 }
-
 
 #[cfg(test)]
 mod tests {

@@ -56,8 +56,8 @@ use serde::{Deserialize, Serialize};
 use std::borrow::Cow;
 
 pub use band::{BAND_SMOOTH_HALF_WIDTH, Band, largest_bands};
-pub use serial::{RunsTest, SerialMoments, durbin_watson, runs_test, square_sums};
 use serial::durbin_watson_of;
+pub use serial::{RunsTest, SerialMoments, durbin_watson, runs_test, square_sums};
 
 /// Default false-alarm rate of the unexplained-absorbance flag.
 pub const DEFAULT_ALARM_RATE: f64 = 0.01;
@@ -308,7 +308,11 @@ pub fn noise_au_with(wavelengths_nm: &[f64], r: &[f64], uniform: bool) -> Option
     // every sample, and a fresh vector per sample costs as much as the selection.
     if uniform {
         let even = 1.0 / 1.5f64.sqrt();
-        noise::mad_sigma(r[..n].windows(3).map(|t| (0.5 * (t[0] + t[2]) - t[1]) * even))
+        noise::mad_sigma(
+            r[..n]
+                .windows(3)
+                .map(|t| (0.5 * (t[0] + t[2]) - t[1]) * even),
+        )
     } else {
         noise::mad_sigma(pseudo_residuals(wavelengths_nm, r).into_iter())
     }
@@ -480,7 +484,6 @@ mod tests {
         (0..n).map(|i| 350.0 + i as f64).collect()
     }
 
-
     #[test]
     fn fast_noise_path_gives_the_general_answer() {
         // The even-grid pass and the selection on bit patterns must give the
@@ -534,8 +537,4 @@ mod tests {
         let s = noise_au(&w, &r).unwrap();
         assert!((s / 0.001 - 1.0).abs() < 0.12, "{s}");
     }
-
-
-
-
 }

@@ -18,7 +18,6 @@ pub struct RunsTest {
     pub p_value: f64,
 }
 
-
 /// Durbin–Watson statistic Σ(rᵢ − rᵢ₋₁)² / Σrᵢ²; `None` for a zero residual.
 pub fn durbin_watson(r: &[f64]) -> Option<f64> {
     let (ss, num) = square_sums(r);
@@ -253,7 +252,6 @@ impl SerialMoments {
     }
 }
 
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -325,5 +323,4 @@ mod tests {
         let z = runs_test(&[1.0, 2.0, 0.0, -1.0, -1.0, 3.0, -2.0]).unwrap();
         assert_eq!(z, t);
     }
-
 }
