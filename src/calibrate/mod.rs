@@ -44,8 +44,6 @@
 //! aggregation). The highest concentration and blank-subtracted absorbance
 //! actually used become the calibrated range.
 
-pub mod stats;
-
 use crate::error::{Error, Result};
 use crate::input::concentrations::{Role, Standard};
 use crate::input::spectra::SpectraFile;
@@ -53,6 +51,7 @@ use crate::reference::component::{
     Calibration, Component, Conditions, ExcludedStandard, ExcludedWavelengths, LackOfFit, Source,
 };
 use crate::spectrum::Grid;
+use crate::stats;
 use serde::{Deserialize, Serialize};
 use std::collections::{HashMap, HashSet};
 
@@ -247,7 +246,7 @@ impl LineFit {
     pub fn intercept_p_value_against_blank(&self, n_blanks: usize) -> Option<f64> {
         let se = self.intercept_std_error_against_blank(n_blanks)?;
         Some(if se > 0.0 {
-            stats::student_t_two_sided_p(self.intercept / se, self.df() as f64)
+            stats::t_two_sided_p(self.intercept / se, self.df() as f64)
         } else if self.intercept.abs() > 0.0 {
             0.0
         } else {
@@ -403,7 +402,7 @@ fn bends(readings: &[Reading], lv: &[Vec<usize>], j: usize, tolerance: f64) -> O
         return None;
     }
     if let Some(se) = fit.prediction_std_error(x_top, top.len()) {
-        let t = stats::student_t_critical(LINEARITY_ALPHA, fit.df() as f64);
+        let t = stats::t_two_sided_critical(LINEARITY_ALPHA, fit.df() as f64);
         if deviation.abs() <= t * se {
             return None;
         }
@@ -441,7 +440,7 @@ fn lack_of_fit(
         f_statistic: f,
         df_lack_of_fit: df_lack,
         df_pure_error: df_pure,
-        p_value: stats::f_upper_p(f, df_lack as f64, df_pure as f64),
+        p_value: stats::f_sf(f, df_lack as f64, df_pure as f64),
     })
 }
 
@@ -890,7 +889,7 @@ pub fn calibrate(
     }
     // One-sided 5 % over all used wavelengths together (Bonferroni), so
     // noise at hundreds of non-absorbing wavelengths does not raise it.
-    let t_negative = stats::student_t_critical(
+    let t_negative = stats::t_two_sided_critical(
         2.0 * TEST_ALPHA / used_idx.len() as f64,
         (members.len() - 2) as f64,
     );
