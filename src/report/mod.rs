@@ -19,7 +19,7 @@ use crate::curves::Curves;
 use crate::fit::SampleResult;
 use crate::output::JsonReport;
 use std::fmt::Write;
-use svg::{DASHES, PALETTE, Panel, escape};
+use svg::{DASHES, PALETTE, Panel, Series, escape};
 
 /// Most points per plotted curve (min/max per bucket above this): about
 /// three pixels per point across the 520 px plot area, plenty for UV-vis bands.
@@ -71,6 +71,7 @@ fn fit_panel(out: &mut String, c: &Curves, masked: &[usize]) {
     let w = &c.wavelengths_nm;
     let n = w.len();
     let idx = svg::decimate(&c.measured_au, MAX_PLOT_POINTS);
+    let sampled = Series { x: w, idx: &idx };
     let mut layers: Vec<Vec<f64>> = vec![c.baseline_au.clone()];
     for comp in &c.contributions_au {
         let below = layers.last().cloned().unwrap_or_else(|| vec![0.0; n]);
@@ -100,10 +101,8 @@ fn fit_panel(out: &mut String, c: &Curves, masked: &[usize]) {
         let colour = PALETTE[k % PALETTE.len()];
         top.band(
             out,
-            w,
-            &layers[k],
-            &layers[k + 1],
-            &idx,
+            &sampled,
+            (&layers[k], &layers[k + 1]),
             &format!(
                 r#"fill="{colour}" fill-opacity="0.35" stroke="{colour}" stroke-width="1" stroke-dasharray="{}""#,
                 DASHES[k % DASHES.len()]
@@ -112,16 +111,14 @@ fn fit_panel(out: &mut String, c: &Curves, masked: &[usize]) {
     }
     top.line(
         out,
-        w,
+        &sampled,
         &c.measured_au,
-        &idx,
         r##"stroke="#000" stroke-width="1.6""##,
     );
     top.line(
         out,
-        w,
+        &sampled,
         &c.fitted_au,
-        &idx,
         r##"stroke="#D55E00" stroke-width="1.4" stroke-dasharray="5 3""##,
     );
     for &i in masked {
@@ -211,15 +208,18 @@ fn residual_panel(out: &mut String, c: &Curves, masked: &[usize]) {
         y: rr,
     };
     bottom.axes(out, "wavelength (nm)", "residual (AU)", true);
+    let end_points = [0, n - 1];
+    let ends = Series {
+        x: w,
+        idx: &end_points,
+    };
     if let Some(s) = sigma {
         let lo = vec![-2.0 * s; n];
         let hi = vec![2.0 * s; n];
         bottom.band(
             out,
-            w,
-            &lo,
-            &hi,
-            &[0, n - 1],
+            &ends,
+            (&lo, &hi),
             r##"fill="#56B4E9" fill-opacity="0.3" stroke="none""##,
         );
         let _ = write!(
@@ -240,19 +240,12 @@ fn residual_panel(out: &mut String, c: &Curves, masked: &[usize]) {
         );
     }
     let zero = vec![0.0; n];
-    bottom.line(
-        out,
-        w,
-        &zero,
-        &[0, n - 1],
-        r##"stroke="#444" stroke-width="0.8""##,
-    );
+    bottom.line(out, &ends, &zero, r##"stroke="#444" stroke-width="0.8""##);
     let ridx = svg::decimate(&c.residual_au, MAX_PLOT_POINTS);
     bottom.line(
         out,
-        w,
+        &Series { x: w, idx: &ridx },
         &c.residual_au,
-        &ridx,
         r##"stroke="#000" stroke-width="1""##,
     );
     for &i in masked {
@@ -538,9 +531,8 @@ pub fn references_figure(refs: &crate::reference::ReferenceSet, range_nm: [f64; 
         let idx = svg::decimate(&c.epsilon_l_per_mol_cm, MAX_PLOT_POINTS);
         p.line(
             &mut out,
-            w,
+            &Series { x: w, idx: &idx },
             &c.epsilon_l_per_mol_cm,
-            &idx,
             &format!(
                 r#"stroke="{}" stroke-width="1.6" stroke-dasharray="{}""#,
                 PALETTE[k % PALETTE.len()],
