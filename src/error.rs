@@ -111,6 +111,47 @@ pub enum Error {
         /// What to do about it.
         expected: &'static str,
     },
+    /// A wavelength is not a positive finite number.
+    #[error("wavelength {position} ({value}) must be a positive finite number of nm")]
+    BadWavelength {
+        /// 1-based position in the list.
+        position: usize,
+        /// The value found.
+        value: f64,
+    },
+    /// A wavelength repeats or breaks the order of the list.
+    #[error(
+        "wavelength {value_nm} nm {} (position {position} after {previous_nm} nm): wavelengths must be strictly ascending or strictly descending",
+        order_word(.repeated)
+    )]
+    WavelengthOrder {
+        /// 1-based position in the list.
+        position: usize,
+        /// The wavelength found there, nm.
+        value_nm: f64,
+        /// The one before it, nm.
+        previous_nm: f64,
+        /// Whether it equals the one before (else it is smaller).
+        repeated: bool,
+    },
+    /// A spectrum has a different number of values than its grid.
+    #[error("sample '{sample}': {values} absorbance values for {wavelengths} wavelengths")]
+    LengthMismatch {
+        /// Sample identifier.
+        sample: String,
+        /// Number of absorbance values.
+        values: usize,
+        /// Number of wavelengths expected.
+        wavelengths: usize,
+    },
+    /// A spectrum holds a value that is not a finite number.
+    #[error("sample '{sample}': absorbance at {wavelength_nm} nm is not a finite number")]
+    NotFinite {
+        /// Sample identifier.
+        sample: String,
+        /// Where, nm.
+        wavelength_nm: f64,
+    },
     /// Reading or writing a file failed.
     #[error("{path}: {source}")]
     Io {
@@ -174,6 +215,15 @@ pub fn shorten(raw: &[u8]) -> String {
     out
 }
 
+/// How a wavelength breaks the order: repeated or out of order.
+fn order_word(repeated: &bool) -> &'static str {
+    if *repeated {
+        "appears twice"
+    } else {
+        "is out of order"
+    }
+}
+
 /// Names in single quotes, the first five, then how many more.
 pub fn quoted_list(names: &[String]) -> String {
     let quoted: Vec<String> = names.iter().map(|n| format!("'{n}'")).collect();
@@ -229,6 +279,29 @@ mod tests {
         assert_eq!(
             e.to_string(),
             "pathlength -1 cm: expected a positive number of cm"
+        );
+    }
+
+    #[test]
+    fn spectrum_errors_name_position_and_values() {
+        let e = Error::WavelengthOrder {
+            position: 3,
+            value_nm: 400.0,
+            previous_nm: 401.0,
+            repeated: false,
+        };
+        assert_eq!(
+            e.to_string(),
+            "wavelength 400 nm is out of order (position 3 after 401 nm): wavelengths must be strictly ascending or strictly descending"
+        );
+        let e = Error::LengthMismatch {
+            sample: "s1".into(),
+            values: 3,
+            wavelengths: 4,
+        };
+        assert_eq!(
+            e.to_string(),
+            "sample 's1': 3 absorbance values for 4 wavelengths"
         );
     }
 
