@@ -246,6 +246,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
 
 /// Pixels per SVG pixel in a PNG figure (sharp on high-density screens and
 /// in print: the 760 × 430 px figure becomes 1520 × 860).
+#[cfg(feature = "png")]
 const PNG_SCALE: f32 = 2.0;
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -312,21 +313,7 @@ fn run_with_curves(
             })?,
         };
         let svg = crate::report::sample_figure(curve);
-        if plot_kind(path) == Some(PlotKind::Png) {
-            let png = crate::report::png::render(&svg, PNG_SCALE).map_err(Failure::new)?;
-            if !png.has_font {
-                eprintln!(
-                    "unblend: warning: no system font found: the PNG's text labels are missing (install a sans-serif font, or write the figure as .svg)"
-                );
-            }
-            crate::atomic::write_with(path, false, |w| w.write_all(&png.bytes))?;
-        } else {
-            crate::atomic::write_with(path, false, |w| {
-                w.write_all(b"<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n")?;
-                w.write_all(svg.as_bytes())?;
-                w.write_all(b"\n")
-            })?;
-        }
+        write_figure(path, &svg)?;
         eprintln!(
             "unblend: wrote the fit of {} to {}",
             curve.sample,
@@ -364,6 +351,39 @@ fn run_with_curves(
         emit(&report, format, args.out.as_deref())?;
     }
     Ok(exit_code(&report))
+}
+
+/// Write a figure as SVG, or as PNG when the file name says so.
+fn write_figure(path: &std::path::Path, svg: &str) -> Result<(), Failure> {
+    if plot_kind(path) == Some(PlotKind::Png) {
+        return write_png(path, svg);
+    }
+    crate::atomic::write_with(path, false, |w| {
+        w.write_all(b"<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n")?;
+        w.write_all(svg.as_bytes())?;
+        w.write_all(b"\n")
+    })?;
+    Ok(())
+}
+
+#[cfg(feature = "png")]
+fn write_png(path: &std::path::Path, svg: &str) -> Result<(), Failure> {
+    let png = crate::report::png::render(svg, PNG_SCALE).map_err(Failure::new)?;
+    if !png.has_font {
+        eprintln!(
+            "unblend: warning: no system font found: the PNG's text labels are missing (install a sans-serif font, or write the figure as .svg)"
+        );
+    }
+    crate::atomic::write_with(path, false, |w| w.write_all(&png.bytes))?;
+    Ok(())
+}
+
+#[cfg(not(feature = "png"))]
+fn write_png(path: &std::path::Path, _svg: &str) -> Result<(), Failure> {
+    Err(Failure::new(format!(
+        "--plot {}: this build has no PNG support (built without the `png` feature): write the figure as .svg",
+        path.display()
+    )))
 }
 
 /// The run's inputs and options for the report's summary.

@@ -101,7 +101,8 @@ pub fn main() -> ExitCode {
     // temporaries stay behind, but no output is ever half written.
     let _ = ctrlc::set_handler(|| {
         eprintln!("unblend: interrupted: outputs left as they were");
-        crate::atomic::exit_removing_temporaries(i32::from(exit::INTERRUPTED))
+        crate::atomic::remove_temporaries_for_exit();
+        std::process::exit(i32::from(exit::INTERRUPTED))
     });
     let cli = match Cli::try_parse() {
         Ok(c) => c,
