@@ -1,9 +1,9 @@
 //! `unblend batch`: plate-reader runs: plate maps, blanks, pathlengths,
 //! dilutions, replicates; per-well and per-sample results.
 
+use super::common::{ModelArgs, References, hex, parse_positive, screening_candidates};
 use super::diagnostic_args::DiagnosticArgs;
-use super::fit::{BaselineArg, QuantityArg};
-use super::{Failure, exit, library_dir, parse_positive, parse_range_nm};
+use super::{Failure, exit};
 use crate::atomic::AtomicFile;
 use crate::batch::run::{self, Event, InputSummary, RunSpec};
 use crate::batch::{BatchOptions, Models, PlateResult, WaterBand};
@@ -50,15 +50,9 @@ pub struct Args {
     /// standard, empty; optional `plate` column). Without it every well is a sample.
     #[arg(long, value_name = "MAP.csv")]
     pub plate_map: Option<PathBuf>,
-    /// Library folder of component files [default: $UNBLEND_LIBRARY or ./library].
-    #[arg(long, value_name = "DIR")]
-    pub library: Option<PathBuf>,
-    /// Components to fit, comma separated [default: every component in the library].
-    #[arg(long, value_delimiter = ',', value_name = "NAMES")]
-    pub components: Vec<String>,
-    /// Pathlength in cm for wells whose map gives none (and without --pathlength-from-water).
-    #[arg(long, default_value = "1", value_parser = parse_positive, value_name = "CM")]
-    pub pathlength_cm: f64,
+    /// The references and the model fitted.
+    #[command(flatten)]
+    pub model: ModelArgs,
     /// Pathlength of each well from the near-infrared water band:
     /// l = (A(977 nm) − A(900 nm)) / --water-au-per-cm, from the reading before blank
     /// subtraction. The map's pathlength_cm, where given, wins.
@@ -68,15 +62,6 @@ pub struct Args {
     /// it depends on temperature).
     #[arg(long, default_value = "0.18", value_parser = parse_positive, value_name = "AU_PER_CM")]
     pub water_au_per_cm: f64,
-    /// Baseline terms fitted beside the components (free in sign): offset in AU, slope in AU/nm.
-    #[arg(long, value_enum, default_value_t = BaselineArg::Offset)]
-    pub baseline: BaselineArg,
-    /// Wavelength window LO:HI in nm [default: all wavelengths the plate and every reference cover].
-    #[arg(long, value_parser = parse_range_nm, value_name = "LO:HI")]
-    pub range_nm: Option<(f64, f64)>,
-    /// What the numbers in the inputs are.
-    #[arg(long, value_enum, default_value_t = QuantityArg::Absorbance)]
-    pub quantity: QuantityArg,
     /// Significance level of the outlier tests (Grubbs, two-sided) on replicates and blanks.
     #[arg(long, default_value = "0.05", value_parser = parse_alpha, value_name = "ALPHA")]
     pub outlier_alpha: f64,
@@ -109,25 +94,11 @@ pub struct Args {
 fn checks(args: &Args) -> Result<crate::diagnostics::Options, Failure> {
     let mut checks = args.checks.options();
     if let Some(dir) = &args.screen_with {
-        if args.checks.no_diagnostics {
-            return Err(Failure::new(
-                "--screen-with tries candidates on wells the residual tests flag: drop --no-diagnostics",
-            ));
-        }
-        let candidates =
-            Library::open(dir).map_err(|e| Failure::new(format!("--screen-with: {e}")))?;
-        for e in &candidates.broken {
-            eprintln!("unblend: warning: screening library: {e}");
-        }
-        if candidates.components.is_empty() {
-            return Err(Failure::new(format!(
-                "--screen-with {}: no readable component files (*.toml) there",
-                dir.display()
-            )));
-        }
-        checks.candidates = Some(ReferenceSet {
-            components: candidates.components,
-        });
+        checks.candidates = Some(screening_candidates(
+            dir,
+            args.checks.no_diagnostics,
+            "wells",
+        )?);
     }
     Ok(checks)
 }
@@ -148,12 +119,7 @@ impl TryFrom<&Args> for BatchOptions {
     #[allow(clippy::needless_update)]
     fn try_from(a: &Args) -> Result<Self, Failure> {
         Ok(BatchOptions {
-            fit: FitOptions {
-                baseline: a.baseline.into(),
-                window_nm: a.range_nm,
-                pathlength_cm: a.pathlength_cm,
-                ..FitOptions::default()
-            },
+            fit: FitOptions::try_from(&a.model)?,
             water: a.pathlength_from_water.then(|| WaterBand {
                 au_per_cm: a.water_au_per_cm,
                 ..WaterBand::default()
@@ -192,9 +158,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         }
         None => (None, None),
     };
-    let dir = library_dir(args.library.clone());
-    let library = Library::open(&dir)?;
-    let refs = library.select(&args.components)?;
+    let References { dir, set: refs } = args.model.references()?;
     let checks = checks(&args)?;
     // The report's temporary file first: a report path in a missing folder
     // fails before the output folder is created.
@@ -248,7 +212,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let spec = RunSpec {
         inputs: &args.inputs,
         map: map.as_ref(),
-        quantity: args.quantity.into(),
+        quantity: args.model.quantity.into(),
         options: &options,
         bytes_read: &bytes_read,
     };
@@ -572,7 +536,7 @@ fn options_json(o: &BatchOptions, a: &Args) -> serde_json::Value {
     serde_json::json!({
         "baseline": format!("{:?}", o.fit.baseline).to_lowercase(),
         "range_nm": o.fit.window_nm.map(|(lo, hi)| [lo, hi]),
-        "quantity": format!("{:?}", a.quantity).to_lowercase(),
+        "quantity": format!("{:?}", a.model.quantity).to_lowercase(),
         "pathlength_cm": o.fit.pathlength_cm,
         "water_band": o.water,
         "outlier_test": "grubbs-two-sided",
@@ -661,7 +625,7 @@ fn write_log(w: &mut dyn Write, t: &Tally, l: &LogInfo) -> std::io::Result<()> {
     writeln!(
         w,
         "  quantity:    {}",
-        format!("{:?}", l.args.quantity).to_lowercase()
+        format!("{:?}", l.args.model.quantity).to_lowercase()
     )?;
     match o.water {
         Some(wb) => writeln!(
@@ -760,11 +724,6 @@ fn shell_word(s: &str) -> String {
     }
 }
 
-fn hex(bytes: &[u8]) -> String {
-    bytes.iter().map(|b| format!("{b:02x}")).collect()
-}
-
-/// Now, UTC, as `YYYY-MM-DD HH:MM:SS UTC`.
 fn now_utc() -> String {
     let secs = std::time::SystemTime::now()
         .duration_since(std::time::UNIX_EPOCH)

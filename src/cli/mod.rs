@@ -6,6 +6,7 @@
 
 pub mod batch;
 pub mod calibrate;
+pub mod common;
 pub mod demo;
 pub mod diagnostic_args;
 pub mod discover;
@@ -134,38 +135,5 @@ pub fn run(cli: Cli) -> Result<u8, Failure> {
         Command::Demo(a) => demo::run(a),
         Command::Discover(a) => discover::run(a),
         Command::Report(a) => report::run(a),
-    }
-}
-
-/// The library folder: `--library`, else `UNBLEND_LIBRARY`, else `./library`.
-pub fn library_dir(flag: Option<std::path::PathBuf>) -> std::path::PathBuf {
-    flag.or_else(|| std::env::var_os("UNBLEND_LIBRARY").map(Into::into))
-        .unwrap_or_else(|| "library".into())
-}
-
-/// Parse `LO:HI` in nm.
-pub fn parse_range_nm(s: &str) -> Result<(f64, f64), String> {
-    let (lo, hi) = s
-        .split_once(':')
-        .ok_or_else(|| format!("'{s}': expected LO:HI in nm, e.g. 400:700"))?;
-    let lo: f64 = lo
-        .trim()
-        .parse()
-        .map_err(|_| format!("'{lo}': expected a wavelength in nm"))?;
-    let hi: f64 = hi
-        .trim()
-        .parse()
-        .map_err(|_| format!("'{hi}': expected a wavelength in nm"))?;
-    if !(lo.is_finite() && hi.is_finite() && lo > 0.0 && hi > lo) {
-        return Err(format!("'{s}': expected 0 < LO < HI in nm"));
-    }
-    Ok((lo, hi))
-}
-
-/// Parse a positive finite number (pathlength, molar mass).
-pub fn parse_positive(s: &str) -> Result<f64, String> {
-    match s.trim().parse::<f64>() {
-        Ok(v) if v.is_finite() && v > 0.0 => Ok(v),
-        _ => Err(format!("'{s}': expected a positive number")),
     }
 }
