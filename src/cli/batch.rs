@@ -553,7 +553,6 @@ fn options_json(o: &BatchOptions, a: &Args) -> serde_json::Value {
 }
 
 fn write_log(w: &mut dyn Write, t: &Tally, l: &LogInfo) -> std::io::Result<()> {
-    let o = l.options;
     writeln!(w, "unblend batch: run log")?;
     writeln!(w, "tool:       unblend {}", env!("CARGO_PKG_VERSION"))?;
     writeln!(w, "started:    {}", l.started_utc)?;
@@ -593,6 +592,13 @@ fn write_log(w: &mut dyn Write, t: &Tally, l: &LogInfo) -> std::io::Result<()> {
             .as_deref()
             .unwrap_or("none (every well a sample, no blank)")
     )?;
+    write_log_components(w, l)?;
+    write_log_options(w, l)?;
+    write_log_results(w, t)
+}
+
+/// The run log's library and components, each with its file's SHA-256.
+fn write_log_components(w: &mut dyn Write, l: &LogInfo) -> std::io::Result<()> {
     writeln!(w, "library:    {}", l.library_dir.display())?;
     writeln!(w, "components:")?;
     for c in &l.refs.components {
@@ -608,6 +614,12 @@ fn write_log(w: &mut dyn Write, t: &Tally, l: &LogInfo) -> std::io::Result<()> {
             path.display()
         )?;
     }
+    Ok(())
+}
+
+/// The run log's options section.
+fn write_log_options(w: &mut dyn Write, l: &LogInfo) -> std::io::Result<()> {
+    let o = l.options;
     writeln!(w, "\noptions")?;
     writeln!(
         w,
@@ -673,6 +685,11 @@ fn write_log(w: &mut dyn Write, t: &Tally, l: &LogInfo) -> std::io::Result<()> {
             .map(|d| format!("; screening with {}", d.display()))
             .unwrap_or_default()
     )?;
+    Ok(())
+}
+
+/// The run log's results, outputs and warnings.
+fn write_log_results(w: &mut dyn Write, t: &Tally) -> std::io::Result<()> {
     writeln!(w, "\nresults")?;
     writeln!(
         w,
