@@ -8,7 +8,7 @@ use crate::atomic::AtomicFile;
 use crate::batch::run::{self, Event, InputSummary, RunSpec};
 use crate::batch::{BatchOptions, Models, PlateResult, WaterBand};
 use crate::fit::FitOptions;
-use crate::input::platemap;
+use crate::input::platemap::{self, PlateMap};
 use crate::output::batch::{RenderedPlate, SAMPLES_HEADER, WELLS_HEADER, render_plate_with};
 use crate::reference::{Library, ReferenceSet};
 use crate::report::plates::{PlateReport, RunHead};
@@ -142,68 +142,11 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             code: exit::USAGE,
         });
     }
-    let (map, map_info) = match &args.plate_map {
-        Some(path) => {
-            let bytes = std::fs::read(path)
-                .map_err(|e| Failure::new(format!("plate map {}: {e}", path.display())))?;
-            let map = platemap::read(&bytes)
-                .map_err(|e| Failure::new(format!("plate map {}: {e}", path.display())))?;
-            let info = format!(
-                "{}  sha256 {}  ({} entries)",
-                path.display(),
-                hex(&Sha256::digest(&bytes)),
-                map.len()
-            );
-            (Some(map), Some(info))
-        }
-        None => (None, None),
-    };
+    let (map, map_info) = read_plate_map(args.plate_map.as_deref())?;
     let References { dir, set: refs } = args.model.references()?;
     let checks = checks(&args)?;
-    // The report's temporary file first: a report path in a missing folder
-    // fails before the output folder is created.
-    let report_file = match &args.report {
-        Some(path) => Some(AtomicFile::create(path).map_err(|e| {
-            Failure::new(format!(
-                "--report {}: cannot write there ({e}); does its folder exist?",
-                path.display()
-            ))
-        })?),
-        None => None,
-    };
-    let created_dir = !args.out_dir.exists();
-    std::fs::create_dir_all(&args.out_dir)
-        .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
-    let mut out = Outputs::create(&args.out_dir)?;
-    out.report = report_file.map(|f| {
-        let names = refs.names().into_iter().map(String::from).collect();
-        (f, PlateReport::new(names))
-    });
-    out.begin(&refs, &options, &args)
-        .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
-
-    let total_bytes: Option<u64> = args
-        .inputs
-        .iter()
-        .map(|p| {
-            (p.as_os_str() != "-")
-                .then(|| std::fs::metadata(p).ok().map(|m| m.len()))
-                .flatten()
-        })
-        .sum();
-    let bar = (!args.no_progress && std::io::stderr().is_terminal()).then(|| {
-        let bar = match total_bytes {
-            Some(t) => indicatif::ProgressBar::new(t),
-            None => indicatif::ProgressBar::new_spinner(),
-        };
-        let style = indicatif::ProgressStyle::with_template(
-            "{spinner} {elapsed_precise} [{wide_bar}] {bytes}/{total_bytes} {msg}",
-        )
-        .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar());
-        bar.set_style(style);
-        bar
-    });
-
+    let (mut out, created_dir) = open_outputs(&args, &refs, &options)?;
+    let bar = progress_bar(&args);
     let mut tally = Tally::default();
     if map.is_none() {
         tally.warn("no --plate-map given: every well is a sample named after its well, and no blank is subtracted".into());
@@ -268,18 +211,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             "no input could be read: nothing was written (errors above)",
         ));
     }
-    for w in models.warnings() {
-        tally.warn(w);
-    }
-    for w in tally.warnings.iter().take(SHOWN_WARNINGS) {
-        eprintln!("unblend: warning: {w}");
-    }
-    if tally.n_warnings > SHOWN_WARNINGS {
-        eprintln!(
-            "unblend: {} more warning(s) in run-log.txt and run.json",
-            tally.n_warnings - SHOWN_WARNINGS
-        );
-    }
+    print_warnings(&mut tally, &models);
     let log = LogInfo {
         started_utc,
         elapsed_s,
@@ -292,6 +224,102 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let paths = out
         .finish(&tally, &log)
         .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
+    Ok(closing(&tally, elapsed_s, &paths))
+}
+
+/// Create the output folder and the temporary outputs (the report's first:
+/// a report path in a missing folder fails before the folder is created),
+/// and write their heads. Also says whether the folder is new.
+fn open_outputs(
+    args: &Args,
+    refs: &ReferenceSet,
+    options: &BatchOptions,
+) -> Result<(Outputs, bool), Failure> {
+    let report_file = match &args.report {
+        Some(path) => Some(AtomicFile::create(path).map_err(|e| {
+            Failure::new(format!(
+                "--report {}: cannot write there ({e}); does its folder exist?",
+                path.display()
+            ))
+        })?),
+        None => None,
+    };
+    let created_dir = !args.out_dir.exists();
+    std::fs::create_dir_all(&args.out_dir)
+        .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
+    let mut out = Outputs::create(&args.out_dir)?;
+    out.report = report_file.map(|f| {
+        let names = refs.names().into_iter().map(String::from).collect();
+        (f, PlateReport::new(names))
+    });
+    out.begin(refs, options, args)
+        .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
+    Ok((out, created_dir))
+}
+
+/// Print the first warnings; the rest are counted.
+fn print_warnings(tally: &mut Tally, models: &Models) {
+    for w in models.warnings() {
+        tally.warn(w);
+    }
+    for w in tally.warnings.iter().take(SHOWN_WARNINGS) {
+        eprintln!("unblend: warning: {w}");
+    }
+    if tally.n_warnings > SHOWN_WARNINGS {
+        eprintln!(
+            "unblend: {} more warning(s) in run-log.txt and run.json",
+            tally.n_warnings - SHOWN_WARNINGS
+        );
+    }
+}
+
+/// The plate map, and its line for the run log (path, SHA-256, entries).
+fn read_plate_map(path: Option<&Path>) -> Result<(Option<PlateMap>, Option<String>), Failure> {
+    Ok(match path {
+        Some(path) => {
+            let bytes = std::fs::read(path)
+                .map_err(|e| Failure::new(format!("plate map {}: {e}", path.display())))?;
+            let map = platemap::read(&bytes)
+                .map_err(|e| Failure::new(format!("plate map {}: {e}", path.display())))?;
+            let info = format!(
+                "{}  sha256 {}  ({} entries)",
+                path.display(),
+                hex(&Sha256::digest(&bytes)),
+                map.len()
+            );
+            (Some(map), Some(info))
+        }
+        None => (None, None),
+    })
+}
+
+/// The progress bar, when asked for and stderr is a terminal.
+fn progress_bar(args: &Args) -> Option<indicatif::ProgressBar> {
+    let total_bytes: Option<u64> = args
+        .inputs
+        .iter()
+        .map(|p| {
+            (p.as_os_str() != "-")
+                .then(|| std::fs::metadata(p).ok().map(|m| m.len()))
+                .flatten()
+        })
+        .sum();
+    (!args.no_progress && std::io::stderr().is_terminal()).then(|| {
+        let bar = match total_bytes {
+            Some(t) => indicatif::ProgressBar::new(t),
+            None => indicatif::ProgressBar::new_spinner(),
+        };
+        let style = indicatif::ProgressStyle::with_template(
+            "{spinner} {elapsed_precise} [{wide_bar}] {bytes}/{total_bytes} {msg}",
+        )
+        .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar());
+        bar.set_style(style);
+        bar
+    })
+}
+
+/// Print the run's closing lines; the exit code they add up to.
+fn closing(tally: &Tally, elapsed_s: f64, paths: &[String]) -> u8 {
     let rate = tally.wells_fitted as f64 / elapsed_s.max(1e-9);
     eprintln!(
         "unblend: {} plate(s), {} well(s) fitted, {} failed, in {elapsed_s:.2} s ({rate:.0} wells/s); wrote {}",
@@ -308,13 +336,13 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             tally.wells_failed
         );
     }
-    Ok(if tally.failures() == 0 {
+    if tally.failures() == 0 {
         exit::OK
     } else if tally.wells_fitted == 0 {
         exit::FAILED
     } else {
         exit::PARTIAL
-    })
+    }
 }
 
 /// Warnings printed to stderr; the rest go to the run log.
