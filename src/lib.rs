@@ -21,6 +21,7 @@ pub mod atomic;
 pub mod batch;
 pub mod calibrate;
 pub mod cli;
+pub mod colour;
 pub mod curves;
 pub mod dates;
 pub mod diagnostics;
