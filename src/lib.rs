@@ -36,5 +36,6 @@ pub mod report;
 pub mod separability;
 pub mod solver;
 pub mod spectrum;
+pub mod target;
 
 pub use error::{Error, Result};

@@ -1,6 +1,7 @@
 //! `unblend fit`: fit spectra against reference components.
 
 use super::diagnostic_args::DiagnosticArgs;
+use super::qc_args::QcArgs;
 use super::{Failure, exit, library_dir, parse_positive, parse_range_nm};
 use crate::fit::{FitOptions, FitReport, Outcome, StreamError, fit_stream_with};
 use crate::input::spectra::{self, Opened, Quantity, ReadOptions, WideStream};
@@ -48,6 +49,9 @@ pub struct Args {
     /// Residual tests and saturation masking.
     #[command(flatten)]
     pub checks: DiagnosticArgs,
+    /// Lot QC against a target recipe; colour of the solution.
+    #[command(flatten)]
+    pub qc: QcArgs,
     /// Also write a self-contained HTML report (summary, one figure per sample: measured, fitted, stacked component contributions, residual with the ±2σ noise band).
     #[arg(long, value_name = "FILE.html")]
     pub report: Option<PathBuf>,
@@ -186,7 +190,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             p.display()
         )));
     }
-    if args.report.is_some() || args.plot.is_some() || args.with_curves {
+    if args.report.is_some() || args.plot.is_some() || args.with_curves || args.qc.active() {
         return run_with_curves(
             &args,
             &refs,
@@ -284,7 +288,10 @@ fn run_with_curves(
         ..Default::default()
     };
     let file = spectra::read(&bytes, read_options).map_err(ctx)?;
-    let report = crate::fit::fit_file_with(&file, refs, options, checks).map_err(ctx)?;
+    let mut report = crate::fit::fit_file_with(&file, refs, options, checks).map_err(ctx)?;
+    if let Some(qc) = args.qc.setup(refs)? {
+        crate::target::apply_to_file(&qc.context(refs), &file, &mut report);
+    }
     let curves = crate::curves::for_file(&file, refs, options, &report);
     let mut doc = output::JsonReport::from_report(&report);
     doc.run = Some(run_info(args, shown, library));
