@@ -290,7 +290,7 @@ fn run_with_curves(
     let file = spectra::read(&bytes, read_options).map_err(ctx)?;
     let mut report = crate::fit::fit_file_with(&file, refs, options, checks).map_err(ctx)?;
     if let Some(qc) = args.qc.setup(refs)? {
-        crate::target::apply_to_file(&qc.context(refs), &file, &mut report);
+        crate::target::apply_to_file(&file, &mut report, |_| Some(qc.context(refs)));
     }
     let curves = crate::curves::for_file(&file, refs, options, &report);
     let mut doc = output::JsonReport::from_report(&report);

@@ -24,14 +24,8 @@ pub fn write_qc(report: &FitReport, unit: &DisplayUnit, w: &mut dyn Write) -> io
         return Ok(());
     }
     let (header, rows) = verdict_rows(report, &fitted);
-    if let Some(name) = fitted
-        .iter()
-        .find_map(|(_, s)| s.target.as_ref().map(|t| t.name.clone()))
-    {
-        writeln!(
-            w,
-            "\nagainst target '{name}' (strength = measured / target):"
-        )?;
+    if fitted.iter().any(|(_, s)| s.target.is_some()) {
+        writeln!(w, "\nagainst the target (strength = measured / target):")?;
     } else {
         writeln!(w, "\ncolour of each solution:")?;
     }
@@ -50,6 +44,7 @@ fn verdict_rows(report: &FitReport, fitted: &[(&str, &Qc)]) -> (Vec<String>, Vec
     let with_target = fitted.iter().any(|(_, s)| s.target.is_some());
     let mut header = vec!["sample".to_string()];
     if with_target {
+        header.push("target".into());
         header.extend(report.component_names.iter().map(|n| format!("{n} (%)")));
     }
     header.extend(["L*", "a*", "b*", "C*", "h (°)", "source"].map(String::from));
@@ -61,11 +56,13 @@ fn verdict_rows(report: &FitReport, fitted: &[(&str, &Qc)]) -> (Vec<String>, Vec
         .map(|(sample, s)| {
             let mut row = vec![sample.to_string()];
             if let Some(t) = &s.target {
+                row.push(t.name.clone());
                 row.extend(t.components.iter().map(|c| {
                     c.strength_percent
                         .map_or_else(|| "-".into(), |p| format!("{p:.1}"))
                 }));
             } else if with_target {
+                row.push("-".into());
                 row.extend(report.component_names.iter().map(|_| "-".to_string()));
             }
             match &s.colour {
