@@ -170,6 +170,7 @@ fn correction_resimulated_brings_the_lot_onto_its_target() {
     std::fs::write(dir.join("lot.csv"), spectra(&[("lot", lot)], 350, 750)).unwrap();
     let r = fit_json(&dir, "lot.csv", &["--target", "recipe.csv"]);
     let s = &r.samples[0];
+    assert_eq!(s.sample, "lot");
     let t = s.target.as_ref().unwrap();
     assert!(
         !t.pass && t.reasons.len() == 3,
