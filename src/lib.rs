@@ -36,6 +36,7 @@ pub mod report;
 pub mod separability;
 pub mod solver;
 pub mod spectrum;
+pub mod stats;
 pub mod target;
 
 pub use error::{Error, Result};
