@@ -405,3 +405,53 @@ fn bad_recipe_lines_are_named() {
     assert!(stderr.contains("tolerance out of range"), "{stderr}");
     std::fs::remove_dir_all(&dir).ok();
 }
+
+#[test]
+fn report_and_qc_csv_carry_the_verdict() {
+    let dir = scratch("outputs");
+    std::fs::write(dir.join("recipe.csv"), RECIPE).unwrap();
+    let lots = [("on", [5e-6, 3e-6, 7e-6]), ("off", [5.6e-6, 3e-6, 7e-6])];
+    std::fs::write(dir.join("lots.csv"), spectra(&lots, 350, 750)).unwrap();
+    let library = format!("{ROOT}/library");
+    let args = [
+        "fit",
+        "lots.csv",
+        "--library",
+        &library,
+        "--target",
+        "recipe.csv",
+        "--report",
+        "r.html",
+        "--qc-csv",
+        "q.csv",
+        "--no-diagnostics",
+    ];
+    let (code, _, stderr) = unblend(&dir, &args);
+    assert_eq!(code, 0, "{stderr}");
+    let html = std::fs::read_to_string(dir.join("r.html")).unwrap();
+    assert!(
+        html.contains("Against the target") && html.contains("FAIL") && html.contains(">pass<")
+    );
+    assert_eq!(
+        html.matches("<svg").count(),
+        2,
+        "one figure per fitted sample, no SVG in the QC table"
+    );
+    let csv = std::fs::read_to_string(dir.join("q.csv")).unwrap();
+    let lines: Vec<&str> = csv.lines().collect();
+    assert!(lines[0].starts_with("sample,target,pass,reasons,component,target_mol_per_l"));
+    assert_eq!(lines.len(), 1 + 2 * 3, "one row per sample and component");
+    let header: Vec<&str> = lines[0].split(',').collect();
+    let off_blue: Vec<&str> = lines
+        .iter()
+        .find(|l| l.starts_with("off,") && l.contains(",fjord-blue,"))
+        .unwrap()
+        .split(',')
+        .collect();
+    assert_eq!(off_blue.len(), header.len());
+    let col = |name: &str| off_blue[header.iter().position(|h| *h == name).unwrap()];
+    assert_eq!(col("pass"), "false");
+    assert!((col("strength_percent").parse::<f64>().unwrap() - 112.0).abs() < 1e-3);
+    assert!((col("dilution_factor").parse::<f64>().unwrap() - 1.12).abs() < 1e-5);
+    std::fs::remove_dir_all(&dir).ok();
+}

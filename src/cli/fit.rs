@@ -292,6 +292,9 @@ fn run_with_curves(
     if let Some(qc) = args.qc.setup(refs)? {
         crate::target::apply_to_file(&file, &mut report, |_| Some(qc.context(refs)));
     }
+    if let Some(path) = &args.qc.qc_csv {
+        crate::atomic::write_with(path, false, |w| output::qc::write_qc_csv(&report, w))?;
+    }
     let curves = crate::curves::for_file(&file, refs, options, &report);
     let mut doc = output::JsonReport::from_report(&report);
     doc.run = Some(run_info(args, shown, library));

@@ -37,6 +37,9 @@ pub struct QcArgs {
     /// Stock solutions the dyes are added from, CSV `component,concentration,unit`: the correction counts the volume they add [default: additions of negligible volume].
     #[arg(long, value_name = "FILE", requires = "target")]
     pub stock: Option<PathBuf>,
+    /// Also write the QC results as CSV to FILE (one row per sample and component: strength, pass, colour, correction).
+    #[arg(long, value_name = "FILE")]
+    pub qc_csv: Option<PathBuf>,
 }
 
 /// The QC a run does, loaded from the flags' files.
@@ -68,7 +71,7 @@ impl QcSetup {
 impl QcArgs {
     /// Whether any QC was asked for.
     pub fn active(&self) -> bool {
-        self.target.is_some() || self.colour
+        self.target.is_some() || self.colour || self.qc_csv.is_some()
     }
 
     /// Read the target and stock files against the fitted references;

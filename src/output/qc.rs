@@ -8,6 +8,7 @@
 use super::DisplayUnit;
 use crate::fit::{FitReport, Outcome};
 use crate::target::Qc;
+use std::fmt::Write as _;
 use std::io::{self, Write};
 
 /// Write the QC sections of the table, if any sample has QC results.
@@ -166,4 +167,82 @@ fn aligned(w: &mut dyn Write, header: &[String], rows: &[Vec<String>]) -> io::Re
         writeln!(w, "{}", cells.join("  ").trim_end())?;
     }
     Ok(())
+}
+
+/// Header of the QC CSV (`--qc-csv`): one row per sample and component.
+pub const QC_CSV_HEADER: &str = "sample,target,pass,reasons,component,target_mol_per_l,measured_mol_per_l,strength_percent,tolerance_percent,ratio_deviation_percent,illuminant,observer,colour_source,L,a,b,C,h,srgb,delta_e00,dilution_factor,add_mol_per_l_of_lot,add_g_per_l_of_lot";
+
+/// The QC CSV: one row per sample with QC results and component (a
+/// colour-only sample has one row with the component columns empty).
+pub fn write_qc_csv(report: &FitReport, w: &mut dyn Write) -> io::Result<()> {
+    writeln!(w, "{QC_CSV_HEADER}")?;
+    for o in &report.outcomes {
+        let Outcome::Fitted(s) = o else { continue };
+        let Some(qc) = s.qc.as_deref() else { continue };
+        let mut head = format!("{},", super::csv_field(&s.sample));
+        match &qc.target {
+            Some(t) => {
+                let _ = write!(
+                    head,
+                    "{},{},{},",
+                    super::csv_field(&t.name),
+                    t.pass,
+                    super::csv_field(&t.reasons.join("; "))
+                );
+            }
+            None => head.push_str(",,,"),
+        }
+        let colour = colour_cells(qc);
+        let strengths = qc.target.as_ref().map_or(&[][..], |t| &t.components[..]);
+        if strengths.is_empty() {
+            writeln!(w, "{head},,,,,,{colour},,,")?;
+        }
+        for st in strengths {
+            let mut row = head.clone();
+            row.push_str(&super::csv_field(&st.name));
+            row.push(',');
+            super::num(&mut row, st.target_mol_per_l);
+            row.push(',');
+            super::num(&mut row, st.measured_mol_per_l);
+            row.push(',');
+            super::opt(&mut row, st.strength_percent);
+            row.push(',');
+            super::num(&mut row, st.tolerance_percent);
+            row.push(',');
+            super::opt(&mut row, st.ratio_deviation_percent);
+            let _ = write!(row, ",{colour},");
+            let addition = qc.correction.as_ref().and_then(|c| {
+                let a = c.components.iter().find(|a| a.name == st.name)?;
+                Some((c.dilution_factor, a))
+            });
+            if let Some((f, a)) = addition {
+                super::num(&mut row, f);
+                row.push(',');
+                super::num(&mut row, a.add_mol_per_l_of_lot);
+                row.push(',');
+                super::opt(&mut row, a.add_g_per_l_of_lot);
+            } else {
+                row.push_str(",,");
+            }
+            writeln!(w, "{row}")?;
+        }
+    }
+    Ok(())
+}
+
+/// `illuminant,…,delta_e00` cells (empty when no colour).
+fn colour_cells(qc: &Qc) -> String {
+    let Some(c) = &qc.colour else {
+        return ",,,,,,,,,".into();
+    };
+    let l = &c.colour.lab;
+    let mut s = format!("{},{},{},", c.illuminant, c.observer, c.source);
+    for v in [l.l, l.a, l.b, l.c, l.h_deg] {
+        super::num(&mut s, v);
+        s.push(',');
+    }
+    s.push_str(&c.colour.srgb);
+    s.push(',');
+    super::opt(&mut s, c.colour.delta_e00);
+    s
 }
