@@ -20,6 +20,7 @@
 pub mod atomic;
 pub mod batch;
 pub mod calibrate;
+#[cfg(feature = "cli")]
 pub mod cli;
 pub mod colour;
 pub mod curves;

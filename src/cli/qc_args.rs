@@ -29,10 +29,10 @@ pub struct QcArgs {
     #[arg(long, default_value = "D65", value_parser = parse_illuminant, value_name = "D65|D50|A")]
     pub illuminant: Illuminant,
     /// Pathlength the colour is shown at, cm (what the customer sees through) [default: the measurement's].
-    #[arg(long, value_parser = super::parse_positive, value_name = "CM")]
+    #[arg(long, value_parser = super::common::parse_positive, value_name = "CM")]
     pub colour_pathlength_cm: Option<f64>,
     /// Volume of the lot, L: the correction's amounts for the whole batch.
-    #[arg(long, value_parser = super::parse_positive, value_name = "L", requires = "target")]
+    #[arg(long, value_parser = super::common::parse_positive, value_name = "L", requires = "target")]
     pub batch_volume_l: Option<f64>,
     /// Stock solutions the dyes are added from, CSV `component,concentration,unit`: the correction counts the volume they add [default: additions of negligible volume].
     #[arg(long, value_name = "FILE", requires = "target")]
@@ -72,6 +72,37 @@ impl QcArgs {
     /// Whether any QC was asked for.
     pub fn active(&self) -> bool {
         self.target.is_some() || self.colour || self.qc_csv.is_some()
+    }
+
+    /// The QC flags for the report's summary (nothing when QC is off).
+    pub fn run_info(&self) -> Vec<[String; 2]> {
+        if !self.active() {
+            return Vec::new();
+        }
+        let mut rows = vec![[
+            "colour".to_string(),
+            format!(
+                "CIELAB, illuminant {}, {}° observer, shown at {}",
+                self.illuminant.label(),
+                self.observer.label(),
+                self.colour_pathlength_cm
+                    .map_or("the measured pathlength".into(), |l| format!("{l} cm"))
+            ),
+        ]];
+        if let Some(t) = &self.target {
+            rows.push(["target".into(), t.display().to_string()]);
+            rows.push([
+                "tolerances".into(),
+                format!(
+                    "strength ±{} % (where the file gives none), ΔE00 {}",
+                    self.strength_tolerance_percent, self.max_delta_e
+                ),
+            ]);
+        }
+        if let Some(s) = &self.stock {
+            rows.push(["stock solutions".into(), s.display().to_string()]);
+        }
+        rows
     }
 
     /// Read the target and stock files against the fitted references;

@@ -12,6 +12,7 @@
 //! [`MAX_PLOT_POINTS`]; the numbers in the tables never are.
 
 pub mod plates;
+#[cfg(feature = "png")]
 pub mod png;
 pub mod qc;
 pub mod svg;
