@@ -12,6 +12,7 @@ pub mod diagnostic_args;
 pub mod discover;
 pub mod fit;
 pub mod library;
+pub mod qc_args;
 pub mod report;
 
 use clap::{Parser, Subcommand};

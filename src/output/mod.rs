@@ -4,6 +4,7 @@
 
 pub mod batch;
 pub mod notes;
+pub mod qc;
 
 use crate::fit::{FailedSample, FitReport, Outcome, SampleResult};
 use rayon::prelude::*;
@@ -371,6 +372,7 @@ pub fn write_table(report: &FitReport, w: &mut dyn Write) -> io::Result<()> {
         )?;
     }
     notes::write_notes(report, &unit, w)?;
+    qc::write_qc(report, &unit, w)?;
     if !errors.is_empty() {
         writeln!(w, "\nnot fitted:")?;
         for e in errors {
