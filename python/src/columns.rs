@@ -56,13 +56,21 @@ pub struct Interned {
     /// Distinct values in order of first use.
     pub values: Vec<String>,
     lookup: HashMap<String, i32>,
+    last: Option<(String, i32)>,
 }
 
 impl Interned {
     /// The index of `value`, added on first use. Fewer distinct values than
     /// rows, and rows fit in i32 (checked by the caller, `crate::fit_table`).
     fn id(&mut self, value: &str) -> i32 {
+        // Runs of one value (the solver, no flags) skip the hash.
+        if let Some((last, i)) = &self.last
+            && last.as_str() == value
+        {
+            return *i;
+        }
         if let Some(&i) = self.lookup.get(value) {
+            self.last = Some((value.to_string(), i));
             return i;
         }
         let i = self.values.len() as i32;
@@ -105,12 +113,14 @@ pub struct Columns {
 impl Columns {
     /// The columns of `outcomes`, whose first is input row `first_row`.
     pub fn from_outcomes(outcomes: &[Outcome], first_row: usize) -> Self {
-        let mut c = Columns {
-            floats: vec![Vec::new(); COMPONENT_FLOATS.len() + SAMPLE_FLOATS.len()],
-            counts: vec![Vec::new(); COUNTS.len()],
-            texts: (0..TEXTS.len()).map(|_| Interned::default()).collect(),
-            ..Columns::default()
-        };
+        let rows: usize = outcomes
+            .iter()
+            .map(|o| match o {
+                Outcome::Fitted(s) => s.components.len(),
+                Outcome::Failed(_) => 1,
+            })
+            .sum();
+        let mut c = Columns::with_capacity(rows);
         for (k, o) in outcomes.iter().enumerate() {
             let row = (first_row + k) as i64;
             match o {
@@ -167,6 +177,39 @@ impl Columns {
         }
     }
 
+    /// Empty columns with room for `rows` rows.
+    pub fn with_capacity(rows: usize) -> Self {
+        let n_floats = COMPONENT_FLOATS.len() + SAMPLE_FLOATS.len();
+        Columns {
+            sample: Vec::with_capacity(rows),
+            component: Vec::with_capacity(rows),
+            floats: (0..n_floats).map(|_| Vec::with_capacity(rows)).collect(),
+            counts: (0..COUNTS.len())
+                .map(|_| Vec::with_capacity(rows))
+                .collect(),
+            texts: (0..TEXTS.len())
+                .map(|_| Interned {
+                    index: Vec::with_capacity(rows),
+                    ..Interned::default()
+                })
+                .collect(),
+        }
+    }
+
+    /// Number of rows.
+    pub fn len(&self) -> usize {
+        self.sample.len()
+    }
+
+    /// The pieces' rows one after another (one allocation per column).
+    pub fn concat(pieces: Vec<Columns>) -> Columns {
+        let mut all = Columns::with_capacity(pieces.iter().map(Columns::len).sum());
+        for piece in pieces {
+            all.append(piece);
+        }
+        all
+    }
+
     /// Append another piece's rows after these.
     pub fn append(&mut self, other: Columns) {
         self.sample.extend(other.sample);
@@ -195,10 +238,10 @@ fn component_values(c: &ComponentResult) -> [Option<f64>; 6] {
 }
 
 fn sample_values(s: &SampleResult) -> [Option<f64>; 17] {
-    let d = s.diagnostics.as_ref();
-    let band = d.and_then(|d| d.band.as_ref());
     let best = s.screening.as_ref().and_then(|x| x.best.as_ref());
-    [
+    let checks = unblend::output::notes::check_numbers(s);
+    let mut v = [None; 17];
+    v[..7].copy_from_slice(&[
         s.baseline.offset_au,
         s.baseline.slope_au_per_nm,
         Some(s.residual_rms),
@@ -206,15 +249,9 @@ fn sample_values(s: &SampleResult) -> [Option<f64>; 17] {
         Some(s.range_nm[0]),
         Some(s.range_nm[1]),
         Some(s.pathlength_cm),
-        d.map(|d| d.noise_au),
-        d.and_then(|d| d.reduced_chi_squared),
-        d.and_then(|d| d.durbin_watson),
-        d.and_then(|d| d.alarm_p_value),
-        band.map(|b| b.centre_nm),
-        band.map(|b| b.fwhm_nm),
-        band.map(|b| b.peak_au),
-        band.map(|b| b.signal_fraction),
-        best.map(|b| b.concentration_mol_per_l),
-        best.map(|b| b.p_value),
-    ]
+    ]);
+    v[7..15].copy_from_slice(&checks);
+    v[15] = best.map(|b| b.concentration_mol_per_l);
+    v[16] = best.map(|b| b.p_value);
+    v
 }

@@ -182,15 +182,7 @@ fn fit_table(model: &Model, data: &[f64], wavelengths_nm: &[f64], pathlength_cm:
             Columns::from_outcomes(&outcomes, first)
         })
         .collect();
-    let mut table = Columns::default();
-    for piece in pieces {
-        if table.floats.is_empty() {
-            table = piece;
-        } else {
-            table.append(piece);
-        }
-    }
-    table
+    Columns::concat(pieces)
 }
 
 /// Fit spectra; returns a dict of columns, their text values, the
@@ -229,7 +221,7 @@ fn fit_columns<'py>(
     };
     let l = request.pathlength_cm;
     let table = if rows == 0 || n == 0 {
-        Columns::from_outcomes(&[], 0)
+        Columns::with_capacity(0)
     } else {
         py.detach(|| fit_table(&prepared.model, data, &wavelengths_nm, l))
     };

@@ -183,3 +183,16 @@ def test_command_runs_through_the_module(capfd):
     assert unblend.main(["fit", "--no-such-flag"]) == 2
     run = command("library", "list", "--library", str(pathlib.Path(__file__).parents[2] / "library"))
     assert run.returncode == 0 and "fjord-blue" in run.stdout
+
+
+def test_the_readme_example_runs(monkeypatch):
+    """The README's "From Python" example, as written, from the repository root."""
+    root = pathlib.Path(__file__).resolve().parents[2]
+    text = (root / "README.md").read_text()
+    section = text.split("## From Python", 1)[1].split("\n## ", 1)[0]
+    code = section.split("```python\n", 1)[1].split("```", 1)[0]
+    monkeypatch.chdir(root)
+    scope = {}
+    exec(compile(code, "README.md (From Python)", "exec"), scope)
+    assert set(scope["results"].columns) == set(unblend.COLUMNS)
+    assert scope["table"].num_rows == 2 * 19
