@@ -196,3 +196,18 @@ def test_the_readme_example_runs(monkeypatch):
     exec(compile(code, "README.md (From Python)", "exec"), scope)
     assert set(scope["results"].columns) == set(unblend.COLUMNS)
     assert scope["table"].num_rows == 2 * 19
+
+
+def test_json_lines_from_the_command_read_with_pandas(tmp_path, demo_csv, library_dir):
+    """`--format jsonl` read by pandas.read_json(lines=True), an outside JSON Lines reader."""
+    out = tmp_path / "r.jsonl"
+    run = command("fit", demo_csv, "--library", library_dir, "--format", "jsonl", "--out", str(out))
+    assert run.returncode == 0, run.stderr
+    lines = pd.read_json(out, lines=True)
+    table = unblend.fit(read_csv_exact(demo_csv), library=library_dir)
+    assert list(lines["sample"]) == list(dict.fromkeys(table["sample"].astype(str)))
+    first = lines["components"].iloc[0]
+    mine = table[table["sample"] == lines["sample"].iloc[0]]
+    assert [c["name"] for c in first] == list(mine["component"].astype(str))
+    # JSON numbers are written in shortest round-trip form: the same doubles.
+    assert [c["concentration_mol_per_l"] for c in first] == list(mine["concentration_mol_per_l"])

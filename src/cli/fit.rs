@@ -95,6 +95,8 @@ pub enum FormatArg {
     Csv,
     /// JSON document.
     Json,
+    /// JSON Lines: one JSON object per sample, streamed in input order.
+    Jsonl,
 }
 
 impl From<BaselineArg> for Baseline {
@@ -124,6 +126,7 @@ impl From<FormatArg> for Format {
             FormatArg::Table => Format::Table,
             FormatArg::Csv => Format::Csv,
             FormatArg::Json => Format::Json,
+            FormatArg::Jsonl => Format::JsonLines,
         }
     }
 }
@@ -215,14 +218,13 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             emit(&report, format, args.out.as_deref())?;
             Ok(exit_code(&report))
         }
-        Opened::Wide(mut stream) if format == Format::Csv => stream_csv(
-            &mut stream,
-            &refs,
-            &options,
-            &checks,
-            args.out.as_deref(),
-            &shown,
-        ),
+        Opened::Wide(mut stream) if matches!(format, Format::Csv | Format::JsonLines) => {
+            let out = StreamOut {
+                path: args.out.as_deref(),
+                format,
+            };
+            stream_rows(&mut stream, &refs, &options, &checks, out, &shown)
+        }
         Opened::Wide(mut stream) => {
             let mut outcomes = Vec::new();
             let warnings = fit_stream_with(&mut stream, &refs, &options, &checks, |chunk| {
@@ -421,20 +423,30 @@ fn run_info(args: &Args, shown: &str, library: &std::path::Path) -> output::RunI
 
 /// Fit a wide file chunk by chunk and write tidy CSV as it goes, so memory
 /// stays bounded for any number of spectra.
-fn stream_csv<R: Read + Send>(
+/// Where a streamed fit writes, and in which row format (tidy CSV or JSON
+/// Lines).
+struct StreamOut<'a> {
+    path: Option<&'a std::path::Path>,
+    format: Format,
+}
+
+fn stream_rows<R: Read + Send>(
     stream: &mut WideStream<R>,
     refs: &ReferenceSet,
     options: &FitOptions,
     checks: &crate::diagnostics::Options,
-    out: Option<&std::path::Path>,
+    out: StreamOut<'_>,
     shown: &str,
 ) -> Result<u8, Failure> {
+    let (format, out) = (out.format, out.path);
     let mut total = 0usize;
     let mut failed = 0usize;
     let mut engine_error: Option<crate::Error> = None;
     let mut warnings = Vec::new();
     let mut body = |w: &mut (dyn Write + Send)| -> std::io::Result<()> {
-        writeln!(w, "{}", output::CSV_HEADER)?;
+        if format == Format::Csv {
+            writeln!(w, "{}", output::CSV_HEADER)?;
+        }
         // Formatting runs here (in parallel); a writer thread does the I/O
         // so the next chunk's fit overlaps this chunk's write.
         std::thread::scope(|scope| {
@@ -456,7 +468,10 @@ fn stream_csv<R: Read + Send>(
                     .iter()
                     .filter(|o| matches!(o, Outcome::Failed(_)))
                     .count();
-                let parts = output::csv_row_parts(&chunk);
+                let parts = match format {
+                    Format::JsonLines => output::jsonl::line_parts(&chunk),
+                    _ => output::csv_row_parts(&chunk),
+                };
                 tx.send((parts, chunk))
                     .map_err(|_| std::io::Error::other("the output writer stopped"))
             });
