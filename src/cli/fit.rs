@@ -85,7 +85,9 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             emit(&report, format, args.out.as_deref())?;
             Ok(exit_code(&report))
         }
-        Opened::Wide(mut stream) if format == Format::Csv => stream_csv(&mut stream, &run),
+        Opened::Wide(mut stream) if matches!(format, Format::Csv | Format::JsonLines) => {
+            stream_rows(&mut stream, &run)
+        }
         Opened::Wide(mut stream) => fit_wide(&mut stream, &run),
     }
 }
@@ -368,9 +370,9 @@ fn run_info(args: &Args, shown: &str, library: &std::path::Path) -> output::RunI
     }
 }
 
-/// Fit a wide file chunk by chunk and write tidy CSV as it goes, so memory
-/// stays bounded for any number of spectra.
-fn stream_csv<R: Read + Send>(stream: &mut WideStream<R>, run: &FitRun) -> Result<u8, Failure> {
+/// Fit a wide file chunk by chunk and write tidy CSV or JSON Lines as it
+/// goes, so memory stays bounded for any number of spectra.
+fn stream_rows<R: Read + Send>(stream: &mut WideStream<R>, run: &FitRun) -> Result<u8, Failure> {
     let out = run.args.out.as_deref();
     let (refs, options, checks) = (&run.refs.set, &run.options, &run.checks);
     let mut total = 0usize;
@@ -378,7 +380,9 @@ fn stream_csv<R: Read + Send>(stream: &mut WideStream<R>, run: &FitRun) -> Resul
     let mut engine_error: Option<crate::Error> = None;
     let mut warnings = Vec::new();
     let mut body = |w: &mut (dyn Write + Send)| -> std::io::Result<()> {
-        writeln!(w, "{}", output::CSV_HEADER)?;
+        if run.format == Format::Csv {
+            writeln!(w, "{}", output::CSV_HEADER)?;
+        }
         // Formatting runs here (in parallel); a writer thread does the I/O
         // so the next chunk's fit overlaps this chunk's write.
         std::thread::scope(|scope| {
@@ -400,7 +404,10 @@ fn stream_csv<R: Read + Send>(stream: &mut WideStream<R>, run: &FitRun) -> Resul
                     .iter()
                     .filter(|o| matches!(o, Outcome::Failed(_)))
                     .count();
-                let parts = output::csv_row_parts(&chunk);
+                let parts = match run.format {
+                    Format::JsonLines => output::jsonl::line_parts(&chunk),
+                    _ => output::csv_row_parts(&chunk),
+                };
                 tx.send((parts, chunk))
                     .map_err(|_| std::io::Error::other("the output writer stopped"))
             });

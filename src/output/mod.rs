@@ -3,6 +3,7 @@
 //! always mol/L (mg/L beside them where the molar mass is known).
 
 pub mod batch;
+pub mod jsonl;
 pub mod notes;
 pub mod qc;
 
@@ -21,6 +22,8 @@ pub enum Format {
     Csv,
     /// JSON document.
     Json,
+    /// JSON Lines: one object per sample ([`jsonl`]).
+    JsonLines,
 }
 
 /// The JSON document written by `fit --format json`.
@@ -104,6 +107,7 @@ pub fn write(report: &FitReport, format: Format, w: &mut dyn Write) -> io::Resul
         Format::Table => write_table(report, w),
         Format::Csv => write_csv(report, w),
         Format::Json => write_json(&JsonReport::from_report(report), w),
+        Format::JsonLines => jsonl::write(report, w),
     }
 }
 
