@@ -77,6 +77,9 @@ pub struct Args {
     /// What the numbers in the inputs are.
     #[arg(long, value_enum, default_value_t = QuantityArg::Absorbance)]
     pub quantity: QuantityArg,
+    /// A word your instrument prints for a reading above its range (e.g. the word it shows for overflow); such readings are saturated points, masked. `>N` and `inf` are always read so. Repeat for several words.
+    #[arg(long = "overflow-marker", value_name = "TEXT")]
+    pub overflow_marker: Vec<String>,
     /// Significance level of the outlier tests (Grubbs, two-sided) on replicates and blanks.
     #[arg(long, default_value = "0.05", value_parser = parse_alpha, value_name = "ALPHA")]
     pub outlier_alpha: f64,
@@ -248,7 +251,10 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let spec = RunSpec {
         inputs: &args.inputs,
         map: map.as_ref(),
-        quantity: args.quantity.into(),
+        reading: crate::input::plate::Reading {
+            quantity: args.quantity.into(),
+            overflow_markers: crate::input::fields::OverflowMarkers::new(&args.overflow_marker),
+        },
         options: &options,
         bytes_read: &bytes_read,
     };

@@ -87,7 +87,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let file = spectra::read(
         &bytes,
         ReadOptions {
-            quantity: args.quantity.into(),
+            quantity: Some(args.quantity.into()),
             ..Default::default()
         },
     )

@@ -206,11 +206,11 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     };
     let ctx = |e: crate::Error| Failure::new(format!("{shown}: {e}"));
     let read_options = ReadOptions {
-        quantity: args.quantity.into(),
+        quantity: Some(args.quantity.into()),
         ..Default::default()
     };
     match spectra::open(reader, read_options).map_err(ctx)? {
-        Opened::Long(file) => {
+        Opened::Whole(file) => {
             let report = crate::fit::fit_file_with(&file, &refs, &options, &checks).map_err(ctx)?;
             emit(&report, format, args.out.as_deref())?;
             Ok(exit_code(&report))
@@ -280,7 +280,7 @@ fn run_with_curves(
     let ctx = |e: crate::Error| Failure::new(format!("{shown}: {e}"));
     let bytes = read_input(&args.input)?;
     let read_options = ReadOptions {
-        quantity: args.quantity.into(),
+        quantity: Some(args.quantity.into()),
         ..Default::default()
     };
     let file = spectra::read(&bytes, read_options).map_err(ctx)?;

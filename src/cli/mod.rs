@@ -10,6 +10,7 @@ pub mod demo;
 pub mod diagnostic_args;
 pub mod discover;
 pub mod fit;
+pub mod inputs;
 pub mod library;
 pub mod report;
 

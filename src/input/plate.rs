@@ -298,22 +298,53 @@ fn plain_decimal(raw: &[u8]) -> Option<f64> {
     Some(if negative { -v } else { v })
 }
 
+/// How plate readings are read: what the numbers measure and which words
+/// mark a reading above the instrument's range.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct Reading {
+    /// What the numbers measure.
+    pub quantity: Quantity,
+    /// The user's overflow words besides `>N` and `inf`.
+    pub overflow_markers: fields::OverflowMarkers,
+}
+
+impl From<Quantity> for Reading {
+    fn from(quantity: Quantity) -> Self {
+        Reading {
+            quantity,
+            overflow_markers: fields::OverflowMarkers::default(),
+        }
+    }
+}
+
+impl Reading {
+    /// The options to read spectra of wells with (overflow markers as
+    /// saturated points).
+    pub fn read_options(&self) -> super::spectra::ReadOptions {
+        super::spectra::ReadOptions {
+            quantity: Some(self.quantity),
+            overflow_as_saturated: true,
+            overflow_markers: self.overflow_markers.clone(),
+            fallback_name: None,
+        }
+    }
+}
+
 /// Read one cell: a number, an overflow marker, empty, or an error message.
-fn cell(raw: &[u8], decimal_comma: bool, quantity: Quantity) -> std::result::Result<Cell, String> {
+fn cell(raw: &[u8], decimal_comma: bool, reading: &Reading) -> std::result::Result<Cell, String> {
+    let quantity = reading.quantity;
     if quantity == Quantity::Absorbance
         && let Some(v) = plain_decimal(raw)
     {
         return Ok(Cell::Value(v));
     }
     let expected = || {
-        format!(
-            "{} or an overflow marker (a word such as OVER, or >4)",
-            match quantity {
-                Quantity::Transmittance => "a transmittance fraction",
-                Quantity::TransmittancePercent => "a transmittance percentage",
-                _ => "an absorbance",
-            }
-        )
+        let noun = match quantity {
+            Quantity::Transmittance => "a transmittance fraction",
+            Quantity::TransmittancePercent => "a transmittance percentage",
+            _ => "an absorbance",
+        };
+        fields::reading_expected(noun, true, raw)
     };
     match fields::number(raw, decimal_comma) {
         Ok(v) => quantity
@@ -326,7 +357,7 @@ fn cell(raw: &[u8], decimal_comma: bool, quantity: Quantity) -> std::result::Res
             if t.trim().eq_ignore_ascii_case("nan") {
                 return Err(format!("{} (NaN is not a reading)", expected()));
             }
-            if fields::is_overflow_marker(raw, decimal_comma) {
+            if reading.overflow_markers.matches(raw, decimal_comma) {
                 Ok(Cell::Saturated)
             } else {
                 Err(expected())
@@ -447,8 +478,9 @@ pub fn parse_grid(
     text: &[u8],
     first_line: usize,
     name: &str,
-    quantity: Quantity,
+    reading: &Reading,
 ) -> Result<PlateSpectra> {
+    let quantity = reading.quantity;
     let mut blocks: Vec<GridBlock> = Vec::new();
     let mut lines = fields::lines(text)
         .map(|(n, l)| (n + first_line - 1, l))
@@ -600,7 +632,7 @@ pub fn parse_grid(
                     break; // short row: the remaining wells have no reading
                 };
                 let slot = row * MAX_COLUMNS + c;
-                let value = match cell(raw, decimal_comma, quantity) {
+                let value = match cell(raw, decimal_comma, reading) {
                     Ok(Cell::Value(v)) => {
                         read[slot] = true;
                         v
@@ -758,7 +790,7 @@ mod tests {
     use super::*;
 
     fn parse(text: &str) -> Result<PlateSpectra> {
-        parse_grid(text.as_bytes(), 1, "p", Quantity::Absorbance)
+        parse_grid(text.as_bytes(), 1, "p", &Reading::default())
     }
 
     #[test]
@@ -803,14 +835,22 @@ mod tests {
     }
 
     #[test]
-    fn overflow_words_become_saturated_points() {
-        let text = "wavelength_nm=400\n,1,2,3,4\nA,OVER,>4,Sat.,****\nwavelength_nm=410\n,1,2,3,4\nA,1,1,1,1\n";
-        let p = parse(text).unwrap();
+    fn generic_and_user_named_overflow_markers_become_saturated_points() {
+        let text = "wavelength_nm=400\n,1,2,3,4\nA,Too High,>4,inf,0.5\nwavelength_nm=410\n,1,2,3,4\nA,1,1,1,1\n";
+        let reading = Reading {
+            quantity: Quantity::Absorbance,
+            overflow_markers: fields::OverflowMarkers::new(&["too high"]),
+        };
+        let p = parse_grid(text.as_bytes(), 1, "p", &reading).unwrap();
         assert_eq!(p.wells.len(), 4);
-        for i in 0..4 {
+        for i in 0..3 {
             assert!(p.row(i)[0].is_infinite(), "well {i}");
             assert!((p.row(i)[1] - 1.0).abs() < 1e-12);
         }
+        // Without the user's word it is an error naming the cell and the option.
+        let p = parse(text).unwrap();
+        let e = p.failures[0].error.to_string();
+        assert!(e.starts_with("line 3, column 2 ('Too High')") && e.contains("--overflow-marker"), "{e}");
     }
 
     #[test]
