@@ -2,11 +2,11 @@
 //! flagged samples of a batch share.
 
 use super::diagnostic_args::DiagnosticArgs;
-use super::fit::{BaselineArg, QuantityArg, read_input};
+use super::fit::{BaselineArg, QuantityArg};
+use super::inputs;
 use super::{Failure, exit, library_dir, parse_positive, parse_range_nm};
 use crate::discover::{self, DiscoverOptions, Discovery};
 use crate::fit::FitOptions;
-use crate::input::spectra::{self, ReadOptions};
 use crate::reference::Library;
 use clap::ValueEnum;
 use std::io::Write;
@@ -17,8 +17,9 @@ use std::path::PathBuf;
 #[derive(Debug, clap::Args)]
 #[command(after_help = super::AFTER_HELP)]
 pub struct Args {
-    /// Spectra CSV (as for `fit`); `-` reads standard input.
-    pub input: PathBuf,
+    /// Spectra files or folders, in any shape `fit` reads; `-` reads standard input.
+    #[arg(required = true, value_name = "INPUT")]
+    pub inputs: Vec<PathBuf>,
     /// Where to write the recovered spectrum: CSV `wavelength_nm,epsilon`, ready for `library add`.
     #[arg(long, value_name = "FILE.csv")]
     pub out: PathBuf,
@@ -37,9 +38,9 @@ pub struct Args {
     /// Wavelength window LO:HI in nm [default: all wavelengths the sample and every reference cover].
     #[arg(long, value_parser = parse_range_nm, value_name = "LO:HI")]
     pub range_nm: Option<(f64, f64)>,
-    /// What the numbers in INPUT are.
-    #[arg(long, value_enum, default_value_t = QuantityArg::Absorbance)]
-    pub quantity: QuantityArg,
+    /// What the numbers in INPUT are [default: what the file says (a value heading, a units/mode metadata line, ##YUNITS), else absorbance]. Given, it wins over the file, with a warning when they differ.
+    #[arg(long, value_enum)]
+    pub quantity: Option<QuantityArg>,
     /// Peak ε given to the recovered spectrum, L/(mol·cm) (the true scale cannot be known from mixtures).
     #[arg(long, default_value_t = discover::DEFAULT_PEAK_EPSILON, value_parser = parse_positive, value_name = "L_PER_MOL_CM")]
     pub peak_epsilon: f64,
@@ -78,20 +79,10 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         window_nm: args.range_nm,
         pathlength_cm: args.pathlength_cm,
     };
-    let shown = if args.input.as_os_str() == "-" {
-        "standard input".to_string()
-    } else {
-        args.input.display().to_string()
-    };
-    let bytes = read_input(&args.input)?;
-    let file = spectra::read(
-        &bytes,
-        ReadOptions {
-            quantity: Some(args.quantity.into()),
-            ..Default::default()
-        },
-    )
-    .map_err(|e| Failure::new(format!("{shown}: {e}")))?;
+    let file = inputs::read_all(&args.inputs, args.quantity.map(Into::into))?;
+    for w in &file.warnings {
+        eprintln!("unblend: warning: {w}");
+    }
     let library = Library::open(&library_dir(args.library.clone()))?;
     let refs = library.select(&args.components)?;
     let found = discover::discover(

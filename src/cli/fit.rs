@@ -1,9 +1,9 @@
 //! `unblend fit`: fit spectra against reference components.
 
 use super::diagnostic_args::DiagnosticArgs;
-use super::{Failure, exit, library_dir, parse_positive, parse_range_nm};
+use super::{Failure, exit, inputs, library_dir, parse_positive, parse_range_nm};
 use crate::fit::{FitOptions, FitReport, Outcome, StreamError, fit_stream_with};
-use crate::input::spectra::{self, Opened, Quantity, ReadOptions, WideStream};
+use crate::input::spectra::{self, Opened, Quantity, WideStream};
 use crate::output::{self, Format};
 use crate::preprocess::Baseline;
 use crate::reference::{Library, ReferenceSet};
@@ -15,9 +15,9 @@ use std::path::PathBuf;
 #[derive(Debug, clap::Args)]
 #[command(after_help = super::AFTER_HELP)]
 pub struct Args {
-    /// Spectra CSV (wide `sample,<nm>,<nm>,...` or long
-    /// `sample,wavelength_nm,absorbance`); `-` reads standard input.
-    pub input: PathBuf,
+    /// Spectra files or folders (a folder means its files of known kinds), in any shape the README's "Input shapes" lists: CSV/TSV tables (wide, long, wavelengths down, one spectrum), JCAMP-DX, .xlsx/.ods workbooks; `-` reads standard input.
+    #[arg(required = true, value_name = "INPUT")]
+    pub inputs: Vec<PathBuf>,
     /// Library folder of component files [default: $UNBLEND_LIBRARY or ./library].
     #[arg(long, value_name = "DIR")]
     pub library: Option<PathBuf>,
@@ -33,9 +33,9 @@ pub struct Args {
     /// Wavelength window LO:HI in nm [default: all wavelengths the sample and every reference cover].
     #[arg(long, value_parser = parse_range_nm, value_name = "LO:HI")]
     pub range_nm: Option<(f64, f64)>,
-    /// What the numbers in INPUT are.
-    #[arg(long, value_enum, default_value_t = QuantityArg::Absorbance)]
-    pub quantity: QuantityArg,
+    /// What the numbers in INPUT are [default: what the file says (a value heading, a units/mode metadata line, ##YUNITS), else absorbance]. Given, it wins over the file, with a warning when they differ.
+    #[arg(long, value_enum)]
+    pub quantity: Option<QuantityArg>,
     /// Output format.
     #[arg(long, value_enum, default_value_t = FormatArg::Table)]
     pub format: FormatArg,
@@ -143,11 +143,13 @@ impl TryFrom<&Args> for FitOptions {
 pub fn run(args: Args) -> Result<u8, Failure> {
     let options = FitOptions::try_from(&args)?;
     let format: Format = args.format.into();
-    let shown = if args.input.as_os_str() == "-" {
-        "standard input".to_string()
-    } else {
-        args.input.display().to_string()
-    };
+    let quantity = args.quantity.map(Quantity::from);
+    let shown = args
+        .inputs
+        .iter()
+        .map(|p| inputs::shown(p))
+        .collect::<Vec<_>>()
+        .join(", ");
     let dir = library_dir(args.library.clone());
     let library_dir_shown = dir.clone();
     let library = Library::open(&dir)?;
@@ -197,21 +199,33 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             &library_dir_shown,
         );
     }
-    let reader: Box<dyn Read + Send> = if args.input.as_os_str() == "-" {
+    let ctx = |e: crate::Error| Failure::new(format!("{shown}: {e}"));
+    let single = match args.inputs.as_slice() {
+        [one] if !one.is_dir() => one,
+        _ => {
+            let file = inputs::read_all(&args.inputs, quantity)?;
+            let report = fit_whole(&file, &refs, &options, &checks, &ctx)?;
+            emit(&report, format, args.out.as_deref())?;
+            return Ok(exit_code(&report));
+        }
+    };
+    let reader: Box<dyn Read + Send> = if single.as_os_str() == "-" {
         Box::new(std::io::stdin())
     } else {
-        Box::new(
-            std::fs::File::open(&args.input).map_err(|e| Failure::new(format!("{shown}: {e}")))?,
-        )
+        Box::new(std::fs::File::open(single).map_err(|e| Failure::new(format!("{shown}: {e}")))?)
     };
-    let ctx = |e: crate::Error| Failure::new(format!("{shown}: {e}"));
-    let read_options = ReadOptions {
-        quantity: Some(args.quantity.into()),
-        ..Default::default()
-    };
+    let read_options = inputs::options_for(single, quantity, &Default::default());
     match spectra::open(reader, read_options).map_err(ctx)? {
         Opened::Whole(file) => {
-            let report = crate::fit::fit_file_with(&file, &refs, &options, &checks).map_err(ctx)?;
+            let report = fit_whole(&file, &refs, &options, &checks, &ctx)?;
+            emit(&report, format, args.out.as_deref())?;
+            Ok(exit_code(&report))
+        }
+        Opened::Wide(stream) if !stream.warnings().is_empty() => {
+            // Rare (values that look like transmittance): read whole so the
+            // warning travels with the report.
+            let file = spectra::collect(stream).map_err(ctx)?;
+            let report = fit_whole(&file, &refs, &options, &checks, &ctx)?;
             emit(&report, format, args.out.as_deref())?;
             Ok(exit_code(&report))
         }
@@ -242,6 +256,20 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             Ok(exit_code(&report))
         }
     }
+}
+
+/// Fit spectra read whole; the file's warnings (quantity, missing
+/// readings, sheets passed over) come first among the report's.
+fn fit_whole(
+    file: &crate::input::spectra::SpectraFile,
+    refs: &ReferenceSet,
+    options: &FitOptions,
+    checks: &crate::diagnostics::Options,
+    ctx: &dyn Fn(crate::Error) -> Failure,
+) -> Result<FitReport, Failure> {
+    let mut report = crate::fit::fit_file_with(file, refs, options, checks).map_err(ctx)?;
+    report.warnings.splice(0..0, file.warnings.iter().cloned());
+    Ok(report)
 }
 
 /// Pixels per SVG pixel in a PNG figure (sharp on high-density screens and
@@ -278,13 +306,8 @@ fn run_with_curves(
     library: &std::path::Path,
 ) -> Result<u8, Failure> {
     let ctx = |e: crate::Error| Failure::new(format!("{shown}: {e}"));
-    let bytes = read_input(&args.input)?;
-    let read_options = ReadOptions {
-        quantity: Some(args.quantity.into()),
-        ..Default::default()
-    };
-    let file = spectra::read(&bytes, read_options).map_err(ctx)?;
-    let report = crate::fit::fit_file_with(&file, refs, options, checks).map_err(ctx)?;
+    let file = inputs::read_all(&args.inputs, args.quantity.map(Quantity::from))?;
+    let report = fit_whole(&file, refs, options, checks, &ctx)?;
     let curves = crate::curves::for_file(&file, refs, options, &report);
     let mut doc = output::JsonReport::from_report(&report);
     doc.run = Some(run_info(args, shown, library));
@@ -386,7 +409,10 @@ fn run_info(args: &Args, shown: &str, library: &std::path::Path) -> output::RunI
         ],
         [
             "input quantity".to_string(),
-            format!("{:?}", args.quantity).to_lowercase(),
+            args.quantity
+                .map_or("as each file says, else absorbance".into(), |q| {
+                    format!("{q:?}").to_lowercase()
+                }),
         ],
     ];
     let checks = args.checks.options();

@@ -79,14 +79,42 @@ pub fn options_for(
     }
 }
 
+/// Every input read whole, for provenance as well as fitting.
+pub struct ReadInputs {
+    /// The spectra of all files, in input order.
+    pub file: SpectraFile,
+    /// The files' names (no folders), in input order.
+    pub names: Vec<String>,
+    /// SHA-256 of the files' bytes, one after another in input order.
+    pub sha256: Vec<u8>,
+}
+
 /// Read every input whole into one file of spectra, in input order. The
 /// files' warnings come back prefixed with their path.
 pub fn read_all(inputs: &[PathBuf], quantity: Option<Quantity>) -> Result<SpectraFile, Failure> {
+    read_all_with_provenance(inputs, quantity).map(|r| r.file)
+}
+
+/// [`read_all`], with the files' names and checksum.
+pub fn read_all_with_provenance(
+    inputs: &[PathBuf],
+    quantity: Option<Quantity>,
+) -> Result<ReadInputs, Failure> {
+    use sha2::Digest;
     let files = expand(inputs)?;
     let mut all: Option<SpectraFile> = None;
+    let mut hasher = sha2::Sha256::new();
+    let mut names = Vec::new();
     for path in &files {
         let shown = shown(path);
         let bytes = read_bytes(path)?;
+        hasher.update(&bytes);
+        names.push(if path.as_os_str() == "-" {
+            shown.clone()
+        } else {
+            path.file_name()
+                .map_or(shown.clone(), |n| n.to_string_lossy().into_owned())
+        });
         let options = options_for(path, quantity, &OverflowMarkers::default());
         let mut file =
             spectra::read(&bytes, options).map_err(|e| Failure::new(format!("{shown}: {e}")))?;
@@ -104,7 +132,14 @@ pub fn read_all(inputs: &[PathBuf], quantity: Option<Quantity>) -> Result<Spectr
             None => all = Some(file),
         }
     }
-    all.ok_or_else(|| Failure::new("no input given: expected one or more spectra files or folders"))
+    let file = all.ok_or_else(|| {
+        Failure::new("no input given: expected one or more spectra files or folders")
+    })?;
+    Ok(ReadInputs {
+        file,
+        names,
+        sha256: hasher.finalize().to_vec(),
+    })
 }
 
 /// The bytes of a file, or of standard input for `-`.

@@ -273,24 +273,38 @@ fn abscissae(block: &BlockText, n: usize) -> Result<Vec<f64>> {
     Ok((0..n).map(|i| first + step * i as f64).collect())
 }
 
-/// `x, y` pairs of an `(XY..XY)` line (pairs separated by `;` or spaces).
+/// `x, y` pairs of an `(XY..XY)` line: numbers separated by commas,
+/// semicolons or spaces, taken two at a time; `?` is a missing ordinate.
 fn pairs(line_no: usize, line: &str) -> Result<Vec<(f64, Option<f64>)>> {
-    let mut out = Vec::new();
-    for pair in line
-        .split([';', ' ', '\t'])
-        .filter(|p| !p.trim().is_empty())
-    {
-        let (x, y) = pair
-            .split_once(',')
-            .ok_or_else(|| Error::parse(line_no, 1, pair.as_bytes(), "an `x, y` pair"))?;
-        let x: f64 = x
-            .trim()
-            .parse()
-            .map_err(|_| Error::parse(line_no, 1, x.as_bytes(), "an abscissa (a number)"))?;
-        let y = match y.trim() {
+    let cells: Vec<&str> = line
+        .split([',', ';', ' ', '\t'])
+        .filter(|c| !c.is_empty())
+        .collect();
+    if cells.len() % 2 == 1 {
+        return Err(Error::structure(
+            line_no,
+            format!("{} numbers: expected `x, y` pairs", cells.len()),
+        ));
+    }
+    let mut out = Vec::with_capacity(cells.len() / 2);
+    for (k, pair) in cells.chunks(2).enumerate() {
+        let x: f64 = pair[0].parse().map_err(|_| {
+            Error::parse(
+                line_no,
+                2 * k + 1,
+                pair[0].as_bytes(),
+                "an abscissa (a number)",
+            )
+        })?;
+        let y = match pair[1] {
             "?" => None,
             y => Some(y.parse::<f64>().map_err(|_| {
-                Error::parse(line_no, 2, y.as_bytes(), "an ordinate (a number or ?)")
+                Error::parse(
+                    line_no,
+                    2 * k + 2,
+                    y.as_bytes(),
+                    "an ordinate (a number or ?)",
+                )
             })?),
         };
         out.push((x, y));

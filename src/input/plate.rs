@@ -850,7 +850,10 @@ mod tests {
         // Without the user's word it is an error naming the cell and the option.
         let p = parse(text).unwrap();
         let e = p.failures[0].error.to_string();
-        assert!(e.starts_with("line 3, column 2 ('Too High')") && e.contains("--overflow-marker"), "{e}");
+        assert!(
+            e.starts_with("line 3, column 2 ('Too High')") && e.contains("--overflow-marker"),
+            "{e}"
+        );
     }
 
     #[test]

@@ -192,6 +192,19 @@ pub fn shape_name(shape: &Shape) -> &'static str {
     }
 }
 
+/// When a row looks like a wide header (a name, then mostly wavelengths)
+/// but one cell is not a wavelength: that cell's column and text.
+pub fn bad_wide_header_cell<'a>(row: &Row<'a>, decimal_comma: bool) -> Option<(usize, &'a [u8])> {
+    let c = &row.cells;
+    if c.len() < 3 || is_number(c[0], decimal_comma) {
+        return None;
+    }
+    let bad: Vec<usize> = (1..c.len())
+        .filter(|&i| header_wavelength(c[i], decimal_comma).is_none())
+        .collect();
+    (!bad.is_empty() && bad.len() * 2 <= c.len() - 1).then(|| (bad[0] + 1, c[bad[0]]))
+}
+
 /// Find the table that reads the most numbers: every row is tried as a
 /// header, and the rows after it that fit its shape form its table (a row
 /// that does not fit ends it). Earlier headers win ties. `Err` holds the

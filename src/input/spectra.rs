@@ -186,7 +186,7 @@ pub fn read(bytes: &[u8], options: ReadOptions) -> Result<SpectraFile> {
     match open(bytes, options.clone())? {
         Opened::Whole(file) => Ok(file),
         Opened::Wide(stream) => {
-            let file = collect_wide(stream)?;
+            let file = collect(stream)?;
             if file
                 .failures
                 .iter()
@@ -206,8 +206,8 @@ pub fn fails_on_missing_reading(error: &Error) -> bool {
     matches!(error, Error::Parse { value, .. } if fields::is_missing_reading(value.as_bytes()))
 }
 
-/// Read every chunk of a wide stream into one block.
-fn collect_wide<R: Read>(mut stream: WideStream<R>) -> Result<SpectraFile> {
+/// Read every chunk of a wide stream into one block (its warnings kept).
+pub fn collect<R: Read>(mut stream: WideStream<R>) -> Result<SpectraFile> {
     let grid = stream.grid().clone();
     let delimiter = stream.header.delimiter;
     let mut block = Block {

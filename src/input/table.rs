@@ -110,8 +110,21 @@ fn layout_of(shape: &Shape) -> Layout {
 fn locate<'a>(lines: &'a [(usize, &'a [u8])]) -> Result<(Delimiter, Vec<Row<'a>>, Found)> {
     let mut best: Option<(Delimiter, Vec<Row>, Found)> = None;
     let mut miss = None;
+    let mut bad_header = None;
     for delimiter in [Delimiter::Tab, Delimiter::Semicolon, Delimiter::Comma] {
         let rows = shape::rows(lines, delimiter.byte());
+        if bad_header.is_none()
+            && let Some(first) = rows.first()
+            && let Some((column, raw)) =
+                shape::bad_wide_header_cell(first, delimiter.allows_decimal_comma())
+        {
+            bad_header = Some(Error::parse(
+                first.line_no,
+                column,
+                raw,
+                "a wavelength in nm in the header of a wide-layout file (or `sample,wavelength_nm,absorbance` for the long layout)",
+            ));
+        }
         match shape::find(&rows, delimiter.allows_decimal_comma()) {
             Ok(f) if best.as_ref().is_none_or(|b| f.score > b.2.score) => {
                 best = Some((delimiter, rows, f));
@@ -119,6 +132,9 @@ fn locate<'a>(lines: &'a [(usize, &'a [u8])]) -> Result<(Delimiter, Vec<Row<'a>>
             Ok(_) => {}
             Err(m) => miss = miss.or(m),
         }
+    }
+    if let Some(e) = bad_header.filter(|_| best.is_none()) {
+        return Err(e);
     }
     best.ok_or_else(|| match miss {
         Some(m) => Error::structure(
