@@ -202,7 +202,7 @@ pub fn bad_wide_header_cell<'a>(row: &Row<'a>, decimal_comma: bool) -> Option<(u
     let bad: Vec<usize> = (1..c.len())
         .filter(|&i| header_wavelength(c[i], decimal_comma).is_none())
         .collect();
-    (!bad.is_empty() && bad.len() * 2 <= c.len() - 1).then(|| (bad[0] + 1, c[bad[0]]))
+    (!bad.is_empty() && bad.len() * 2 < c.len()).then(|| (bad[0] + 1, c[bad[0]]))
 }
 
 /// Find the table that reads the most numbers: every row is tried as a
