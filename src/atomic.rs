@@ -6,8 +6,8 @@
 //! the old file or the new one, never half of one.
 //!
 //! Temporaries still open are recorded, so that an interrupted run (Ctrl-C,
-//! SIGINT or SIGTERM; see [`exit_removing_temporaries`]) removes them before it
-//! exits instead of leaving `.NAME.tmp-…` files beside the outputs.
+//! SIGINT or SIGTERM; see [`remove_temporaries_for_exit`]) removes them before
+//! the program exits instead of leaving `.NAME.tmp-…` files beside the outputs.
 
 use crate::error::{Error, Result};
 use std::fs::{self, File};
@@ -33,17 +33,19 @@ fn close_temp(tmp: &Path) {
     }
 }
 
-/// Remove every temporary file this process has open and exit with `code`,
-/// for a run that is being interrupted. The targets are untouched: they keep
-/// their previous content (or stay absent). The list stays locked until the
-/// process ends, so no writer can record a new temporary meanwhile.
-pub fn exit_removing_temporaries(code: i32) -> ! {
+/// Remove every temporary file this process has open, for a run that is
+/// being interrupted; the caller (the program, never the library) then exits.
+/// The targets are untouched: they keep their previous content (or stay
+/// absent). The list stays locked from here on, so no writer can record a
+/// new temporary before the process ends.
+pub fn remove_temporaries_for_exit() {
     // A poisoned lock still holds the list; the paths are what matters.
     let open = OPEN.lock().unwrap_or_else(|p| p.into_inner());
     for p in open.iter() {
         let _ = fs::remove_file(p);
     }
-    std::process::exit(code)
+    // Keep the lock held until the process exits.
+    std::mem::forget(open);
 }
 
 /// Where a write to `target` goes.

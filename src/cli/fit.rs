@@ -1,15 +1,16 @@
 //! `unblend fit`: fit spectra against reference components.
 
+use super::common::{
+    FormatArg, ModelArgs, References, code_for, emit, exit_code, screening_candidates, shown,
+    summary,
+};
 use super::diagnostic_args::DiagnosticArgs;
-use super::{Failure, exit, inputs, library_dir, parse_positive, parse_range_nm};
+use super::{Failure, inputs};
 use crate::fit::{FitOptions, FitReport, Outcome, StreamError, fit_stream_with};
-use crate::input::spectra::{self, Opened, Quantity, WideStream};
+use crate::input::spectra::{self, Opened, WideStream};
 use crate::output::{self, Format};
-use crate::preprocess::Baseline;
-use crate::reference::{Library, ReferenceSet};
-use clap::ValueEnum;
 use std::io::{Read, Write};
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 
 /// Fit each spectrum as A(λ) = l·Σ εᵢ(λ)·cᵢ + baseline(λ) with cᵢ ≥ 0.
 #[derive(Debug, clap::Args)]
@@ -18,24 +19,9 @@ pub struct Args {
     /// Spectra files or folders (a folder means its files of known kinds), in any shape the README's "Input shapes" lists: CSV/TSV tables (wide, long, wavelengths down, one spectrum), JCAMP-DX, .xlsx/.ods workbooks; `-` reads standard input.
     #[arg(required = true, value_name = "INPUT")]
     pub inputs: Vec<PathBuf>,
-    /// Library folder of component files [default: $UNBLEND_LIBRARY or ./library].
-    #[arg(long, value_name = "DIR")]
-    pub library: Option<PathBuf>,
-    /// Components to fit, comma separated [default: every component in the library].
-    #[arg(long, value_delimiter = ',', value_name = "NAMES")]
-    pub components: Vec<String>,
-    /// Optical pathlength in cm.
-    #[arg(long, default_value = "1", value_parser = parse_positive, value_name = "CM")]
-    pub pathlength_cm: f64,
-    /// Baseline terms fitted beside the components (free in sign): offset in AU, slope in AU/nm.
-    #[arg(long, value_enum, default_value_t = BaselineArg::Offset)]
-    pub baseline: BaselineArg,
-    /// Wavelength window LO:HI in nm [default: all wavelengths the sample and every reference cover].
-    #[arg(long, value_parser = parse_range_nm, value_name = "LO:HI")]
-    pub range_nm: Option<(f64, f64)>,
-    /// What the numbers in INPUT are [default: what the file says (a value heading, a units/mode metadata line, ##YUNITS), else absorbance]. Given, it wins over the file, with a warning when they differ.
-    #[arg(long, value_enum)]
-    pub quantity: Option<QuantityArg>,
+    /// The references and the model fitted.
+    #[command(flatten)]
+    pub model: ModelArgs,
     /// Output format.
     #[arg(long, value_enum, default_value_t = FormatArg::Table)]
     pub format: FormatArg,
@@ -62,119 +48,116 @@ pub struct Args {
     pub with_curves: bool,
 }
 
-/// `--baseline` values.
-#[derive(Debug, Clone, Copy, ValueEnum)]
-pub enum BaselineArg {
-    /// No baseline term.
-    None,
-    /// Constant offset (AU).
-    Offset,
-    /// Offset (AU) and slope (AU/nm).
-    Linear,
-}
-
-/// `--quantity` values.
-#[derive(Debug, Clone, Copy, ValueEnum)]
-pub enum QuantityArg {
-    /// Decadic absorbance, AU (−log10 T).
-    Absorbance,
-    /// Napierian absorbance (−ln T), converted to decadic.
-    AbsorbanceLn,
-    /// Transmittance as a fraction 0–1.
-    Transmittance,
-    /// Transmittance in percent 0–100.
-    TransmittancePercent,
-}
-
-/// `--format` values.
-#[derive(Debug, Clone, Copy, ValueEnum)]
-pub enum FormatArg {
-    /// Aligned table for the terminal.
-    Table,
-    /// Tidy CSV, one row per sample and component.
-    Csv,
-    /// JSON document.
-    Json,
-}
-
-impl From<BaselineArg> for Baseline {
-    fn from(b: BaselineArg) -> Self {
-        match b {
-            BaselineArg::None => Baseline::None,
-            BaselineArg::Offset => Baseline::Offset,
-            BaselineArg::Linear => Baseline::Linear,
-        }
-    }
-}
-
-impl From<QuantityArg> for Quantity {
-    fn from(q: QuantityArg) -> Self {
-        match q {
-            QuantityArg::Absorbance => Quantity::Absorbance,
-            QuantityArg::AbsorbanceLn => Quantity::AbsorbanceNatural,
-            QuantityArg::Transmittance => Quantity::Transmittance,
-            QuantityArg::TransmittancePercent => Quantity::TransmittancePercent,
-        }
-    }
-}
-
-impl From<FormatArg> for Format {
-    fn from(f: FormatArg) -> Self {
-        match f {
-            FormatArg::Table => Format::Table,
-            FormatArg::Csv => Format::Csv,
-            FormatArg::Json => Format::Json,
-        }
-    }
-}
-
-impl TryFrom<&Args> for FitOptions {
-    type Error = Failure;
-    fn try_from(a: &Args) -> Result<Self, Failure> {
-        Ok(FitOptions {
-            baseline: a.baseline.into(),
-            window_nm: a.range_nm,
-            pathlength_cm: a.pathlength_cm,
-        })
-    }
-}
-
 /// Run `unblend fit`.
 pub fn run(args: Args) -> Result<u8, Failure> {
-    let options = FitOptions::try_from(&args)?;
+    let options = FitOptions::try_from(&args.model)?;
     let format: Format = args.format.into();
-    let quantity = args.quantity.map(Quantity::from);
-    let shown = args
-        .inputs
-        .iter()
-        .map(|p| inputs::shown(p))
-        .collect::<Vec<_>>()
-        .join(", ");
-    let dir = library_dir(args.library.clone());
-    let library_dir_shown = dir.clone();
-    let library = Library::open(&dir)?;
-    let refs = library.select(&args.components)?;
+    let refs = args.model.references()?;
+    let checks = checks(&args)?;
+    check_outputs(&args, format)?;
+    let run = FitRun {
+        args: &args,
+        refs: &refs,
+        options,
+        checks,
+        format,
+        shown: args
+            .inputs
+            .iter()
+            .map(|p| shown(p))
+            .collect::<Vec<_>>()
+            .join(", "),
+    };
+    let single = match args.inputs.as_slice() {
+        [one] if !one.is_dir() => one,
+        _ => {
+            return fit_whole(
+                &inputs::read_all(&args.inputs, args.model.read_options().quantity)?,
+                &run,
+            );
+        }
+    };
+    if args.report.is_some() || args.plot.is_some() || args.with_curves {
+        return run_with_curves(&run);
+    }
+    let reader: Box<dyn Read + Send> = if single.as_os_str() == "-" {
+        Box::new(std::io::stdin())
+    } else {
+        Box::new(
+            std::fs::File::open(single).map_err(|e| Failure::new(format!("{}: {e}", run.shown)))?,
+        )
+    };
+    let read_options = inputs::options_for(
+        single,
+        args.model.read_options().quantity,
+        &Default::default(),
+    );
+    match spectra::open(reader, read_options).map_err(|e| run.context(e))? {
+        Opened::Whole(file) => fit_whole(&file, &run),
+        // Values that look like transmittance (rare): read whole so the
+        // warning travels with the report.
+        Opened::Wide(stream) if !stream.warnings().is_empty() => {
+            fit_whole(&spectra::collect(stream).map_err(|e| run.context(e))?, &run)
+        }
+        Opened::Wide(mut stream) if format == Format::Csv => stream_csv(&mut stream, &run),
+        Opened::Wide(mut stream) => fit_wide(&mut stream, &run),
+    }
+}
+
+/// Fit spectra read whole; the file's warnings (quantity, missing readings,
+/// sheets passed over) come first among the report's. With `--report`,
+/// `--plot` or `--with-curves`, the curves are kept as well.
+fn fit_whole(file: &spectra::SpectraFile, run: &FitRun) -> Result<u8, Failure> {
+    let args = run.args;
+    if args.report.is_some() || args.plot.is_some() || args.with_curves {
+        return curves_for(file, run);
+    }
+    let report = fit_file(file, run)?;
+    emit(&report, run.format, args.out.as_deref())?;
+    Ok(exit_code(&report))
+}
+
+/// Fit a file read whole, its warnings first among the report's.
+fn fit_file(file: &spectra::SpectraFile, run: &FitRun) -> Result<FitReport, Failure> {
+    let mut report = crate::fit::fit_file_with(file, &run.refs.set, &run.options, &run.checks)
+        .map_err(|e| run.context(e))?;
+    report.warnings.splice(0..0, file.warnings.iter().cloned());
+    Ok(report)
+}
+
+/// One `fit` run: its flags, references, options and the input's name.
+struct FitRun<'a> {
+    args: &'a Args,
+    refs: &'a References,
+    options: FitOptions,
+    checks: crate::diagnostics::Options,
+    format: Format,
+    /// The input as messages show it.
+    shown: String,
+}
+
+impl FitRun<'_> {
+    /// An engine error about the input, with the input's name.
+    fn context(&self, e: crate::Error) -> Failure {
+        Failure::new(format!("{}: {e}", self.shown))
+    }
+}
+
+/// The residual checks the flags ask for, with `--screen-with` candidates.
+fn checks(args: &Args) -> Result<crate::diagnostics::Options, Failure> {
     let mut checks = args.checks.options();
     if let Some(dir) = &args.screen_with {
-        if args.checks.no_diagnostics {
-            return Err(Failure::new(
-                "--screen-with tries candidates on samples the residual tests flag: drop --no-diagnostics",
-            ));
-        }
-        let candidates = Library::open(dir)?;
-        for e in &candidates.broken {
-            eprintln!("unblend: warning: screening library: {e}");
-        }
-        if candidates.components.is_empty() {
-            return Err(Failure::new(format!(
-                "--screen-with {}: no readable component files (*.toml) there",
-                dir.display()
-            )));
-        }
-        checks.candidates = Some(ReferenceSet {
-            components: candidates.components,
-        });
+        checks.candidates = Some(screening_candidates(
+            dir,
+            args.checks.no_diagnostics,
+            "samples",
+        )?);
     }
+    Ok(checks)
+}
+
+/// Reject output flags that do not go together.
+fn check_outputs(args: &Args, format: Format) -> Result<(), Failure> {
     if args.with_curves && format != Format::Json {
         return Err(Failure::new(
             "--with-curves adds the fit curves to the JSON results: use it with --format json",
@@ -188,92 +171,32 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             p.display()
         )));
     }
-    if args.report.is_some() || args.plot.is_some() || args.with_curves {
-        return run_with_curves(
-            &args,
-            &refs,
-            &options,
-            &checks,
-            format,
-            &shown,
-            &library_dir_shown,
-        );
-    }
-    let ctx = |e: crate::Error| Failure::new(format!("{shown}: {e}"));
-    let single = match args.inputs.as_slice() {
-        [one] if !one.is_dir() => one,
-        _ => {
-            let file = inputs::read_all(&args.inputs, quantity)?;
-            let report = fit_whole(&file, &refs, &options, &checks, &ctx)?;
-            emit(&report, format, args.out.as_deref())?;
-            return Ok(exit_code(&report));
-        }
-    };
-    let reader: Box<dyn Read + Send> = if single.as_os_str() == "-" {
-        Box::new(std::io::stdin())
-    } else {
-        Box::new(std::fs::File::open(single).map_err(|e| Failure::new(format!("{shown}: {e}")))?)
-    };
-    let read_options = inputs::options_for(single, quantity, &Default::default());
-    match spectra::open(reader, read_options).map_err(ctx)? {
-        Opened::Whole(file) => {
-            let report = fit_whole(&file, &refs, &options, &checks, &ctx)?;
-            emit(&report, format, args.out.as_deref())?;
-            Ok(exit_code(&report))
-        }
-        Opened::Wide(stream) if !stream.warnings().is_empty() => {
-            // Rare (values that look like transmittance): read whole so the
-            // warning travels with the report.
-            let file = spectra::collect(stream).map_err(ctx)?;
-            let report = fit_whole(&file, &refs, &options, &checks, &ctx)?;
-            emit(&report, format, args.out.as_deref())?;
-            Ok(exit_code(&report))
-        }
-        Opened::Wide(mut stream) if format == Format::Csv => stream_csv(
-            &mut stream,
-            &refs,
-            &options,
-            &checks,
-            args.out.as_deref(),
-            &shown,
-        ),
-        Opened::Wide(mut stream) => {
-            let mut outcomes = Vec::new();
-            let warnings = fit_stream_with(&mut stream, &refs, &options, &checks, |chunk| {
-                outcomes.extend(chunk);
-                Ok::<(), ()>(())
-            })
-            .map_err(|e| match e {
-                StreamError::Engine(e) => ctx(e),
-                StreamError::Sink(()) => Failure::new("internal: result collection failed"),
-            })?;
-            let report = FitReport {
-                outcomes,
-                warnings,
-                component_names: refs.names().iter().map(|s| s.to_string()).collect(),
-            };
-            emit(&report, format, args.out.as_deref())?;
-            Ok(exit_code(&report))
-        }
-    }
+    Ok(())
 }
 
-/// Fit spectra read whole; the file's warnings (quantity, missing
-/// readings, sheets passed over) come first among the report's.
-fn fit_whole(
-    file: &crate::input::spectra::SpectraFile,
-    refs: &ReferenceSet,
-    options: &FitOptions,
-    checks: &crate::diagnostics::Options,
-    ctx: &dyn Fn(crate::Error) -> Failure,
-) -> Result<FitReport, Failure> {
-    let mut report = crate::fit::fit_file_with(file, refs, options, checks).map_err(ctx)?;
-    report.warnings.splice(0..0, file.warnings.iter().cloned());
-    Ok(report)
+/// Fit a wide file chunk by chunk, keeping the results for the table or JSON.
+fn fit_wide<R: Read + Send>(stream: &mut WideStream<R>, run: &FitRun) -> Result<u8, Failure> {
+    let mut outcomes = Vec::new();
+    let warnings = fit_stream_with(stream, &run.refs.set, &run.options, &run.checks, |chunk| {
+        outcomes.extend(chunk);
+        Ok::<(), ()>(())
+    })
+    .map_err(|e| match e {
+        StreamError::Engine(e) => run.context(e),
+        StreamError::Sink(()) => Failure::new("internal: result collection failed"),
+    })?;
+    let report = FitReport {
+        outcomes,
+        warnings,
+        component_names: run.refs.set.names().iter().map(|s| s.to_string()).collect(),
+    };
+    emit(&report, run.format, run.args.out.as_deref())?;
+    Ok(exit_code(&report))
 }
 
 /// Pixels per SVG pixel in a PNG figure (sharp on high-density screens and
 /// in print: the 760 × 430 px figure becomes 1520 × 860).
+#[cfg(feature = "png")]
 const PNG_SCALE: f32 = 2.0;
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -296,97 +219,130 @@ fn plot_kind(path: &std::path::Path) -> Option<PlotKind> {
 
 /// Fit the whole input in memory and keep each sample's curves for the
 /// report, the figure or the JSON.
-fn run_with_curves(
-    args: &Args,
-    refs: &ReferenceSet,
-    options: &FitOptions,
-    checks: &crate::diagnostics::Options,
-    format: Format,
-    shown: &str,
-    library: &std::path::Path,
-) -> Result<u8, Failure> {
-    let ctx = |e: crate::Error| Failure::new(format!("{shown}: {e}"));
-    let file = inputs::read_all(&args.inputs, args.quantity.map(Quantity::from))?;
-    let report = fit_whole(&file, refs, options, checks, &ctx)?;
-    let curves = crate::curves::for_file(&file, refs, options, &report);
+fn run_with_curves(run: &FitRun) -> Result<u8, Failure> {
+    let file = inputs::read_all(&run.args.inputs, run.args.model.read_options().quantity)?;
+    curves_for(&file, run)
+}
+
+/// Fit a file read whole and keep each sample's curves.
+fn curves_for(file: &spectra::SpectraFile, run: &FitRun) -> Result<u8, Failure> {
+    let args = run.args;
+    let report = fit_file(file, run)?;
+    let curves = crate::curves::for_file(file, &run.refs.set, &run.options, &report);
     let mut doc = output::JsonReport::from_report(&report);
-    doc.run = Some(run_info(args, shown, library));
+    doc.run = Some(run_info(args, &run.shown, &run.refs.dir));
     doc.curves = Some(curves);
     if let Some(path) = &args.plot {
-        let curve = match &args.plot_sample {
-            Some(name) => doc
-                .curves
-                .iter()
-                .flatten()
-                .find(|c| &c.sample == name)
-                .ok_or_else(|| {
-                    Failure::new(format!(
-                        "--plot-sample '{name}': no fitted sample of that name in {shown}"
-                    ))
-                })?,
-            None => doc.curves.iter().flatten().next().ok_or_else(|| {
-                // Say why, with the first sample's own error.
-                let why = doc
-                    .failed
-                    .first()
-                    .map(|f| format!(" ({}: {})", f.sample, f.error))
-                    .unwrap_or_default();
-                Failure::new(format!("--plot: no sample of {shown} was fitted{why}"))
-            })?,
-        };
-        let svg = crate::report::sample_figure(curve);
-        if plot_kind(path) == Some(PlotKind::Png) {
-            let png = crate::report::png::render(&svg, PNG_SCALE).map_err(Failure::new)?;
-            if !png.has_font {
-                eprintln!(
-                    "unblend: warning: no system font found: the PNG's text labels are missing (install a sans-serif font, or write the figure as .svg)"
-                );
-            }
-            crate::atomic::write_with(path, false, |w| w.write_all(&png.bytes))?;
-        } else {
-            crate::atomic::write_with(path, false, |w| {
-                w.write_all(b"<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n")?;
-                w.write_all(svg.as_bytes())?;
-                w.write_all(b"\n")
-            })?;
-        }
-        eprintln!(
-            "unblend: wrote the fit of {} to {}",
-            curve.sample,
-            path.display()
-        );
+        plot(&doc, path, run)?;
     }
     if let Some(path) = &args.report {
-        let html = crate::report::render_html(&doc, &format!("unblend fit: {shown}"));
+        let html = crate::report::render_html(&doc, &format!("unblend fit: {}", run.shown));
         crate::atomic::write_with(path, false, |w| w.write_all(html.as_bytes()))?;
         eprintln!("unblend: wrote the report to {}", path.display());
     }
-    if format == Format::Json && (args.with_curves || args.report.is_some()) {
+    if run.format == Format::Json && (args.with_curves || args.report.is_some()) {
         for w in &report.warnings {
             eprintln!("unblend: warning: {w}");
         }
-        match args.out.as_deref() {
-            Some(path) => {
-                crate::atomic::write_with(path, false, |w| output::write_json(&doc, w))?;
-                eprintln!(
-                    "{}",
-                    summary(report.outcomes.len(), report.n_failed(), path)
-                );
-            }
-            None => {
-                let mut lock = std::io::BufWriter::new(std::io::stdout().lock());
-                let r = output::write_json(&doc, &mut lock).and_then(|_| lock.flush());
-                if let Err(e) = r
-                    && e.kind() != std::io::ErrorKind::BrokenPipe
-                {
-                    return Err(Failure::new(format!("standard output: {e}")));
-                }
-            }
-        }
+        write_doc(&doc, &report, args.out.as_deref())?;
     } else {
-        emit(&report, format, args.out.as_deref())?;
+        emit(&report, run.format, args.out.as_deref())?;
     }
     Ok(exit_code(&report))
+}
+
+/// Write the `--plot` figure of the chosen (or first fitted) sample.
+fn plot(doc: &output::JsonReport, path: &Path, run: &FitRun) -> Result<(), Failure> {
+    let shown = &run.shown;
+    let curve = match &run.args.plot_sample {
+        Some(name) => doc
+            .curves
+            .iter()
+            .flatten()
+            .find(|c| &c.sample == name)
+            .ok_or_else(|| {
+                Failure::new(format!(
+                    "--plot-sample '{name}': no fitted sample of that name in {shown}"
+                ))
+            })?,
+        None => doc.curves.iter().flatten().next().ok_or_else(|| {
+            // Say why, with the first sample's own error.
+            let why = doc
+                .failed
+                .first()
+                .map(|f| format!(" ({}: {})", f.sample, f.error))
+                .unwrap_or_default();
+            Failure::new(format!("--plot: no sample of {shown} was fitted{why}"))
+        })?,
+    };
+    let svg = crate::report::sample_figure(curve);
+    write_figure(path, &svg)?;
+    eprintln!(
+        "unblend: wrote the fit of {} to {}",
+        curve.sample,
+        path.display()
+    );
+    Ok(())
+}
+
+/// Write the JSON document (with curves) to `out` or standard output.
+fn write_doc(
+    doc: &output::JsonReport,
+    report: &FitReport,
+    out: Option<&Path>,
+) -> Result<(), Failure> {
+    match out {
+        Some(path) => {
+            crate::atomic::write_with(path, false, |w| output::write_json(doc, w))?;
+            eprintln!(
+                "{}",
+                summary(report.outcomes.len(), report.n_failed(), path)
+            );
+        }
+        None => {
+            let mut lock = std::io::BufWriter::new(std::io::stdout().lock());
+            let r = output::write_json(doc, &mut lock).and_then(|_| lock.flush());
+            if let Err(e) = r
+                && e.kind() != std::io::ErrorKind::BrokenPipe
+            {
+                return Err(Failure::new(format!("standard output: {e}")));
+            }
+        }
+    }
+    Ok(())
+}
+
+/// Write a figure as SVG, or as PNG when the file name says so.
+fn write_figure(path: &std::path::Path, svg: &str) -> Result<(), Failure> {
+    if plot_kind(path) == Some(PlotKind::Png) {
+        return write_png(path, svg);
+    }
+    crate::atomic::write_with(path, false, |w| {
+        w.write_all(b"<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n")?;
+        w.write_all(svg.as_bytes())?;
+        w.write_all(b"\n")
+    })?;
+    Ok(())
+}
+
+#[cfg(feature = "png")]
+fn write_png(path: &std::path::Path, svg: &str) -> Result<(), Failure> {
+    let png = crate::report::png::render(svg, PNG_SCALE).map_err(Failure::new)?;
+    if !png.has_font {
+        eprintln!(
+            "unblend: warning: no system font found: the PNG's text labels are missing (install a sans-serif font, or write the figure as .svg)"
+        );
+    }
+    crate::atomic::write_with(path, false, |w| w.write_all(&png.bytes))?;
+    Ok(())
+}
+
+#[cfg(not(feature = "png"))]
+fn write_png(path: &std::path::Path, _svg: &str) -> Result<(), Failure> {
+    Err(Failure::new(format!(
+        "--plot {}: this build has no PNG support (built without the `png` feature): write the figure as .svg",
+        path.display()
+    )))
 }
 
 /// The run's inputs and options for the report's summary.
@@ -394,22 +350,23 @@ fn run_info(args: &Args, shown: &str, library: &std::path::Path) -> output::RunI
     let mut options = vec![
         [
             "pathlength".to_string(),
-            format!("{} cm", args.pathlength_cm),
+            format!("{} cm", args.model.pathlength_cm),
         ],
         [
             "baseline".to_string(),
-            format!("{:?}", args.baseline).to_lowercase(),
+            format!("{:?}", args.model.baseline).to_lowercase(),
         ],
         [
             "range".to_string(),
-            args.range_nm.map_or(
+            args.model.range_nm.map_or(
                 "common range of sample and references".into(),
                 |(lo, hi)| format!("{lo}–{hi} nm"),
             ),
         ],
         [
             "input quantity".to_string(),
-            args.quantity
+            args.model
+                .quantity
                 .map_or("as each file says, else absorbance".into(), |q| {
                     format!("{q:?}").to_lowercase()
                 }),
@@ -447,14 +404,9 @@ fn run_info(args: &Args, shown: &str, library: &std::path::Path) -> output::RunI
 
 /// Fit a wide file chunk by chunk and write tidy CSV as it goes, so memory
 /// stays bounded for any number of spectra.
-fn stream_csv<R: Read + Send>(
-    stream: &mut WideStream<R>,
-    refs: &ReferenceSet,
-    options: &FitOptions,
-    checks: &crate::diagnostics::Options,
-    out: Option<&std::path::Path>,
-    shown: &str,
-) -> Result<u8, Failure> {
+fn stream_csv<R: Read + Send>(stream: &mut WideStream<R>, run: &FitRun) -> Result<u8, Failure> {
+    let out = run.args.out.as_deref();
+    let (refs, options, checks) = (&run.refs.set, &run.options, &run.checks);
     let mut total = 0usize;
     let mut failed = 0usize;
     let mut engine_error: Option<crate::Error> = None;
@@ -516,7 +468,7 @@ fn stream_csv<R: Read + Send>(
         }
     };
     if let Some(e) = engine_error {
-        return Err(Failure::new(format!("{shown}: {e}")));
+        return Err(run.context(e));
     }
     result?;
     for w in &warnings {
@@ -526,77 +478,4 @@ fn stream_csv<R: Read + Send>(
         eprintln!("{}", summary(total, failed, path));
     }
     Ok(code_for(total, failed))
-}
-
-fn summary(total: usize, failed: usize, path: &std::path::Path) -> String {
-    format!(
-        "unblend: wrote {} of {total} samples to {}{}",
-        total - failed,
-        path.display(),
-        if failed > 0 {
-            format!(" ({failed} not fitted, listed in the file)")
-        } else {
-            String::new()
-        }
-    )
-}
-
-fn code_for(total: usize, failed: usize) -> u8 {
-    if failed == 0 {
-        exit::OK
-    } else if failed == total {
-        exit::FAILED
-    } else {
-        exit::PARTIAL
-    }
-}
-
-/// Read a file, or standard input for `-`.
-pub fn read_input(path: &std::path::Path) -> Result<Vec<u8>, Failure> {
-    let mut bytes = Vec::new();
-    if path.as_os_str() == "-" {
-        std::io::stdin()
-            .read_to_end(&mut bytes)
-            .map_err(|e| Failure::new(format!("standard input: {e}")))?;
-    } else {
-        bytes =
-            std::fs::read(path).map_err(|e| Failure::new(format!("{}: {e}", path.display())))?;
-    }
-    Ok(bytes)
-}
-
-/// Print warnings to stderr and write the report to a file or stdout.
-pub fn emit(
-    report: &FitReport,
-    format: Format,
-    out: Option<&std::path::Path>,
-) -> Result<(), Failure> {
-    for w in &report.warnings {
-        eprintln!("unblend: warning: {w}");
-    }
-    match out {
-        Some(path) => {
-            crate::atomic::write_with(path, false, |w| output::write(report, format, w))?;
-            eprintln!(
-                "{}",
-                summary(report.outcomes.len(), report.n_failed(), path)
-            );
-        }
-        None => {
-            let stdout = std::io::stdout();
-            let mut lock = std::io::BufWriter::new(stdout.lock());
-            let r = output::write(report, format, &mut lock).and_then(|_| lock.flush());
-            if let Err(e) = r
-                && e.kind() != std::io::ErrorKind::BrokenPipe
-            {
-                return Err(Failure::new(format!("standard output: {e}")));
-            }
-        }
-    }
-    Ok(())
-}
-
-/// The exit code a report deserves.
-pub fn exit_code(report: &FitReport) -> u8 {
-    code_for(report.outcomes.len(), report.n_failed())
 }

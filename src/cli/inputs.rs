@@ -3,9 +3,9 @@
 //! the reader its content calls for, put together in input order.
 
 use super::Failure;
+use super::common::{file_name, read_input, shown};
 use crate::input::fields::OverflowMarkers;
 use crate::input::spectra::{self, Quantity, ReadOptions, SpectraFile};
-use std::io::Read;
 use std::path::{Path, PathBuf};
 
 /// File name endings a folder's files are read for (the content decides the
@@ -50,15 +50,6 @@ fn is_known(path: &Path) -> bool {
         .map(|e| e.to_string_lossy().to_lowercase())
         .unwrap_or_default();
     !hidden && KNOWN_EXTENSIONS.contains(&ext.as_str())
-}
-
-/// How a path is shown in messages.
-pub fn shown(path: &Path) -> String {
-    if path.as_os_str() == "-" {
-        "standard input".into()
-    } else {
-        path.display().to_string()
-    }
 }
 
 /// The reading options for one file: the user's quantity (if given) and
@@ -107,14 +98,9 @@ pub fn read_all_with_provenance(
     let mut names = Vec::new();
     for path in &files {
         let shown = shown(path);
-        let bytes = read_bytes(path)?;
+        let bytes = read_input(path)?;
         hasher.update(&bytes);
-        names.push(if path.as_os_str() == "-" {
-            shown.clone()
-        } else {
-            path.file_name()
-                .map_or(shown.clone(), |n| n.to_string_lossy().into_owned())
-        });
+        names.push(file_name(path));
         let options = options_for(path, quantity, &OverflowMarkers::default());
         let mut file =
             spectra::read(&bytes, options).map_err(|e| Failure::new(format!("{shown}: {e}")))?;
@@ -140,20 +126,6 @@ pub fn read_all_with_provenance(
         names,
         sha256: hasher.finalize().to_vec(),
     })
-}
-
-/// The bytes of a file, or of standard input for `-`.
-pub fn read_bytes(path: &Path) -> Result<Vec<u8>, Failure> {
-    let mut bytes = Vec::new();
-    if path.as_os_str() == "-" {
-        std::io::stdin()
-            .read_to_end(&mut bytes)
-            .map_err(|e| Failure::new(format!("standard input: {e}")))?;
-    } else {
-        bytes =
-            std::fs::read(path).map_err(|e| Failure::new(format!("{}: {e}", path.display())))?;
-    }
-    Ok(bytes)
 }
 
 /// One line per part read: where, which layout, which quantity and why, and

@@ -21,7 +21,7 @@ pub struct Args {
 /// Run `unblend report`.
 pub fn run(args: Args) -> Result<u8, Failure> {
     let shown = args.results.display().to_string();
-    let bytes = super::fit::read_input(&args.results)?;
+    let bytes = super::common::read_input(&args.results)?;
     let out = args
         .out
         .clone()
