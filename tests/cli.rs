@@ -476,7 +476,7 @@ fn bad_inputs_get_clear_messages_and_exit_codes() {
             input: b"just some text\nmore text\n",
             extra: &[],
             code: 1,
-            message: "header has one column",
+            message: "no table of spectra found: tried the wide layout",
         },
         Bad {
             what: "transmittance of zero",

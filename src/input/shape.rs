@@ -192,17 +192,31 @@ pub fn shape_name(shape: &Shape) -> &'static str {
     }
 }
 
-/// When a row looks like a wide header (a name, then mostly wavelengths)
-/// but one cell is not a wavelength: that cell's column and text.
-pub fn bad_wide_header_cell<'a>(row: &Row<'a>, decimal_comma: bool) -> Option<(usize, &'a [u8])> {
+/// When a row looks like a header but one cell does not fit: that cell's
+/// column, text and what was expected there. A long header
+/// (`sample,wavelength_nm,...`) whose third heading names no value; a wide
+/// header (a name, then mostly wavelengths) with a cell that is not one.
+pub fn bad_header_cell<'a>(
+    row: &Row<'a>,
+    decimal_comma: bool,
+) -> Option<(usize, &'a [u8], &'static str)> {
     let c = &row.cells;
+    if c.len() == 3 && is_wavelength_heading(c[1]) && !is_value_heading(c[2]) {
+        return Some((
+            3,
+            c[2],
+            "'absorbance' or 'transmittance' (or abs, A, T, %T, value) as the third column of a long-layout file",
+        ));
+    }
     if c.len() < 3 || is_number(c[0], decimal_comma) {
         return None;
     }
     let bad: Vec<usize> = (1..c.len())
         .filter(|&i| header_wavelength(c[i], decimal_comma).is_none())
         .collect();
-    (!bad.is_empty() && bad.len() * 2 < c.len()).then(|| (bad[0] + 1, c[bad[0]]))
+    (!bad.is_empty() && bad.len() * 2 < c.len()).then(|| {
+        (bad[0] + 1, c[bad[0]], "a wavelength in nm in the header of a wide-layout file (or `sample,wavelength_nm,absorbance` for the long layout)")
+    })
 }
 
 /// Find the table that reads the most numbers: every row is tried as a

@@ -115,15 +115,10 @@ fn locate<'a>(lines: &'a [(usize, &'a [u8])]) -> Result<(Delimiter, Vec<Row<'a>>
         let rows = shape::rows(lines, delimiter.byte());
         if bad_header.is_none()
             && let Some(first) = rows.first()
-            && let Some((column, raw)) =
-                shape::bad_wide_header_cell(first, delimiter.allows_decimal_comma())
+            && let Some((column, raw, expected)) =
+                shape::bad_header_cell(first, delimiter.allows_decimal_comma())
         {
-            bad_header = Some(Error::parse(
-                first.line_no,
-                column,
-                raw,
-                "a wavelength in nm in the header of a wide-layout file (or `sample,wavelength_nm,absorbance` for the long layout)",
-            ));
+            bad_header = Some(Error::parse(first.line_no, column, raw, expected));
         }
         match shape::find(&rows, delimiter.allows_decimal_comma()) {
             Ok(f) if best.as_ref().is_none_or(|b| f.score > b.2.score) => {
