@@ -227,8 +227,16 @@ fn pairs(line: &[u8]) -> impl Iterator<Item = (&[u8], &[u8])> {
     })
 }
 
-/// Read a heading line: `Some` when the line holds `wavelength_nm=`.
+/// Read a heading line: `Some` when the line holds `wavelength_nm=`, or
+/// names only a wavelength in a plain form (`450 nm`, `450nm`,
+/// `Wavelength: 450 nm`, `λ = 450 nm`; see [`plain_heading`]).
 pub fn heading(line: &[u8]) -> Option<Heading> {
+    if let Some(w) = plain_heading(line) {
+        return Some(Heading {
+            wavelength_nm: Ok(w),
+            plate: None,
+        });
+    }
     memchr::memchr(b'=', line)?;
     let mut wavelength = None;
     let mut plate = None;
@@ -249,6 +257,35 @@ pub fn heading(line: &[u8]) -> Option<Heading> {
         wavelength_nm,
         plate,
     })
+}
+
+/// Words that may stand before the wavelength of a plain heading
+/// (compared lowercased).
+const WAVELENGTH_WORDS: &[&str] = &["wavelength (nm)", "wavelength", "λ", "lambda"];
+
+/// A heading that names only a wavelength, in nm: `450 nm`, `450nm`,
+/// `Wavelength: 450 nm`, `Wavelength = 450`, `λ = 450 nm` (trailing empty
+/// cells allowed). Without a wavelength word the `nm` is required, so a
+/// number alone is never a heading.
+pub fn plain_heading(line: &[u8]) -> Option<f64> {
+    let text = std::str::from_utf8(line).ok()?;
+    let text = text.trim_end_matches([',', ';', '\t', ' ', '\r']).trim();
+    let lower = text.to_lowercase();
+    let (worded, rest) = match WAVELENGTH_WORDS.iter().find(|w| lower.starts_with(**w)) {
+        Some(w) => (true, &lower[w.len()..]),
+        None => (false, lower.as_str()),
+    };
+    let rest = rest.trim_start_matches([':', '=', ' ', ',', ';', '\t']);
+    let (number, unit) = match rest.strip_suffix("nm") {
+        Some(n) => (n.trim(), true),
+        None => (rest.trim(), false),
+    };
+    if !(worded || unit) || number.is_empty() {
+        return None;
+    }
+    fields::number(number.as_bytes(), true)
+        .ok()
+        .filter(|w| *w > 0.0)
 }
 
 /// What a grid cell holds.
@@ -791,6 +828,34 @@ mod tests {
 
     fn parse(text: &str) -> Result<PlateSpectra> {
         parse_grid(text.as_bytes(), 1, "p", &Reading::default())
+    }
+
+    #[test]
+    fn plain_headings_name_the_wavelength_in_each_form() {
+        for line in [
+            "450 nm",
+            "450nm,,,",
+            "Wavelength: 450 nm",
+            "wavelength = 450",
+            "λ = 450 nm",
+            "Lambda 450",
+        ] {
+            assert_eq!(plain_heading(line.as_bytes()), Some(450.0), "{line}");
+            assert!(heading(line.as_bytes()).is_some(), "{line}");
+        }
+        for line in [
+            "450",
+            ",1,2,3",
+            "A,0.1,0.2",
+            "Slit: 2 nm",
+            "sample,450 nm,460 nm",
+        ] {
+            assert_eq!(plain_heading(line.as_bytes()), None, "{line}");
+        }
+        let text = "Wavelength: 400 nm\n,1,2\nA,0.1,0.2\n\n410nm\n,1,2\nA,0.3,0.4\n";
+        let p = parse(text).unwrap();
+        assert_eq!(p.grid.as_ref().unwrap().wavelengths_nm(), [400.0, 410.0]);
+        assert_eq!(p.row(1), &[0.2, 0.4]);
     }
 
     #[test]
