@@ -9,10 +9,10 @@
 //!
 //! ```text
 //! Exported 2026-12-01 by the reader        <- lines before the first heading: skipped
-//! plate=P1 wavelength_nm=450               <- heading: `wavelength_nm=` (required), `plate=` (optional)
+//! plate=P1 wavelength_nm=450               <- heading: `wavelength_nm=` or a plain `450 nm`, `Wavelength: 450 nm`, `λ = 450 nm`; `plate=` (optional)
 //! ,1,2,3,4,5,6,7,8,9,10,11,12              <- column numbers 1–12 (or 1–24) across
 //! A,0.112,0.134,0.120,...                  <- row letter A–H (or A–P), then one cell per column
-//! B,0.101,OVER,0.099,...                   <- a word instead of a number: a saturated reading
+//! B,0.101,>4,0.099,...                     <- an overflow marker: a saturated reading
 //! ...
 //!                                          <- blank lines and other text between blocks: skipped
 //! plate=P1 wavelength_nm=451
@@ -28,9 +28,9 @@
 //! tabs (detected from the column line; with semicolons or tabs a decimal
 //! comma is read too). Empty cells past the last column are ignored.
 //!
-//! Cells: a number is a reading; an empty cell is no reading; a word with no
-//! digits (`OVER`, `OVRFLW`, `Sat`, `****`, `inf`) or `>` with a number
-//! (`>4`) is a *saturated* reading, kept as `f64::INFINITY` so that the
+//! Cells: a number is a reading; an empty cell is no reading; `>` with a
+//! number (`>4`), `inf`, or a word the user names (`--overflow-marker`, see
+//! [`Reading`]) is a *saturated* reading, kept as `f64::INFINITY` so that the
 //! batch stage can leave that point out of the fit and flag the well (the
 //! solver never sees it). `NaN` and other text fail the well, with the line
 //! and column.
