@@ -238,7 +238,7 @@ fn reading(v: f64) -> String {
 /// column 1 blanks; rows A–H × column triplets (2–4, 5–7, 8–10) samples in
 /// triplicate; column 11 a standard of fjord-blue alone; column 12 empty.
 /// Row B diluted 4×, row C at 0.5 cm (from the map). Plate P1: well D2 has
-/// OVER at three points, well F5 holds 1.5× its sample (a pipetting error).
+/// `>4` (an overflow marker) at three points, well F5 holds 1.5× its sample (a pipetting error).
 /// Plate P2: well E3 has a garbled cell, blank G1 reads 0.05 AU high.
 fn grid_fixture(dir: &Path) -> (PathBuf, PathBuf) {
     let refs = Refs::new(grid_400_700());
@@ -304,7 +304,7 @@ fn grid_fixture(dir: &Path) -> (PathBuf, PathBuf) {
                 for c in 0..12 {
                     text.push(',');
                     let cell = if plate == "P1" && r == 3 && c == 1 && (60..63).contains(&j) {
-                        "OVER".to_string()
+                        ">4".to_string()
                     } else if plate == "P2" && r == 4 && c == 2 && j == 10 {
                         "0.1x".to_string()
                     } else if c == 11 {
@@ -876,7 +876,11 @@ fn overflow_words_in_wide_and_long_files_are_saturated_points() {
     std::fs::write(dir.join("wide.csv"), wide).unwrap();
     std::fs::write(dir.join("long.csv"), long).unwrap();
     for (input, out) in [("wide.csv", "out-wide"), ("long.csv", "out-long")] {
-        let o = run_batch(&[input, "--out-dir", out], &dir);
+        // OVER: a word the user names as their instrument's overflow marker.
+        let o = run_batch(
+            &[input, "--out-dir", out, "--overflow-marker", "over"],
+            &dir,
+        );
         let stderr = String::from_utf8_lossy(&o.stderr);
         assert_eq!(o.status.code(), Some(0), "{input}: {stderr}");
         let wells = csv_rows(&dir.join(format!("{out}/wells.csv")));

@@ -469,14 +469,14 @@ fn bad_inputs_get_clear_messages_and_exit_codes() {
             input: b"\x00\x9f\x92\x96,\xff\xfe\x00\x01\n\x13\x37,\x00\n",
             extra: &[],
             code: 1,
-            message: "expected a wavelength in nm in the header",
+            message: "this is binary data, not text, which is not read: export the spectra as CSV",
         },
         Bad {
             what: "one-column header",
             input: b"just some text\nmore text\n",
             extra: &[],
             code: 1,
-            message: "header has one column",
+            message: "no table of spectra found: tried the wide layout",
         },
         Bad {
             what: "transmittance of zero",

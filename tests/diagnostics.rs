@@ -183,6 +183,8 @@ fn batch(
             }],
             failures: Vec::new(),
             n_samples: n,
+            sections: Vec::new(),
+            warnings: Vec::new(),
         },
         truth,
     }
@@ -433,6 +435,8 @@ fn masking_keeps_strong_samples_with_stray_light_within_a_few_percent() {
         }],
         failures: Vec::new(),
         n_samples: n,
+        sections: Vec::new(),
+        warnings: Vec::new(),
     };
     let opts = FitOptions::default();
     let masked = fit_file_with(&file, &refs, &opts, &checks(None, 0.01)).unwrap();
@@ -480,6 +484,8 @@ fn masking_most_of_a_band_asks_to_dilute() {
         }],
         failures: Vec::new(),
         n_samples: 1,
+        sections: Vec::new(),
+        warnings: Vec::new(),
     };
     let r = fit_file_with(&file, &refs, &FitOptions::default(), &checks(None, 0.01)).unwrap();
     let s = fitted(&r)[0];

@@ -14,9 +14,9 @@
 //! results do not depend on the number of threads.
 
 use super::{BatchOptions, Models, PlateResult, process_plate};
+use crate::input::plate::Reading;
 use crate::input::platemap::PlateMap;
 use crate::input::plates::{PlateStream, RawPlate};
-use crate::input::spectra::Quantity;
 use rayon::prelude::*;
 use sha2::{Digest, Sha256};
 use std::collections::HashMap;
@@ -64,8 +64,8 @@ pub struct RunSpec<'a> {
     pub inputs: &'a [PathBuf],
     /// The plate map, if any.
     pub map: Option<&'a PlateMap>,
-    /// What the input numbers are.
-    pub quantity: Quantity,
+    /// What the input numbers are, and the user's overflow words.
+    pub reading: Reading,
     /// Batch options.
     pub options: &'a BatchOptions,
     /// Bytes read so far, for a progress display.
@@ -122,7 +122,7 @@ pub fn shown(path: &Path) -> String {
 fn read_input(
     index: usize,
     path: &Path,
-    quantity: Quantity,
+    reading: &Reading,
     counter: &AtomicU64,
     tx: &mpsc::SyncSender<Message>,
 ) -> InputSummary {
@@ -151,7 +151,7 @@ fn read_input(
         bytes: 0,
         counter,
     };
-    let mut stream = match PlateStream::open(tap, &stem(path), quantity) {
+    let mut stream = match PlateStream::open(tap, &stem(path), reading) {
         Ok(s) => s,
         Err(e) => {
             summary.error = Some(e.to_string());
@@ -200,7 +200,7 @@ where
     std::thread::scope(|scope| {
         let reader = scope.spawn(move || {
             for (i, path) in spec.inputs.iter().enumerate() {
-                let s = read_input(i, path, spec.quantity, spec.bytes_read, &tx);
+                let s = read_input(i, path, &spec.reading, spec.bytes_read, &tx);
                 if tx.send(Message::Input(s)).is_err() {
                     return;
                 }
@@ -210,7 +210,7 @@ where
             let input_name = &shown_inputs[input];
             let name = raw.name.clone();
             let entries = spec.map.and_then(|m| m.for_plate(&name));
-            let mut result = match raw.parse(spec.quantity) {
+            let mut result = match raw.parse(&spec.reading) {
                 Ok(spectra) => {
                     let mut r =
                         process_plate(spectra, input_name, entries.as_ref(), models, spec.options);

@@ -62,6 +62,9 @@ pub struct Args {
     /// it depends on temperature).
     #[arg(long, default_value = "0.18", value_parser = parse_positive, value_name = "AU_PER_CM")]
     pub water_au_per_cm: f64,
+    /// A word your instrument prints for a reading above its range (the word it shows for overflow); such readings are saturated points, masked. `>N` and `inf` are always read so. Repeat for several words.
+    #[arg(long = "overflow-marker", value_name = "TEXT")]
+    pub overflow_marker: Vec<String>,
     /// Significance level of the outlier tests (Grubbs, two-sided) on replicates and blanks.
     #[arg(long, default_value = "0.05", value_parser = parse_alpha, value_name = "ALPHA")]
     pub outlier_alpha: f64,
@@ -155,7 +158,10 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let spec = RunSpec {
         inputs: &args.inputs,
         map: map.as_ref(),
-        quantity: args.model.quantity.into(),
+        reading: crate::input::plate::Reading {
+            quantity: args.model.quantity.map(Into::into).unwrap_or_default(),
+            overflow_markers: crate::input::fields::OverflowMarkers::new(&args.overflow_marker),
+        },
         options: &options,
         bytes_read: &bytes_read,
     };
@@ -564,7 +570,7 @@ fn options_json(o: &BatchOptions, a: &Args) -> serde_json::Value {
     serde_json::json!({
         "baseline": format!("{:?}", o.fit.baseline).to_lowercase(),
         "range_nm": o.fit.window_nm.map(|(lo, hi)| [lo, hi]),
-        "quantity": format!("{:?}", a.model.quantity).to_lowercase(),
+        "quantity": format!("{:?}", a.model.quantity.unwrap_or(super::common::QuantityArg::Absorbance)).to_lowercase(),
         "pathlength_cm": o.fit.pathlength_cm,
         "water_band": o.water,
         "outlier_test": "grubbs-two-sided",
@@ -665,7 +671,14 @@ fn write_log_options(w: &mut dyn Write, l: &LogInfo) -> std::io::Result<()> {
     writeln!(
         w,
         "  quantity:    {}",
-        format!("{:?}", l.args.model.quantity).to_lowercase()
+        format!(
+            "{:?}",
+            l.args
+                .model
+                .quantity
+                .unwrap_or(super::common::QuantityArg::Absorbance)
+        )
+        .to_lowercase()
     )?;
     match o.water {
         Some(wb) => writeln!(

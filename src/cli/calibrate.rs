@@ -2,15 +2,15 @@
 
 use super::common::{
     FormatArg, QuantityArg, file_name, hex, library_dir, parse_positive, parse_range_nm,
-    print_stdout, read_input, shown, sig, summary_format,
+    print_stdout, sig, summary_format,
 };
+use super::inputs;
 use super::{Failure, exit};
 use crate::calibrate::{
     self, ABSORBANCE_CEILING_AU, CalibrationOptions, CalibrationResult, LINEARITY_TOLERANCE,
     Provenance,
 };
 use crate::input::concentrations::{self, ConcentrationUnit};
-use crate::input::spectra::{self, ReadOptions};
 use crate::reference::{Calibration, Conditions, Library};
 use serde::Serialize;
 use sha2::{Digest, Sha256};
@@ -35,8 +35,9 @@ Results are decision support, not a certified analysis.";
 #[derive(Debug, clap::Args)]
 #[command(after_help = AFTER_HELP)]
 pub struct Args {
-    /// Spectra of the blanks and standards (wide or long layout, as for `fit`); `-` reads standard input.
-    pub input: PathBuf,
+    /// Spectra of the blanks and standards: files or folders in any shape `fit` reads; `-` reads standard input.
+    #[arg(required = true, value_name = "INPUT")]
+    pub inputs: Vec<PathBuf>,
     /// CSV naming each standard's concentration: `sample,concentration[,role]`.
     #[arg(long, value_name = "FILE")]
     pub concentrations: PathBuf,
@@ -55,9 +56,9 @@ pub struct Args {
     /// Unit of the concentrations: mol/L, mmol/L, umol/L, mg/L or g/L [default: as the file says, else mol/L].
     #[arg(long, value_parser = parse_unit, value_name = "UNIT")]
     pub unit: Option<ConcentrationUnit>,
-    /// What the numbers in INPUT are.
-    #[arg(long, value_enum, default_value_t = QuantityArg::Absorbance)]
-    pub quantity: QuantityArg,
+    /// What the numbers in INPUT are [default: what the file says (a value heading, a units/mode metadata line, ##YUNITS), else absorbance]. Given, it wins over the file, with a warning when they differ.
+    #[arg(long, value_enum)]
+    pub quantity: Option<QuantityArg>,
     /// Use only wavelengths in LO:HI nm [default: every wavelength in INPUT].
     #[arg(long, value_parser = parse_range_nm, value_name = "LO:HI")]
     pub range_nm: Option<(f64, f64)>,
@@ -132,16 +133,11 @@ impl TryFrom<&Args> for CalibrationOptions {
 pub fn run(args: Args) -> Result<u8, Failure> {
     crate::reference::component::validate_name(&args.name)?;
     let options = CalibrationOptions::try_from(&args)?;
-    let shown = shown(&args.input);
-    let bytes = read_input(&args.input)?;
-    let file = spectra::read(
-        &bytes,
-        ReadOptions {
-            quantity: args.quantity.into(),
-            ..Default::default()
-        },
-    )
-    .map_err(|e| Failure::new(format!("{shown}: {e}")))?;
+    let read = inputs::read_all_with_provenance(&args.inputs, args.quantity.map(Into::into))?;
+    for w in &read.file.warnings {
+        eprintln!("unblend: warning: {w}");
+    }
+    let file = read.file;
     let conc_shown = args.concentrations.display().to_string();
     let conc_bytes = std::fs::read(&args.concentrations)
         .map_err(|e| Failure::new(format!("{conc_shown}: {e}")))?;
@@ -151,8 +147,8 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         .standards(args.molar_mass)
         .map_err(|e| Failure::new(format!("{conc_shown}: {e}")))?;
     let provenance = Provenance {
-        standards_file: file_name(&args.input),
-        standards_sha256: hex(&Sha256::digest(&bytes)),
+        standards_file: read.names.join(", "),
+        standards_sha256: hex(&read.sha256),
         concentrations_file: file_name(&args.concentrations),
         concentrations_sha256: hex(&Sha256::digest(&conc_bytes)),
         concentration_unit: table.unit.label().into(),

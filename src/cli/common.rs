@@ -34,9 +34,9 @@ pub struct ModelArgs {
     /// Wavelength window LO:HI in nm [default: all wavelengths the input and every reference cover].
     #[arg(long, value_parser = parse_range_nm, value_name = "LO:HI")]
     pub range_nm: Option<(f64, f64)>,
-    /// What the numbers in the input are.
-    #[arg(long, value_enum, default_value_t = QuantityArg::Absorbance)]
-    pub quantity: QuantityArg,
+    /// What the numbers in the input are [default: what each file says (a value heading, a units/mode metadata line, ##YUNITS), else absorbance]. Given, it wins over the file, with a warning when they differ.
+    #[arg(long, value_enum)]
+    pub quantity: Option<QuantityArg>,
 }
 
 impl TryFrom<&ModelArgs> for FitOptions {
@@ -69,7 +69,7 @@ impl ModelArgs {
     /// How the input files are read.
     pub fn read_options(&self) -> ReadOptions {
         ReadOptions {
-            quantity: self.quantity.into(),
+            quantity: self.quantity.map(Into::into),
             ..Default::default()
         }
     }

@@ -1,12 +1,12 @@
 //! `unblend discover`: recover the spectrum of an unknown absorber that the
 //! flagged samples of a batch share.
 
-use super::common::{FormatArg, ModelArgs, parse_positive, read_input, shown, summary_format};
+use super::common::{FormatArg, ModelArgs, parse_positive, summary_format};
 use super::diagnostic_args::DiagnosticArgs;
+use super::inputs;
 use super::{Failure, exit};
 use crate::discover::{self, DiscoverOptions, Discovery};
 use crate::fit::FitOptions;
-use crate::input::spectra;
 use std::io::Write;
 use std::path::PathBuf;
 
@@ -15,8 +15,9 @@ use std::path::PathBuf;
 #[derive(Debug, clap::Args)]
 #[command(after_help = super::AFTER_HELP)]
 pub struct Args {
-    /// Spectra CSV (as for `fit`); `-` reads standard input.
-    pub input: PathBuf,
+    /// Spectra files or folders, in any shape `fit` reads; `-` reads standard input.
+    #[arg(required = true, value_name = "INPUT")]
+    pub inputs: Vec<PathBuf>,
     /// Where to write the recovered spectrum: CSV `wavelength_nm,epsilon`, ready for `library add`.
     #[arg(long, value_name = "FILE.csv")]
     pub out: PathBuf,
@@ -48,10 +49,10 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         return Err(Failure::new("--max-iterations 0: expected at least 1"));
     }
     let options = FitOptions::try_from(&args.model)?;
-    let shown = shown(&args.input);
-    let bytes = read_input(&args.input)?;
-    let file = spectra::read(&bytes, args.model.read_options())
-        .map_err(|e| Failure::new(format!("{shown}: {e}")))?;
+    let file = inputs::read_all(&args.inputs, args.model.read_options().quantity)?;
+    for w in &file.warnings {
+        eprintln!("unblend: warning: {w}");
+    }
     let refs = args.model.references()?.set;
     let found = discover::discover(
         &file,

@@ -1,12 +1,12 @@
 //! `unblend fit`: fit spectra against reference components.
 
-use super::Failure;
 use super::common::{
-    FormatArg, ModelArgs, References, code_for, emit, exit_code, read_input, screening_candidates,
-    shown, summary,
+    FormatArg, ModelArgs, References, code_for, emit, exit_code, screening_candidates, shown,
+    summary,
 };
 use super::diagnostic_args::DiagnosticArgs;
 use super::qc_args::QcArgs;
+use super::{Failure, inputs};
 use crate::fit::{FitOptions, FitReport, Outcome, StreamError, fit_stream_with};
 use crate::input::spectra::{self, Opened, WideStream};
 use crate::output::{self, Format};
@@ -17,9 +17,9 @@ use std::path::{Path, PathBuf};
 #[derive(Debug, clap::Args)]
 #[command(after_help = super::AFTER_HELP)]
 pub struct Args {
-    /// Spectra CSV (wide `sample,<nm>,<nm>,...` or long
-    /// `sample,wavelength_nm,absorbance`); `-` reads standard input.
-    pub input: PathBuf,
+    /// Spectra files or folders (a folder means its files of known kinds), in any shape the README's "Input shapes" lists: CSV/TSV tables (wide, long, wavelengths down, one spectrum), JCAMP-DX, .xlsx/.ods workbooks; `-` reads standard input.
+    #[arg(required = true, value_name = "INPUT")]
+    pub inputs: Vec<PathBuf>,
     /// The references and the model fitted.
     #[command(flatten)]
     pub model: ModelArgs,
@@ -65,31 +65,70 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         options,
         checks,
         format,
-        shown: shown(&args.input),
+        shown: args
+            .inputs
+            .iter()
+            .map(|p| shown(p))
+            .collect::<Vec<_>>()
+            .join(", "),
+    };
+    let single = match args.inputs.as_slice() {
+        [one] if !one.is_dir() => one,
+        _ => {
+            return fit_whole(
+                &inputs::read_all(&args.inputs, args.model.read_options().quantity)?,
+                &run,
+            );
+        }
     };
     if args.report.is_some() || args.plot.is_some() || args.with_curves || args.qc.active() {
         return run_with_curves(&run);
     }
-    let reader: Box<dyn Read + Send> = if args.input.as_os_str() == "-" {
+    let reader: Box<dyn Read + Send> = if single.as_os_str() == "-" {
         Box::new(std::io::stdin())
     } else {
         Box::new(
-            std::fs::File::open(&args.input)
-                .map_err(|e| Failure::new(format!("{}: {e}", run.shown)))?,
+            std::fs::File::open(single).map_err(|e| Failure::new(format!("{}: {e}", run.shown)))?,
         )
     };
-    match spectra::open(reader, args.model.read_options()).map_err(|e| run.context(e))? {
-        Opened::Long(file) => {
-            let report = crate::fit::fit_file_with(&file, &refs.set, &run.options, &run.checks)
-                .map_err(|e| run.context(e))?;
-            emit(&report, format, args.out.as_deref())?;
-            Ok(exit_code(&report))
+    let read_options = inputs::options_for(
+        single,
+        args.model.read_options().quantity,
+        &Default::default(),
+    );
+    match spectra::open(reader, read_options).map_err(|e| run.context(e))? {
+        Opened::Whole(file) => fit_whole(&file, &run),
+        // Values that look like transmittance (rare): read whole so the
+        // warning travels with the report.
+        Opened::Wide(stream) if !stream.warnings().is_empty() => {
+            fit_whole(&spectra::collect(stream).map_err(|e| run.context(e))?, &run)
         }
         Opened::Wide(mut stream) if matches!(format, Format::Csv | Format::JsonLines) => {
             stream_rows(&mut stream, &run)
         }
         Opened::Wide(mut stream) => fit_wide(&mut stream, &run),
     }
+}
+
+/// Fit spectra read whole; the file's warnings (quantity, missing readings,
+/// sheets passed over) come first among the report's. With `--report`,
+/// `--plot` or `--with-curves`, the curves are kept as well.
+fn fit_whole(file: &spectra::SpectraFile, run: &FitRun) -> Result<u8, Failure> {
+    let args = run.args;
+    if args.report.is_some() || args.plot.is_some() || args.with_curves || args.qc.active() {
+        return curves_for(file, run);
+    }
+    let report = fit_file(file, run)?;
+    emit(&report, run.format, args.out.as_deref())?;
+    Ok(exit_code(&report))
+}
+
+/// Fit a file read whole, its warnings first among the report's.
+fn fit_file(file: &spectra::SpectraFile, run: &FitRun) -> Result<FitReport, Failure> {
+    let mut report = crate::fit::fit_file_with(file, &run.refs.set, &run.options, &run.checks)
+        .map_err(|e| run.context(e))?;
+    report.warnings.splice(0..0, file.warnings.iter().cloned());
+    Ok(report)
 }
 
 /// One `fit` run: its flags, references, options and the input's name.
@@ -187,19 +226,22 @@ fn plot_kind(path: &std::path::Path) -> Option<PlotKind> {
 /// Fit the whole input in memory and keep each sample's curves for the
 /// report, the figure or the JSON.
 fn run_with_curves(run: &FitRun) -> Result<u8, Failure> {
+    let file = inputs::read_all(&run.args.inputs, run.args.model.read_options().quantity)?;
+    curves_for(&file, run)
+}
+
+/// Fit a file read whole and keep each sample's curves.
+fn curves_for(file: &spectra::SpectraFile, run: &FitRun) -> Result<u8, Failure> {
     let args = run.args;
-    let bytes = read_input(&args.input)?;
-    let file = spectra::read(&bytes, args.model.read_options()).map_err(|e| run.context(e))?;
-    let mut report = crate::fit::fit_file_with(&file, &run.refs.set, &run.options, &run.checks)
-        .map_err(|e| run.context(e))?;
+    let mut report = fit_file(file, run)?;
     if let Some(qc) = args.qc.setup(&run.refs.set)? {
         let context = |_: &str| Some(qc.context(&run.refs.set));
-        crate::target::apply_to_file(&file, &mut report, context);
+        crate::target::apply_to_file(file, &mut report, context);
     }
     if let Some(path) = &args.qc.qc_csv {
         crate::atomic::write_with(path, false, |w| output::qc::write_qc_csv(&report, w))?;
     }
-    let curves = crate::curves::for_file(&file, &run.refs.set, &run.options, &report);
+    let curves = crate::curves::for_file(file, &run.refs.set, &run.options, &report);
     let mut doc = output::JsonReport::from_report(&report);
     doc.run = Some(run_info(args, &run.shown, &run.refs.dir));
     doc.curves = Some(curves);
@@ -336,7 +378,11 @@ fn run_info(args: &Args, shown: &str, library: &std::path::Path) -> output::RunI
         ],
         [
             "input quantity".to_string(),
-            format!("{:?}", args.model.quantity).to_lowercase(),
+            args.model
+                .quantity
+                .map_or("as each file says, else absorbance".into(), |q| {
+                    format!("{q:?}").to_lowercase()
+                }),
         ],
     ];
     let checks = args.checks.options();

@@ -11,6 +11,7 @@ pub mod demo;
 pub mod diagnostic_args;
 pub mod discover;
 pub mod fit;
+pub mod inputs;
 pub mod library;
 pub mod qc_args;
 pub mod report;
@@ -206,7 +207,10 @@ mod tests {
                 crate::preprocess::Baseline::Linear
             ));
             assert_eq!(model.components, ["a", "b"]);
-            assert!(matches!(model.quantity, common::QuantityArg::Transmittance));
+            assert!(matches!(
+                model.quantity,
+                Some(common::QuantityArg::Transmittance)
+            ));
         }
     }
 

@@ -78,7 +78,7 @@ pub fn fit_stream_with<R: std::io::Read + Send, E>(
         .chain(model.check_warnings().iter().cloned())
         .collect();
     let header = stream.header.clone();
-    let read_options = stream.options();
+    let read_options = stream.options().clone();
     std::thread::scope(|scope| {
         let (tx, rx) = mpsc::sync_channel::<Result<crate::input::spectra::RawChunk>>(1);
         let (back_tx, back_rx) = mpsc::channel::<Vec<u8>>();
@@ -113,7 +113,7 @@ pub fn fit_stream_with<R: std::io::Read + Send, E>(
         for item in rx {
             let chunk = item.map_err(StreamError::Engine)?;
             let outcomes =
-                model.parse_and_fit(&chunk, &header, read_options, options.pathlength_cm);
+                model.parse_and_fit(&chunk, &header, &read_options, options.pathlength_cm);
             let _ = back_tx.send(chunk.text);
             sink(outcomes).map_err(StreamError::Sink)?;
         }
@@ -130,7 +130,7 @@ impl Model {
         &self,
         chunk: &crate::input::spectra::RawChunk,
         header: &crate::input::spectra::WideHeader,
-        read_options: crate::input::spectra::ReadOptions,
+        read_options: &crate::input::spectra::ReadOptions,
         pathlength_cm: f64,
     ) -> Vec<Outcome> {
         let n = header.grid.len();

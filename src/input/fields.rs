@@ -200,42 +200,84 @@ pub fn number(field: &[u8], decimal_comma: bool) -> Result<f64, NumberError> {
     }
 }
 
-/// Words plate readers and spectrometers print for a reading above their
-/// range (compared case-insensitively, a trailing `.` ignored). Common
-/// practice across instruments, no single source.
-pub const OVERFLOW_WORDS: &[&str] = &[
-    "over",
-    "overflow",
-    "ovrflw",
-    "ovrflow",
-    "ovfl",
-    "ovf",
-    "sat",
-    "saturated",
-    "inf",
-    "+inf",
-    "infinity",
-    "hi",
-    "high",
-    "range",
-    "out of range",
-];
-
-/// Whether a cell that is not a number is an instrument's overflow marker
-/// (a saturated reading): one of [`OVERFLOW_WORDS`], a run of `*` or `#`,
-/// or `>` followed by a number (`>4`). Other text (`x`, `abc`, `NaN`) is not:
-/// a garbled cell stays an error rather than silently becoming "saturated".
+/// Whether a cell that is not a number is a generic overflow marker (a
+/// saturated reading): `>` followed by a number (`>4`) or infinity (`inf`,
+/// `+inf`, `infinity`, any case). Words that a particular instrument prints
+/// are the user's to name ([`OverflowMarkers`]); other text (`x`, `abc`,
+/// `NaN`) is not a marker, so a garbled cell stays an error rather than
+/// silently becoming "saturated".
 pub fn is_overflow_marker(raw: &[u8], decimal_comma: bool) -> bool {
     let t = text(raw);
     let t = t.trim();
     if let Some(rest) = t.strip_prefix('>') {
         return number(rest.as_bytes(), decimal_comma).is_ok();
     }
-    if !t.is_empty() && (t.bytes().all(|b| b == b'*') || t.bytes().all(|b| b == b'#')) {
-        return true;
+    let t = t.strip_prefix('+').unwrap_or(t);
+    t.eq_ignore_ascii_case("inf") || t.eq_ignore_ascii_case("infinity")
+}
+
+/// Overflow markers: the generic notation ([`is_overflow_marker`]) plus the
+/// words the user names for their instrument (`--overflow-marker`),
+/// compared case-insensitively after trimming. Cheap to clone.
+#[derive(Debug, Clone, Default, PartialEq, Eq)]
+pub struct OverflowMarkers(std::sync::Arc<[String]>);
+
+impl OverflowMarkers {
+    /// Markers from the user's words (empty words are ignored).
+    pub fn new<S: AsRef<str>>(words: &[S]) -> Self {
+        let words: Vec<String> = words
+            .iter()
+            .map(|w| w.as_ref().trim().to_lowercase())
+            .filter(|w| !w.is_empty())
+            .collect();
+        OverflowMarkers(words.into())
     }
-    let word = t.strip_suffix('.').unwrap_or(t).to_ascii_lowercase();
-    OVERFLOW_WORDS.contains(&word.as_str())
+
+    /// The user's words (lowercased).
+    pub fn words(&self) -> &[String] {
+        &self.0
+    }
+
+    /// Whether a cell is an overflow marker: generic or one of the user's.
+    pub fn matches(&self, raw: &[u8], decimal_comma: bool) -> bool {
+        if is_overflow_marker(raw, decimal_comma) {
+            return true;
+        }
+        if self.0.is_empty() {
+            return false;
+        }
+        let t = text(raw);
+        let t = t.trim().to_lowercase();
+        self.0.contains(&t)
+    }
+}
+
+/// What a reading cell should have held, for an error message: `noun`
+/// (`an absorbance (a number)`), and when overflow markers are read and the
+/// cell holds a word, how to name it as one.
+pub fn reading_expected(noun: &str, overflow_as_saturated: bool, raw: &[u8]) -> String {
+    let t = text(raw);
+    if overflow_as_saturated && t.chars().any(char::is_alphabetic) {
+        format!(
+            "{noun} or an overflow marker (>N, inf; if your instrument prints '{}' for a reading above its range, name it with --overflow-marker)",
+            t.trim()
+        )
+    } else {
+        noun.to_string()
+    }
+}
+
+/// Whether a cell holds a reading the instrument or the user left out:
+/// empty, or `n/a`, `na`, `-`, `--` (any case). Such a point is left out of
+/// its sample's fit (common practice, no source).
+pub fn is_missing_reading(raw: &[u8]) -> bool {
+    let t = text(raw);
+    let t = t.trim();
+    t.is_empty()
+        || t == "-"
+        || t == "--"
+        || t.eq_ignore_ascii_case("n/a")
+        || t.eq_ignore_ascii_case("na")
 }
 
 #[cfg(test)]
@@ -273,14 +315,27 @@ mod tests {
     }
 
     #[test]
-    fn overflow_markers_are_recognised() {
-        for m in [
-            "OVER", "OVRFLW", "Sat.", "****", "###", ">4", "inf", "Overflow",
-        ] {
-            assert!(is_overflow_marker(m.as_bytes(), false), "{m}");
+    fn overflow_markers_are_generic_unless_the_user_names_words() {
+        for m in [">4", ">3,5", "inf", "+INF", "Infinity"] {
+            assert!(is_overflow_marker(m.as_bytes(), true), "{m}");
         }
-        for m in ["NaN", "-OVER", "abc1", ">x", "", "0.5", "x", "abc"] {
+        for m in ["NaN", "OVER", "****", "abc1", ">x", "", "0.5", "x"] {
             assert!(!is_overflow_marker(m.as_bytes(), false), "{m}");
+        }
+        let user = OverflowMarkers::new(&["Too High", " "]);
+        assert_eq!(user.words(), ["too high"]);
+        assert!(user.matches(b" TOO HIGH ", false));
+        assert!(user.matches(b">2", false));
+        assert!(!user.matches(b"too", false));
+    }
+
+    #[test]
+    fn missing_readings_are_empty_or_not_available() {
+        for m in ["", " ", "n/a", "N/A", "na", "-", "--"] {
+            assert!(is_missing_reading(m.as_bytes()), "{m}");
+        }
+        for m in ["0", "nan", "x", "-1"] {
+            assert!(!is_missing_reading(m.as_bytes()), "{m}");
         }
     }
 

@@ -5,10 +5,18 @@
 //! ([`plate`]), inputs of any layout cut into plates as they stream in
 //! ([`plates`]), and plate maps ([`platemap`]). Parsers never solve anything.
 
+pub mod asdf;
 pub mod concentrations;
 pub mod epsilon;
 pub mod fields;
+pub mod jcamp;
+pub mod kind;
 pub mod plate;
 pub mod platemap;
 pub mod plates;
+pub mod quantity;
+pub mod samples;
+pub mod shape;
 pub mod spectra;
+pub mod table;
+pub mod workbook;

@@ -9,10 +9,10 @@
 //!
 //! ```text
 //! Exported 2026-12-01 by the reader        <- lines before the first heading: skipped
-//! plate=P1 wavelength_nm=450               <- heading: `wavelength_nm=` (required), `plate=` (optional)
+//! plate=P1 wavelength_nm=450               <- heading: `wavelength_nm=` or a plain `450 nm`, `Wavelength: 450 nm`, `λ = 450 nm`; `plate=` (optional)
 //! ,1,2,3,4,5,6,7,8,9,10,11,12              <- column numbers 1–12 (or 1–24) across
 //! A,0.112,0.134,0.120,...                  <- row letter A–H (or A–P), then one cell per column
-//! B,0.101,OVER,0.099,...                   <- a word instead of a number: a saturated reading
+//! B,0.101,>4,0.099,...                     <- an overflow marker: a saturated reading
 //! ...
 //!                                          <- blank lines and other text between blocks: skipped
 //! plate=P1 wavelength_nm=451
@@ -28,9 +28,9 @@
 //! tabs (detected from the column line; with semicolons or tabs a decimal
 //! comma is read too). Empty cells past the last column are ignored.
 //!
-//! Cells: a number is a reading; an empty cell is no reading; a word with no
-//! digits (`OVER`, `OVRFLW`, `Sat`, `****`, `inf`) or `>` with a number
-//! (`>4`) is a *saturated* reading, kept as `f64::INFINITY` so that the
+//! Cells: a number is a reading; an empty cell is no reading; `>` with a
+//! number (`>4`), `inf`, or a word the user names (`--overflow-marker`, see
+//! [`Reading`]) is a *saturated* reading, kept as `f64::INFINITY` so that the
 //! batch stage can leave that point out of the fit and flag the well (the
 //! solver never sees it). `NaN` and other text fail the well, with the line
 //! and column.
@@ -227,8 +227,16 @@ fn pairs(line: &[u8]) -> impl Iterator<Item = (&[u8], &[u8])> {
     })
 }
 
-/// Read a heading line: `Some` when the line holds `wavelength_nm=`.
+/// Read a heading line: `Some` when the line holds `wavelength_nm=`, or
+/// names only a wavelength in a plain form (`450 nm`, `450nm`,
+/// `Wavelength: 450 nm`, `λ = 450 nm`; see [`plain_heading`]).
 pub fn heading(line: &[u8]) -> Option<Heading> {
+    if let Some(w) = plain_heading(line) {
+        return Some(Heading {
+            wavelength_nm: Ok(w),
+            plate: None,
+        });
+    }
     memchr::memchr(b'=', line)?;
     let mut wavelength = None;
     let mut plate = None;
@@ -249,6 +257,35 @@ pub fn heading(line: &[u8]) -> Option<Heading> {
         wavelength_nm,
         plate,
     })
+}
+
+/// Words that may stand before the wavelength of a plain heading
+/// (compared lowercased).
+const WAVELENGTH_WORDS: &[&str] = &["wavelength (nm)", "wavelength", "λ", "lambda"];
+
+/// A heading that names only a wavelength, in nm: `450 nm`, `450nm`,
+/// `Wavelength: 450 nm`, `Wavelength = 450`, `λ = 450 nm` (trailing empty
+/// cells allowed). Without a wavelength word the `nm` is required, so a
+/// number alone is never a heading.
+pub fn plain_heading(line: &[u8]) -> Option<f64> {
+    let text = std::str::from_utf8(line).ok()?;
+    let text = text.trim_end_matches([',', ';', '\t', ' ', '\r']).trim();
+    let lower = text.to_lowercase();
+    let (worded, rest) = match WAVELENGTH_WORDS.iter().find(|w| lower.starts_with(**w)) {
+        Some(w) => (true, &lower[w.len()..]),
+        None => (false, lower.as_str()),
+    };
+    let rest = rest.trim_start_matches([':', '=', ' ', ',', ';', '\t']);
+    let (number, unit) = match rest.strip_suffix("nm") {
+        Some(n) => (n.trim(), true),
+        None => (rest.trim(), false),
+    };
+    if !(worded || unit) || number.is_empty() {
+        return None;
+    }
+    fields::number(number.as_bytes(), true)
+        .ok()
+        .filter(|w| *w > 0.0)
 }
 
 /// What a grid cell holds.
@@ -298,22 +335,53 @@ fn plain_decimal(raw: &[u8]) -> Option<f64> {
     Some(if negative { -v } else { v })
 }
 
+/// How plate readings are read: what the numbers measure and which words
+/// mark a reading above the instrument's range.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct Reading {
+    /// What the numbers measure.
+    pub quantity: Quantity,
+    /// The user's overflow words besides `>N` and `inf`.
+    pub overflow_markers: fields::OverflowMarkers,
+}
+
+impl From<Quantity> for Reading {
+    fn from(quantity: Quantity) -> Self {
+        Reading {
+            quantity,
+            overflow_markers: fields::OverflowMarkers::default(),
+        }
+    }
+}
+
+impl Reading {
+    /// The options to read spectra of wells with (overflow markers as
+    /// saturated points).
+    pub fn read_options(&self) -> super::spectra::ReadOptions {
+        super::spectra::ReadOptions {
+            quantity: Some(self.quantity),
+            overflow_as_saturated: true,
+            overflow_markers: self.overflow_markers.clone(),
+            fallback_name: None,
+        }
+    }
+}
+
 /// Read one cell: a number, an overflow marker, empty, or an error message.
-fn cell(raw: &[u8], decimal_comma: bool, quantity: Quantity) -> std::result::Result<Cell, String> {
+fn cell(raw: &[u8], decimal_comma: bool, reading: &Reading) -> std::result::Result<Cell, String> {
+    let quantity = reading.quantity;
     if quantity == Quantity::Absorbance
         && let Some(v) = plain_decimal(raw)
     {
         return Ok(Cell::Value(v));
     }
     let expected = || {
-        format!(
-            "{} or an overflow marker (a word such as OVER, or >4)",
-            match quantity {
-                Quantity::Transmittance => "a transmittance fraction",
-                Quantity::TransmittancePercent => "a transmittance percentage",
-                _ => "an absorbance",
-            }
-        )
+        let noun = match quantity {
+            Quantity::Transmittance => "a transmittance fraction",
+            Quantity::TransmittancePercent => "a transmittance percentage",
+            _ => "an absorbance",
+        };
+        fields::reading_expected(noun, true, raw)
     };
     match fields::number(raw, decimal_comma) {
         Ok(v) => quantity
@@ -326,7 +394,7 @@ fn cell(raw: &[u8], decimal_comma: bool, quantity: Quantity) -> std::result::Res
             if t.trim().eq_ignore_ascii_case("nan") {
                 return Err(format!("{} (NaN is not a reading)", expected()));
             }
-            if fields::is_overflow_marker(raw, decimal_comma) {
+            if reading.overflow_markers.matches(raw, decimal_comma) {
                 Ok(Cell::Saturated)
             } else {
                 Err(expected())
@@ -447,8 +515,9 @@ pub fn parse_grid(
     text: &[u8],
     first_line: usize,
     name: &str,
-    quantity: Quantity,
+    reading: &Reading,
 ) -> Result<PlateSpectra> {
+    let quantity = reading.quantity;
     let mut blocks: Vec<GridBlock> = Vec::new();
     let mut lines = fields::lines(text)
         .map(|(n, l)| (n + first_line - 1, l))
@@ -600,7 +669,7 @@ pub fn parse_grid(
                     break; // short row: the remaining wells have no reading
                 };
                 let slot = row * MAX_COLUMNS + c;
-                let value = match cell(raw, decimal_comma, quantity) {
+                let value = match cell(raw, decimal_comma, reading) {
                     Ok(Cell::Value(v)) => {
                         read[slot] = true;
                         v
@@ -758,7 +827,35 @@ mod tests {
     use super::*;
 
     fn parse(text: &str) -> Result<PlateSpectra> {
-        parse_grid(text.as_bytes(), 1, "p", Quantity::Absorbance)
+        parse_grid(text.as_bytes(), 1, "p", &Reading::default())
+    }
+
+    #[test]
+    fn plain_headings_name_the_wavelength_in_each_form() {
+        for line in [
+            "450 nm",
+            "450nm,,,",
+            "Wavelength: 450 nm",
+            "wavelength = 450",
+            "λ = 450 nm",
+            "Lambda 450",
+        ] {
+            assert_eq!(plain_heading(line.as_bytes()), Some(450.0), "{line}");
+            assert!(heading(line.as_bytes()).is_some(), "{line}");
+        }
+        for line in [
+            "450",
+            ",1,2,3",
+            "A,0.1,0.2",
+            "Slit: 2 nm",
+            "sample,450 nm,460 nm",
+        ] {
+            assert_eq!(plain_heading(line.as_bytes()), None, "{line}");
+        }
+        let text = "Wavelength: 400 nm\n,1,2\nA,0.1,0.2\n\n410nm\n,1,2\nA,0.3,0.4\n";
+        let p = parse(text).unwrap();
+        assert_eq!(p.grid.as_ref().unwrap().wavelengths_nm(), [400.0, 410.0]);
+        assert_eq!(p.row(1), &[0.2, 0.4]);
     }
 
     #[test]
@@ -803,14 +900,25 @@ mod tests {
     }
 
     #[test]
-    fn overflow_words_become_saturated_points() {
-        let text = "wavelength_nm=400\n,1,2,3,4\nA,OVER,>4,Sat.,****\nwavelength_nm=410\n,1,2,3,4\nA,1,1,1,1\n";
-        let p = parse(text).unwrap();
+    fn generic_and_user_named_overflow_markers_become_saturated_points() {
+        let text = "wavelength_nm=400\n,1,2,3,4\nA,Too High,>4,inf,0.5\nwavelength_nm=410\n,1,2,3,4\nA,1,1,1,1\n";
+        let reading = Reading {
+            quantity: Quantity::Absorbance,
+            overflow_markers: fields::OverflowMarkers::new(&["too high"]),
+        };
+        let p = parse_grid(text.as_bytes(), 1, "p", &reading).unwrap();
         assert_eq!(p.wells.len(), 4);
-        for i in 0..4 {
+        for i in 0..3 {
             assert!(p.row(i)[0].is_infinite(), "well {i}");
             assert!((p.row(i)[1] - 1.0).abs() < 1e-12);
         }
+        // Without the user's word it is an error naming the cell and the option.
+        let p = parse(text).unwrap();
+        let e = p.failures[0].error.to_string();
+        assert!(
+            e.starts_with("line 3, column 2 ('Too High')") && e.contains("--overflow-marker"),
+            "{e}"
+        );
     }
 
     #[test]

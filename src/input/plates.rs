@@ -26,7 +26,7 @@
 
 use super::fields::{self, Delimiter};
 use super::plate::{self, PlateFormat, PlateSpectra, Well, WellFailure};
-use super::spectra::{self, Layout, Quantity, ReadOptions};
+use super::spectra::{self, Layout};
 use crate::error::{Error, Location, Result};
 use std::collections::{HashMap, HashSet, VecDeque};
 use std::io::Read;
@@ -86,9 +86,9 @@ impl RawPlate {
     }
 
     /// Parse the plate. An error means no well of the plate can be used.
-    pub fn parse(self, quantity: Quantity) -> Result<PlateSpectra> {
+    pub fn parse(self, reading: &plate::Reading) -> Result<PlateSpectra> {
         match self.kind {
-            RawKind::Grid(text) => plate::parse_grid(&text, self.first_line, &self.name, quantity),
+            RawKind::Grid(text) => plate::parse_grid(&text, self.first_line, &self.name, reading),
             RawKind::Wide { header, rows } => {
                 let mut text = Vec::with_capacity(header.len() + rows.len() + 1);
                 text.extend_from_slice(&header);
@@ -96,14 +96,8 @@ impl RawPlate {
                 text.extend_from_slice(&rows);
                 // Rows start on line 2 of `text`; shift messages to the file.
                 let shift = self.first_line.saturating_sub(2);
-                let file = spectra::read(
-                    &text,
-                    ReadOptions {
-                        quantity,
-                        overflow_as_saturated: true,
-                    },
-                )
-                .map_err(|e| shift_lines(e, shift))?;
+                let file = spectra::read(&text, reading.read_options())
+                    .map_err(|e| shift_lines(e, shift))?;
                 from_spectra(&self.name, file, shift)
                     .pop()
                     .ok_or_else(|| Error::structure(self.first_line, "no rows for this plate"))
@@ -304,11 +298,16 @@ impl<R: Read> PlateStream<R> {
     /// Start reading: detects the layout from the first part of the input.
     /// `stem` names unnamed plates (usually the file name without extension).
     /// An error here means the file cannot be read at all.
-    pub fn open(reader: R, stem: &str, quantity: Quantity) -> Result<Self> {
-        Self::open_with(reader, stem, quantity, CHUNK_BYTES)
+    pub fn open(reader: R, stem: &str, reading: &plate::Reading) -> Result<Self> {
+        Self::open_with(reader, stem, reading, CHUNK_BYTES)
     }
 
-    fn open_with(reader: R, stem: &str, quantity: Quantity, chunk_bytes: usize) -> Result<Self> {
+    fn open_with(
+        reader: R,
+        stem: &str,
+        reading: &plate::Reading,
+        chunk_bytes: usize,
+    ) -> Result<Self> {
         let mut s = PlateStream {
             chunk_bytes,
             reader,
@@ -371,13 +370,7 @@ impl<R: Read> PlateStream<R> {
             .map(|i| end + 1 + i)
             .unwrap_or(s.buf.len());
         let probe = s.buf[..probe_len].to_vec();
-        let layout = match spectra::read(
-            &probe,
-            ReadOptions {
-                quantity,
-                overflow_as_saturated: true,
-            },
-        ) {
+        let layout = match spectra::read(&probe, reading.read_options()) {
             Ok(f) => f.layout,
             Err(e) => {
                 let e = shift_lines(e, header_line - 1);
@@ -398,7 +391,7 @@ impl<R: Read> PlateStream<R> {
         s.header = Some(Arc::new(header));
         s.layout = match layout {
             Layout::Wide => InputLayout::Wide,
-            Layout::Long => InputLayout::Long,
+            _ => InputLayout::Long,
         };
         if s.layout == InputLayout::Long {
             // Read whole: a sample's rows may be anywhere.
@@ -410,13 +403,7 @@ impl<R: Read> PlateStream<R> {
             text.extend_from_slice(s.header.as_deref().map_or(&[][..], |h| h.as_slice()));
             text.push(b'\n');
             text.append(&mut s.buf);
-            let file = spectra::read(
-                &text,
-                ReadOptions {
-                    quantity,
-                    overflow_as_saturated: true,
-                },
-            )?;
+            let file = spectra::read(&text, reading.read_options())?;
             drop(text);
             let stem = s.stem.clone();
             for p in from_spectra(&stem, file, 0) {
@@ -709,12 +696,13 @@ impl<R: Read> PlateStream<R> {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::input::plate::Reading;
 
     fn plates(text: &str) -> Vec<(String, Result<PlateSpectra>)> {
-        let mut s = PlateStream::open(text.as_bytes(), "run", Quantity::Absorbance).unwrap();
+        let mut s = PlateStream::open(text.as_bytes(), "run", &Reading::default()).unwrap();
         let mut out = Vec::new();
         while let Some(p) = s.next_plate().unwrap() {
-            out.push((p.name.clone(), p.parse(Quantity::Absorbance)));
+            out.push((p.name.clone(), p.parse(&Reading::default())));
         }
         out
     }
@@ -757,7 +745,7 @@ mod tests {
         assert_eq!(p2.wells.len(), 1);
         assert_eq!(
             p2.failures[0].error.to_string(),
-            "line 4, column 3 ('x'): expected an absorbance (a number)"
+            "line 4, column 3 ('x'): expected an absorbance (a number) or an overflow marker (>N, inf; if your instrument prints 'x' for a reading above its range, name it with --overflow-marker)"
         );
     }
 
@@ -821,10 +809,10 @@ mod tests {
                     .wrapping_add(1442695040888963407);
                 text.push_str(PIECES[(x >> 33) as usize % PIECES.len()]);
             }
-            if let Ok(mut s) = PlateStream::open_with(text.as_bytes(), "r", Quantity::Absorbance, 7)
+            if let Ok(mut s) = PlateStream::open_with(text.as_bytes(), "r", &Reading::default(), 7)
             {
                 while let Ok(Some(p)) = s.next_plate() {
-                    let _ = p.parse(Quantity::Absorbance);
+                    let _ = p.parse(&Reading::default());
                 }
             }
             let _ = crate::input::platemap::read(text.as_bytes());
@@ -841,9 +829,9 @@ mod tests {
                 let at = (x >> 33) as usize % text.len();
                 text[at] = alphabet[(x >> 20) as usize % alphabet.len()];
             }
-            if let Ok(mut s) = PlateStream::open_with(&text[..], "r", Quantity::Absorbance, 5) {
+            if let Ok(mut s) = PlateStream::open_with(&text[..], "r", &Reading::default(), 5) {
                 while let Ok(Some(p)) = s.next_plate() {
-                    let _ = p.parse(Quantity::Absorbance);
+                    let _ = p.parse(&Reading::default());
                 }
             }
         }
@@ -862,11 +850,11 @@ mod tests {
         }
         let text = "plate=P1 wavelength_nm=400\n,1,2\nA,0.1,0.2\nplate=P1 wavelength_nm=410\n,1,2\nA,0.3,0.4\nplate=P2 wavelength_nm=400\n,1,2\nA,0.5,0.6";
         let mut s =
-            PlateStream::open_with(Trickle(text.as_bytes()), "x", Quantity::Absorbance, 5).unwrap();
+            PlateStream::open_with(Trickle(text.as_bytes()), "x", &Reading::default(), 5).unwrap();
         let mut names = Vec::new();
         while let Some(p) = s.next_plate().unwrap() {
             let name = p.name.clone();
-            let spectra = p.parse(Quantity::Absorbance).unwrap();
+            let spectra = p.parse(&Reading::default()).unwrap();
             names.push((name, spectra.absorbance_au));
         }
         assert_eq!(names.len(), 2);

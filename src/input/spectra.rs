@@ -11,60 +11,15 @@
 //! rows are still read. Problems with the header are fatal.
 
 use super::fields::{self, Delimiter};
+use super::quantity;
+use super::{kind, shape, table};
 use crate::error::{Error, Result};
 use crate::spectrum::{self, Grid};
 use rayon::prelude::*;
-use std::collections::HashMap;
 use std::io::Read;
 use std::sync::Arc;
 
-/// What the numbers in the file measure; converted to decadic absorbance on
-/// input.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
-pub enum Quantity {
-    /// Decadic absorbance A = −log10(T), AU.
-    #[default]
-    Absorbance,
-    /// Napierian absorbance (attenuance) −ln(T); divided by ln 10.
-    AbsorbanceNatural,
-    /// Transmittance as a fraction 0–1.
-    Transmittance,
-    /// Transmittance in percent 0–100.
-    TransmittancePercent,
-}
-
-impl Quantity {
-    /// Convert a value read from the file to decadic absorbance, or say what
-    /// was expected.
-    pub fn to_absorbance(self, v: f64) -> std::result::Result<f64, &'static str> {
-        match self {
-            Quantity::Absorbance => Ok(v),
-            Quantity::AbsorbanceNatural => Ok(v / std::f64::consts::LN_10),
-            Quantity::Transmittance => {
-                if v > 0.0 {
-                    Ok(-v.log10())
-                } else {
-                    Err("a transmittance fraction above 0")
-                }
-            }
-            Quantity::TransmittancePercent => {
-                if v > 0.0 {
-                    Ok(2.0 - v.log10())
-                } else {
-                    Err("a transmittance percentage above 0")
-                }
-            }
-        }
-    }
-
-    fn noun(self) -> &'static str {
-        match self {
-            Quantity::Absorbance | Quantity::AbsorbanceNatural => "an absorbance (a number)",
-            Quantity::Transmittance => "a transmittance fraction (a number)",
-            Quantity::TransmittancePercent => "a transmittance percentage (a number)",
-        }
-    }
-}
+pub use super::quantity::Quantity;
 
 /// Which layout the file turned out to have.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -73,18 +28,70 @@ pub enum Layout {
     Wide,
     /// One row per point.
     Long,
+    /// Wavelengths down the first column, one column per sample.
+    WavelengthDown,
+    /// One spectrum: a wavelength column and a value column.
+    Single,
+    /// JCAMP-DX labelled data records (one spectrum per block).
+    Jcamp,
+}
+
+impl Layout {
+    /// The layout's name in messages and outputs.
+    pub fn name(self) -> &'static str {
+        match self {
+            Layout::Wide => "wide",
+            Layout::Long => "long",
+            Layout::WavelengthDown => "wavelength-down",
+            Layout::Single => "single-spectrum",
+            Layout::Jcamp => "JCAMP-DX",
+        }
+    }
 }
 
 /// Options for reading spectra.
-#[derive(Debug, Clone, Copy, Default)]
+#[derive(Debug, Clone, Default)]
 pub struct ReadOptions {
-    /// What the numbers measure.
-    pub quantity: Quantity,
-    /// Read instrument overflow markers (`OVER`, `>4`, …; see
-    /// [`fields::is_overflow_marker`]) as saturated points, `f64::INFINITY`,
+    /// What the numbers measure, when the user said (`--quantity`); `None`
+    /// lets the file say (a heading, a metadata line, `##YUNITS`), else
+    /// absorbance.
+    pub quantity: Option<Quantity>,
+    /// Read overflow markers (`>4`, `inf` and the user's words, see
+    /// [`fields::OverflowMarkers`]) as saturated points, `f64::INFINITY`,
     /// instead of failing the row. Only for callers that mask such points
     /// (plate batches); `fit` leaves it off.
     pub overflow_as_saturated: bool,
+    /// The user's overflow words (`--overflow-marker`).
+    pub overflow_markers: fields::OverflowMarkers,
+    /// The name of a single-spectrum file's sample when no metadata line
+    /// names it (the file stem).
+    pub fallback_name: Option<String>,
+}
+
+impl ReadOptions {
+    /// The quantity to read a file that says nothing with.
+    pub fn quantity_or_default(&self) -> Quantity {
+        self.quantity.unwrap_or_default()
+    }
+}
+
+/// One part of a file read as a unit (the whole text, a worksheet, a
+/// JCAMP-DX block): what it was and what it said about itself.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Section {
+    /// The part's name when a file has several (`sheet 'Run 1'`, `block 2`).
+    pub name: Option<String>,
+    /// The layout found.
+    pub layout: Layout,
+    /// Metadata lines above the table, `(key, value)` (free text has an
+    /// empty key).
+    pub metadata: Vec<(String, String)>,
+    /// The quantity the values were read as.
+    pub quantity: Quantity,
+    /// Where that came from (`--quantity`, `heading '%T'`, `assumed`).
+    pub quantity_from: String,
+    /// Positions of the part's samples in the input's order of samples.
+    pub positions: std::ops::Range<usize>,
 }
 
 /// Spectra that share one wavelength grid, stored row-major.
@@ -142,53 +149,114 @@ pub struct SpectraFile {
     pub failures: Vec<RowFailure>,
     /// Number of samples (read or failed).
     pub n_samples: usize,
+    /// The parts read (one for a plain text file), with their metadata.
+    pub sections: Vec<Section>,
+    /// Things the user should know (quantity overridden or doubtful,
+    /// readings left out, lines not read).
+    pub warnings: Vec<String>,
 }
 
-/// Read a whole spectra file from its bytes (both layouts).
+impl SpectraFile {
+    /// Add the samples of another file (the next sheet, block or input)
+    /// after this one's: positions shift by this file's sample count.
+    pub fn append(&mut self, mut other: SpectraFile) {
+        let shift = self.n_samples;
+        for b in &mut other.blocks {
+            b.positions.iter_mut().for_each(|p| *p += shift);
+        }
+        for f in &mut other.failures {
+            f.position += shift;
+        }
+        for s in &mut other.sections {
+            s.positions = s.positions.start + shift..s.positions.end + shift;
+        }
+        self.blocks.append(&mut other.blocks);
+        self.failures.append(&mut other.failures);
+        self.sections.append(&mut other.sections);
+        self.warnings.append(&mut other.warnings);
+        self.n_samples += other.n_samples;
+    }
+}
+
+/// Read a whole spectra file from its bytes, in any layout and kind
+/// ([`open`]). A plain wide file whose rows could not all be read is read
+/// again by the general reader ([`table`]), which leaves missing readings
+/// out instead of failing their rows.
 pub fn read(bytes: &[u8], options: ReadOptions) -> Result<SpectraFile> {
-    match open(bytes, options)? {
-        Opened::Long(file) => Ok(file),
-        Opened::Wide(mut stream) => {
-            let grid = stream.grid().clone();
-            let delimiter = stream.header.delimiter;
-            let mut block = Block {
-                grid,
-                ids: Vec::new(),
-                positions: Vec::new(),
-                absorbance_au: Vec::new(),
-            };
-            let mut failures = Vec::new();
-            while let Some(chunk) = stream.next_chunk()? {
-                block.ids.extend(chunk.block.ids);
-                block.positions.extend(chunk.block.positions);
-                block
-                    .absorbance_au
-                    .extend_from_slice(&chunk.block.absorbance_au);
-                failures.extend(chunk.failures);
+    match open(bytes, options.clone())? {
+        Opened::Whole(file) => Ok(file),
+        Opened::Wide(stream) => {
+            let file = collect(stream)?;
+            if file
+                .failures
+                .iter()
+                .any(|f| fails_on_missing_reading(&f.error))
+            {
+                table::read(bytes, &options, &table::Part::default())
+            } else {
+                Ok(file)
             }
-            let n_samples = stream.rows_read();
-            Ok(SpectraFile {
-                layout: Layout::Wide,
-                delimiter,
-                blocks: if block.is_empty() {
-                    Vec::new()
-                } else {
-                    vec![block]
-                },
-                failures,
-                n_samples,
-            })
         }
     }
 }
 
-/// A spectra file opened for reading: a wide file streams in chunks; a
-/// long file (whose samples may be spread over the file) is read whole.
+/// Whether a row of a streamed wide file failed on a missing reading
+/// (empty, `n/a`), which [`read`] (the general reader) leaves out instead.
+pub fn fails_on_missing_reading(error: &Error) -> bool {
+    matches!(error, Error::Parse { value, .. } if fields::is_missing_reading(value.as_bytes()))
+}
+
+/// Read every chunk of a wide stream into one block (its warnings kept).
+pub fn collect<R: Read>(mut stream: WideStream<R>) -> Result<SpectraFile> {
+    let grid = stream.grid().clone();
+    let delimiter = stream.header.delimiter;
+    let mut block = Block {
+        grid,
+        ids: Vec::new(),
+        positions: Vec::new(),
+        absorbance_au: Vec::new(),
+    };
+    let mut failures = Vec::new();
+    while let Some(chunk) = stream.next_chunk()? {
+        block.ids.extend(chunk.block.ids);
+        block.positions.extend(chunk.block.positions);
+        block
+            .absorbance_au
+            .extend_from_slice(&chunk.block.absorbance_au);
+        failures.extend(chunk.failures);
+    }
+    let n_samples = stream.rows_read();
+    let quantity = stream.options.quantity_or_default();
+    Ok(SpectraFile {
+        layout: Layout::Wide,
+        delimiter,
+        blocks: if block.is_empty() {
+            Vec::new()
+        } else {
+            vec![block]
+        },
+        failures,
+        n_samples,
+        sections: vec![Section {
+            name: None,
+            layout: Layout::Wide,
+            metadata: Vec::new(),
+            quantity,
+            quantity_from: stream.quantity_from(),
+            positions: 0..n_samples,
+        }],
+        warnings: stream.warnings,
+    })
+}
+
+/// A spectra file opened for reading: a plain wide text file (its header on
+/// the first line) streams in chunks; everything else (other layouts, a
+/// metadata block, workbooks, JCAMP-DX) is read whole.
 pub enum Opened<R: Read> {
     /// Wide layout, read chunk by chunk.
     Wide(WideStream<R>),
-    /// Long layout, read completely.
-    Long(SpectraFile),
+    /// Any other shape, read completely.
+    Whole(SpectraFile),
 }
 
 /// Lines per chunk of a wide stream. Fixed (not tied to byte counts or
@@ -257,7 +325,7 @@ impl WideHeader {
         &self,
         line: &'a [u8],
         line_no: usize,
-        options: ReadOptions,
+        options: &ReadOptions,
         dst: &mut [f64],
         scratch: &mut Vec<&'a [u8]>,
     ) -> std::result::Result<String, (String, Error)> {
@@ -278,6 +346,7 @@ pub struct WideStream<R: Read> {
     next_line: usize,
     rows: usize,
     spare: Vec<f64>,
+    warnings: Vec<String>,
 }
 
 const READ_SIZE: usize = 1 << 20;
@@ -295,99 +364,142 @@ fn fill<R: Read>(reader: &mut R, buf: &mut Vec<u8>) -> Result<bool> {
     }
 }
 
-/// Open a spectra file: read up to its header, detect delimiter and layout.
+/// Where the first line with data is in the bytes read so far.
+struct FirstLine {
+    line_no: usize,
+    start: usize,
+    end: usize,
+    body_start: usize,
+    delimiter: Delimiter,
+}
+
+/// Read until the first line that carries data (BOM, blank and comment lines
+/// skipped); `None` when the input has none.
+fn first_line<R: Read>(
+    reader: &mut R,
+    buf: &mut Vec<u8>,
+    eof: &mut bool,
+) -> Result<Option<FirstLine>> {
+    while buf.len() < 3 && !*eof {
+        *eof = !fill(reader, buf)?;
+    }
+    let mut pos = if buf.starts_with(b"\xEF\xBB\xBF") {
+        3
+    } else {
+        0
+    };
+    let mut line_no = 0usize;
+    loop {
+        let found = memchr::memchr(b'\n', &buf[pos..]);
+        if found.is_none() && !*eof {
+            *eof = !fill(reader, buf)?;
+            continue;
+        }
+        let next = found.map_or(buf.len(), |i| pos + i + 1);
+        let line = &buf[pos..found.map_or(buf.len(), |i| pos + i)];
+        let line = line.strip_suffix(b"\r").unwrap_or(line);
+        line_no += 1;
+        let delimiter = Delimiter::detect(line);
+        if !fields::is_skippable(line, delimiter.byte()) {
+            return Ok(Some(FirstLine {
+                line_no,
+                start: pos,
+                end: pos + line.len(),
+                body_start: next,
+                delimiter,
+            }));
+        }
+        if found.is_none() {
+            return Ok(None);
+        }
+        pos = next;
+    }
+}
+
+/// Open a spectra file: look at what kind of file it is and where its
+/// table starts. A plain wide text file (the header on its first line with
+/// data) streams; anything else is read whole ([`kind`], [`table`]).
 pub fn open<R: Read>(mut reader: R, options: ReadOptions) -> Result<Opened<R>> {
     let mut buf = Vec::new();
     let mut eof = false;
-    let mut pos = 0usize; // start of the line being examined
-    let mut line_no = 0usize;
-    let mut bom_checked = false;
-    let (header_line, header_end, body_start, delimiter) = loop {
-        if !bom_checked && (buf.len() >= 3 || eof) {
-            if buf.starts_with(b"\xEF\xBB\xBF") {
-                pos = 3;
-            }
-            bom_checked = true;
-        }
-        if bom_checked {
-            if let Some(i) = memchr::memchr(b'\n', &buf[pos..]) {
-                line_no += 1;
-                let line = &buf[pos..pos + i];
-                let line = line.strip_suffix(b"\r").unwrap_or(line);
-                let d = Delimiter::detect(line);
-                if !fields::is_skippable(line, d.byte()) {
-                    break (line_no, pos + line.len(), pos + i + 1, d);
-                }
-                pos += i + 1;
-                continue;
-            }
-            if eof {
-                let line = &buf[pos..];
-                let line = line.strip_suffix(b"\r").unwrap_or(line);
-                let d = Delimiter::detect(line);
-                if line.is_empty() || fields::is_skippable(line, d.byte()) {
-                    return Err(Error::Empty);
-                }
-                line_no += 1;
-                break (line_no, pos + line.len(), buf.len(), d);
-            }
-        }
-        if !fill(&mut reader, &mut buf)? {
-            eof = true;
-        }
+    let first = first_line(&mut reader, &mut buf, &mut eof)?;
+    let kind = kind::sniff(&buf);
+    let first = match first {
+        Some(first) if kind == kind::Kind::Text => first,
+        _ if buf.is_empty() || (kind == kind::Kind::Text && eof) => return Err(Error::Empty),
+        _ => return read_rest(reader, buf, eof, &options).map(Opened::Whole),
     };
-    let header_bytes = &buf[pos..header_end];
     let mut raw = Vec::new();
-    fields::split(header_bytes, delimiter.byte(), &mut raw);
+    fields::split(
+        &buf[first.start..first.end],
+        first.delimiter.byte(),
+        &mut raw,
+    );
     fields::trim_trailing_empty(&mut raw);
     let names: Vec<String> = raw.iter().map(|f| fields::text(f).into_owned()).collect();
-    match classify_header(&names, header_line, delimiter)? {
-        HeaderKind::Wide(wavelengths) => {
-            let (ascending, reversed) = spectrum::ascending(wavelengths);
-            let grid = Arc::new(
-                Grid::new(ascending)
-                    .map_err(|e| Error::structure(header_line, format!("header: {e}")))?,
-            );
-            let mut stream = WideStream {
-                reader,
-                header: WideHeader {
-                    grid,
-                    reversed,
-                    n_fields: names.len(),
-                    delimiter,
-                    header_line,
-                },
-                options,
-                buf,
-                start: body_start,
-                eof,
-                next_line: header_line + 1,
-                rows: 0,
-                spare: Vec::new(),
-            };
-            if !stream.has_rows()? {
-                return Err(Error::structure(
-                    header_line,
-                    "the header is the only line: expected at least one spectrum row after it",
-                ));
-            }
-            Ok(Opened::Wide(stream))
-        }
-        HeaderKind::Long => {
-            let mut rest = buf.split_off(body_start);
-            if !eof {
-                reader
-                    .read_to_end(&mut rest)
-                    .map_err(|e| Error::io("input", e))?;
-            }
-            Ok(Opened::Long(read_long(
-                &rest,
-                header_line,
-                delimiter,
-                options,
-            )?))
-        }
+    let Some(wavelengths) = plain_wide_header(&names, first.delimiter) else {
+        return read_rest(reader, buf, eof, &options).map(Opened::Whole);
+    };
+    let (ascending, reversed) = spectrum::ascending(wavelengths);
+    let grid = Grid::new(ascending)
+        .map_err(|e| Error::structure(first.line_no, format!("header: {e}")))?;
+    let mut stream = WideStream {
+        reader,
+        header: WideHeader {
+            grid: Arc::new(grid),
+            reversed,
+            n_fields: names.len(),
+            delimiter: first.delimiter,
+            header_line: first.line_no,
+        },
+        options,
+        buf,
+        start: first.body_start,
+        eof,
+        next_line: first.line_no + 1,
+        rows: 0,
+        spare: Vec::new(),
+        warnings: Vec::new(),
+    };
+    if !stream.first_row_fits()? {
+        let WideStream {
+            reader,
+            buf,
+            eof,
+            options,
+            ..
+        } = stream;
+        return read_rest(reader, buf, eof, &options).map(Opened::Whole);
     }
+    Ok(Opened::Wide(stream))
+}
+
+/// Read the rest of the input and hand the whole to the reader of its kind.
+fn read_rest<R: Read>(
+    mut reader: R,
+    mut buf: Vec<u8>,
+    eof: bool,
+    options: &ReadOptions,
+) -> Result<SpectraFile> {
+    if !eof {
+        reader
+            .read_to_end(&mut buf)
+            .map_err(|e| Error::io("input", e))?;
+    }
+    kind::read_whole(&buf, options)
+}
+
+/// The wavelengths of a plain wide header (`sample,400,410,...`, two
+/// wavelengths or more, the first cell not a number), else `None`.
+fn plain_wide_header(names: &[String], delimiter: Delimiter) -> Option<Vec<f64>> {
+    let decimal_comma = delimiter.allows_decimal_comma();
+    if names.len() < 3 || fields::number(names[0].as_bytes(), decimal_comma).is_ok() {
+        return None;
+    }
+    names[1..]
+        .iter()
+        .map(|n| shape::header_wavelength(n.as_bytes(), decimal_comma))
+        .collect()
 }
 
 impl<R: Read> WideStream<R> {
@@ -402,8 +514,8 @@ impl<R: Read> WideStream<R> {
     }
 
     /// The reading options the stream was opened with.
-    pub fn options(&self) -> ReadOptions {
-        self.options
+    pub fn options(&self) -> &ReadOptions {
+        &self.options
     }
 
     /// Hand back a block's storage for reuse by the next chunk.
@@ -411,25 +523,62 @@ impl<R: Read> WideStream<R> {
         self.spare = block.absorbance_au;
     }
 
-    /// Whether any data line follows (reads ahead as needed).
-    fn has_rows(&mut self) -> Result<bool> {
+    /// Whether the first data line has the header's number of fields
+    /// (reads ahead as needed); when its values look like another quantity
+    /// than absorbance and the user said none, a warning is kept.
+    fn first_row_fits(&mut self) -> Result<bool> {
         loop {
             let delim = self.header.delimiter.byte();
             let rest = &self.buf[self.start..];
             let mut offset = 0;
-            for i in memchr::memchr_iter(b'\n', rest) {
-                if !fields::is_skippable(&rest[offset..i], delim) {
-                    return Ok(true);
+            let ends = memchr::memchr_iter(b'\n', rest).chain(self.eof.then_some(rest.len()));
+            for i in ends {
+                let line = rest[offset..i]
+                    .strip_suffix(b"\r")
+                    .unwrap_or(&rest[offset..i]);
+                if !fields::is_skippable(line, delim) {
+                    let line = line.to_vec();
+                    return Ok(self.check_first_row(&line));
                 }
                 offset = i + 1;
             }
             if self.eof {
-                return Ok(!fields::is_skippable(&rest[offset..], delim));
+                return Ok(false);
             }
             if !fill(&mut self.reader, &mut self.buf)? {
                 self.eof = true;
             }
         }
+    }
+
+    fn check_first_row(&mut self, line: &[u8]) -> bool {
+        let mut cells = Vec::new();
+        fields::split(line, self.header.delimiter.byte(), &mut cells);
+        fields::trim_trailing_empty(&mut cells);
+        if cells.len() != self.header.n_fields {
+            return false;
+        }
+        let decimal_comma = self.header.delimiter.allows_decimal_comma();
+        let values = cells[1..]
+            .iter()
+            .filter_map(|c| fields::number(c, decimal_comma).ok());
+        let decided = quantity::decide(self.options.quantity, None);
+        self.warnings
+            .extend(quantity::plausibility_warning(&decided, values));
+        true
+    }
+
+    /// Where the quantity the rows are read as came from.
+    fn quantity_from(&self) -> String {
+        match self.options.quantity {
+            Some(_) => "--quantity".into(),
+            None => "assumed (nothing in the file says)".into(),
+        }
+    }
+
+    /// Warnings about the input (values that look like another quantity).
+    pub fn warnings(&self) -> &[String] {
+        &self.warnings
     }
 
     /// Read the next chunk of up to [`LINES_PER_CHUNK`] lines; `None` at the
@@ -533,7 +682,7 @@ impl<R: Read> WideStream<R> {
         values.resize(lines.len() * n, 0.0);
         values.truncate(lines.len() * n);
         let header = &self.header;
-        let options = self.options;
+        let options = &self.options;
         let parsed: Vec<std::result::Result<String, (String, Error)>> = values
             .par_chunks_mut(n)
             .zip(lines.par_iter())
@@ -581,80 +730,6 @@ impl<R: Read> WideStream<R> {
             failures,
         }))
     }
-}
-
-enum HeaderKind {
-    Wide(Vec<f64>),
-    Long,
-}
-
-const WAVELENGTH_NAMES: &[&str] = &[
-    "wavelength_nm",
-    "wavelength",
-    "wavelength (nm)",
-    "nm",
-    "lambda_nm",
-];
-const VALUE_NAMES: &[&str] = &[
-    "absorbance",
-    "absorbance_au",
-    "a",
-    "transmittance",
-    "transmittance_percent",
-    "t",
-    "%t",
-    "value",
-];
-
-fn classify_header(names: &[String], line: usize, delimiter: Delimiter) -> Result<HeaderKind> {
-    if names.len() < 2 {
-        return Err(Error::structure(
-            line,
-            "header has one column: expected `sample,<wavelength>,<wavelength>,...` (wide) or `sample,wavelength_nm,absorbance` (long), separated by commas, semicolons or tabs",
-        ));
-    }
-    let second = names[1].trim().to_ascii_lowercase();
-    if WAVELENGTH_NAMES.contains(&second.as_str()) {
-        let third = names.get(2).map(|s| s.trim().to_ascii_lowercase());
-        return match third {
-            Some(t) if VALUE_NAMES.contains(&t.as_str()) => Ok(HeaderKind::Long),
-            Some(t) => Err(Error::Parse {
-                at: crate::error::Location {
-                    line,
-                    column: Some(3),
-                },
-                value: t,
-                expected:
-                    "'absorbance' or 'transmittance' as the third column of a long-layout file"
-                        .into(),
-            }),
-            None => Err(Error::structure(
-                line,
-                "long-layout header has two columns: expected `sample,wavelength_nm,absorbance`",
-            )),
-        };
-    }
-    let mut wavelengths = Vec::with_capacity(names.len() - 1);
-    for (i, name) in names.iter().enumerate().skip(1) {
-        let t = name.trim();
-        let t = t
-            .strip_suffix("nm")
-            .or_else(|| t.strip_suffix("NM"))
-            .unwrap_or(t)
-            .trim();
-        match fields::number(t.as_bytes(), delimiter.allows_decimal_comma()) {
-            Ok(w) => wavelengths.push(w),
-            Err(e) => {
-                return Err(Error::parse(
-                    line,
-                    i + 1,
-                    name.as_bytes(),
-                    e.expected("a wavelength in nm in the header of a wide-layout file (or `sample,wavelength_nm,absorbance` for the long layout)"),
-                ));
-            }
-        }
-    }
-    Ok(HeaderKind::Wide(wavelengths))
 }
 
 /// Powers of ten exactly representable as f64.
@@ -854,7 +929,7 @@ fn parse_wide_row<'a>(
     line: &'a [u8],
     line_no: usize,
     header: &WideHeader,
-    options: ReadOptions,
+    options: &ReadOptions,
     dst: &mut [f64],
     scratch: &mut Vec<&'a [u8]>,
 ) -> std::result::Result<String, (String, Error)> {
@@ -862,6 +937,7 @@ fn parse_wide_row<'a>(
     let decimal_comma = header.delimiter.allows_decimal_comma();
     let n = dst.len();
     let n_fields = header.n_fields;
+    let quantity = options.quantity_or_default();
     let id = match fast_row(line, delim, decimal_comma, dst) {
         Some(id_end) => {
             let id = fields::text(&line[..id_end]).into_owned();
@@ -871,9 +947,9 @@ fn parse_wide_row<'a>(
                     Error::parse(line_no, 1, b"", "a sample name in the first column"),
                 ));
             }
-            if !matches!(options.quantity, Quantity::Absorbance) {
+            if !matches!(quantity, Quantity::Absorbance) {
                 for (k, v) in dst.iter_mut().enumerate() {
-                    match options.quantity.to_absorbance(*v) {
+                    match quantity.to_absorbance(*v) {
                         Ok(a) => *v = a,
                         Err(expected) => {
                             // Find the field again for the message.
@@ -911,14 +987,17 @@ fn parse_wide_row<'a>(
             for (col, field) in scratch[1..].iter().enumerate() {
                 if options.overflow_as_saturated
                     && fields::number(field, decimal_comma).is_err()
-                    && fields::is_overflow_marker(field, decimal_comma)
+                    && options.overflow_markers.matches(field, decimal_comma)
                 {
                     dst[col] = f64::INFINITY;
                     continue;
                 }
                 let v = fields::number(field, decimal_comma)
-                    .map_err(|e| e.expected(options.quantity.noun()))
-                    .and_then(|v| options.quantity.to_absorbance(v).map_err(str::to_string))
+                    .map_err(|e| {
+                        let noun = e.expected(quantity.noun());
+                        fields::reading_expected(&noun, options.overflow_as_saturated, field)
+                    })
+                    .and_then(|v| quantity.to_absorbance(v).map_err(str::to_string))
                     .map_err(|expected| {
                         (id.clone(), Error::parse(line_no, col + 2, field, expected))
                     })?;
@@ -931,145 +1010,6 @@ fn parse_wide_row<'a>(
         dst.reverse();
     }
     Ok(id)
-}
-
-fn read_long(
-    body: &[u8],
-    header_line: usize,
-    delimiter: Delimiter,
-    options: ReadOptions,
-) -> Result<SpectraFile> {
-    struct Pending {
-        id: String,
-        first_line: usize,
-        points: Vec<(f64, f64)>,
-        error: Option<Error>,
-    }
-    let delim = delimiter.byte();
-    let decimal_comma = delimiter.allows_decimal_comma();
-    let mut order: Vec<Pending> = Vec::new();
-    let mut index: HashMap<String, usize> = HashMap::new();
-    let mut scratch = Vec::new();
-    let mut any = false;
-    for (n, line) in fields::lines(body) {
-        let line_no = n + header_line;
-        if fields::is_skippable(line, delim) {
-            continue;
-        }
-        any = true;
-        fields::split(line, delim, &mut scratch);
-        fields::trim_trailing_empty(&mut scratch);
-        let id = fields::text(scratch[0]).into_owned();
-        let slot = *index.entry(id.clone()).or_insert_with(|| {
-            order.push(Pending {
-                id: id.clone(),
-                first_line: line_no,
-                points: Vec::new(),
-                error: None,
-            });
-            order.len() - 1
-        });
-        let pending = &mut order[slot];
-        if pending.error.is_some() {
-            continue;
-        }
-        let row = (|| -> Result<(f64, f64)> {
-            if id.is_empty() {
-                return Err(Error::parse(
-                    line_no,
-                    1,
-                    b"",
-                    "a sample name in the first column",
-                ));
-            }
-            if scratch.len() != 3 {
-                return Err(Error::structure(
-                    line_no,
-                    format!(
-                        "{} fields: expected 3 (sample, wavelength in nm, value)",
-                        scratch.len()
-                    ),
-                ));
-            }
-            let w = fields::number(scratch[1], decimal_comma).map_err(|e| {
-                Error::parse(line_no, 2, scratch[1], e.expected("a wavelength in nm"))
-            })?;
-            if options.overflow_as_saturated
-                && fields::number(scratch[2], decimal_comma).is_err()
-                && fields::is_overflow_marker(scratch[2], decimal_comma)
-            {
-                return Ok((w, f64::INFINITY));
-            }
-            let v = fields::number(scratch[2], decimal_comma)
-                .map_err(|e| e.expected(options.quantity.noun()))
-                .and_then(|v| options.quantity.to_absorbance(v).map_err(str::to_string))
-                .map_err(|expected| Error::parse(line_no, 3, scratch[2], expected))?;
-            Ok((w, v))
-        })();
-        match row {
-            Ok(p) => pending.points.push(p),
-            Err(e) => pending.error = Some(e),
-        }
-    }
-    if !any {
-        return Err(Error::structure(
-            header_line,
-            "the header is the only line: expected rows of `sample,wavelength_nm,absorbance` after it",
-        ));
-    }
-    let total = order.len();
-    let mut failures = Vec::new();
-    let mut groups: HashMap<Vec<u64>, usize> = HashMap::new();
-    let mut blocks: Vec<Block> = Vec::new();
-    for (position, p) in order.into_iter().enumerate() {
-        if let Some(error) = p.error {
-            failures.push(RowFailure {
-                position,
-                sample: p.id,
-                error,
-            });
-            continue;
-        }
-        let (w, a): (Vec<f64>, Vec<f64>) = p.points.into_iter().unzip();
-        let (w, reversed) = spectrum::ascending(w);
-        let mut a = a;
-        if reversed {
-            a.reverse();
-        }
-        let grid = match Grid::new(w) {
-            Ok(g) => g,
-            Err(e) => {
-                let error = Error::structure(p.first_line, format!("sample '{}': {e}", p.id));
-                failures.push(RowFailure {
-                    position,
-                    sample: p.id,
-                    error,
-                });
-                continue;
-            }
-        };
-        let key: Vec<u64> = grid.wavelengths_nm().iter().map(|w| w.to_bits()).collect();
-        let b = *groups.entry(key).or_insert_with(|| {
-            blocks.push(Block {
-                grid: Arc::new(grid),
-                ids: Vec::new(),
-                positions: Vec::new(),
-                absorbance_au: Vec::new(),
-            });
-            blocks.len() - 1
-        });
-        let block = &mut blocks[b];
-        block.ids.push(p.id);
-        block.positions.push(position);
-        block.absorbance_au.extend_from_slice(&a);
-    }
-    Ok(SpectraFile {
-        layout: Layout::Long,
-        delimiter,
-        blocks,
-        failures,
-        n_samples: total,
-    })
 }
 
 #[cfg(test)]
@@ -1128,12 +1068,14 @@ mod tests {
 
     #[test]
     fn short_row_is_reported() {
+        // A short row's last readings are missing (spreadsheets drop
+        // trailing empty cells): one of two is more than 10 %.
         let f = read_str("sample,400,500\ns1,0.1\n").unwrap();
         assert!(
             f.failures[0]
                 .error
                 .to_string()
-                .contains("2 fields but the header has 3")
+                .contains("line 2: column 3: 1 of 2 readings")
         );
     }
 
@@ -1154,10 +1096,10 @@ mod tests {
     #[test]
     fn transmittance_is_converted_to_absorbance() {
         let opts = ReadOptions {
-            quantity: Quantity::TransmittancePercent,
+            quantity: Some(Quantity::TransmittancePercent),
             ..Default::default()
         };
-        let f = read("sample,400\ns,10\n".as_bytes(), opts).unwrap();
+        let f = read("sample,400\ns,10\n".as_bytes(), opts.clone()).unwrap();
         assert!((f.blocks[0].row(0)[0] - 1.0).abs() < 1e-12);
         let f = read("sample,400\ns,0\n".as_bytes(), opts).unwrap();
         assert!(f.failures[0].error.to_string().contains("above 0"));

@@ -80,16 +80,16 @@ fn bench(c: &mut Criterion) {
     let mut g = c.benchmark_group("batch");
     g.throughput(Throughput::Elements(96));
     g.bench_function("parse_plate_grid_96x401", |b| {
-        b.iter(|| parse_grid(text.as_bytes(), 1, "B", Quantity::Absorbance).unwrap())
+        b.iter(|| parse_grid(text.as_bytes(), 1, "B", &Quantity::Absorbance.into()).unwrap())
     });
     g.bench_function("parse_process_render_96x401", |b| {
         b.iter(|| {
-            let p = parse_grid(text.as_bytes(), 1, "B", Quantity::Absorbance).unwrap();
+            let p = parse_grid(text.as_bytes(), 1, "B", &Quantity::Absorbance.into()).unwrap();
             let r = process_plate(p, "bench", Some(&map), &models, &options);
             unblend::output::batch::render_plate(&r)
         })
     });
-    let parsed = || parse_grid(text.as_bytes(), 1, "B", Quantity::Absorbance).unwrap();
+    let parsed = || parse_grid(text.as_bytes(), 1, "B", &Quantity::Absorbance.into()).unwrap();
     g.bench_function("process_96x401", |b| {
         b.iter_batched(
             parsed,

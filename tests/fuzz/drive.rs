@@ -8,8 +8,9 @@
 //! (finite numbers, ascending wavelengths, consistent lengths).
 #![allow(dead_code)]
 
+use unblend::input::fields::OverflowMarkers;
 use unblend::input::spectra::{self, Quantity, ReadOptions};
-use unblend::input::{concentrations, epsilon, plate, platemap, plates};
+use unblend::input::{concentrations, epsilon, jcamp, plate, platemap, plates, table, workbook};
 use unblend::reference::Component;
 
 const QUANTITIES: [Quantity; 4] = [
@@ -38,13 +39,21 @@ pub fn spectra(data: &[u8]) {
     // saturated points, +inf (plate batches).
     let overflow_as_saturated = data.get(1).is_some_and(|b| b % 2 == 1);
     let options = ReadOptions {
-        quantity: quantity(data),
+        quantity: Some(quantity(data)),
         overflow_as_saturated,
+        ..Default::default()
     };
-    let Ok(file) = spectra::read(data, options) else {
+    let Ok(file) = spectra::read(data, options.clone()) else {
         return;
     };
-    raw_rows_agree(data, options, &file);
+    raw_rows_agree(data, &options, &file);
+    check_file(&file, overflow_as_saturated);
+}
+
+/// What a `SpectraFile` promises: ascending grids, one row of finite values
+/// (or saturated points) per sample, every sample once.
+fn check_file(file: &spectra::SpectraFile, overflow_as_saturated: bool) {
+    let mut positions: Vec<usize> = file.failures.iter().map(|f| f.position).collect();
     for block in &file.blocks {
         let grid = block.grid.wavelengths_nm();
         assert!(ascending(grid), "accepted grid is not ascending");
@@ -55,13 +64,59 @@ pub fn spectra(data: &[u8]) {
                 .iter()
                 .all(|v| v.is_finite() || (overflow_as_saturated && plate::is_saturated(*v)))
         );
+        positions.extend(&block.positions);
+    }
+    positions.sort_unstable();
+    assert!(
+        positions.iter().enumerate().all(|(i, p)| i == *p),
+        "positions are not 0..n"
+    );
+    assert_eq!(positions.len(), file.n_samples);
+}
+
+/// Any text layout under any metadata block, read by the general reader,
+/// every quantity (or none, so the file decides).
+pub fn table(data: &[u8]) {
+    let q = data
+        .get(1)
+        .is_some_and(|b| b % 2 == 1)
+        .then(|| quantity(data));
+    let options = ReadOptions {
+        quantity: q,
+        overflow_as_saturated: data.get(2).is_some_and(|b| b % 2 == 1),
+        overflow_markers: OverflowMarkers::new(&["over"]),
+        fallback_name: Some("fuzz".into()),
+    };
+    if let Ok(file) = table::read(data, &options, &table::Part::default()) {
+        check_file(&file, options.overflow_as_saturated);
+    }
+}
+
+/// JCAMP-DX files (AFFN, ASDF, XYPOINTS, linked blocks).
+pub fn jcamp(data: &[u8]) {
+    let options = ReadOptions {
+        quantity: data
+            .get(3)
+            .is_some_and(|b| b % 2 == 1)
+            .then(|| quantity(data)),
+        ..Default::default()
+    };
+    if let Ok(file) = jcamp::read(data, &options) {
+        check_file(&file, false);
+    }
+}
+
+/// Spreadsheet workbooks (the bytes of .xlsx/.ods files, damaged or not).
+pub fn workbook(data: &[u8]) {
+    if let Ok(file) = workbook::read(data, &ReadOptions::default()) {
+        check_file(&file, false);
     }
 }
 
 /// The streamed path of `fit` (raw chunks, each row parsed where it is
 /// fitted) reads the same rows, values and failures as `read`.
-fn raw_rows_agree(data: &[u8], options: ReadOptions, file: &spectra::SpectraFile) {
-    let Ok(spectra::Opened::Wide(mut stream)) = spectra::open(data, options) else {
+fn raw_rows_agree(data: &[u8], options: &ReadOptions, file: &spectra::SpectraFile) {
+    let Ok(spectra::Opened::Wide(mut stream)) = spectra::open(data, options.clone()) else {
         return;
     };
     let header = stream.header.clone();
@@ -79,6 +134,8 @@ fn raw_rows_agree(data: &[u8], options: ReadOptions, file: &spectra::SpectraFile
                     ids.push(id);
                     values.extend_from_slice(&row);
                 }
+                // `read` reads such a file again, leaving the reading out.
+                Err((_, e)) if spectra::fails_on_missing_reading(&e) => return,
                 Err(_) => failed += 1,
             }
         }
@@ -126,16 +183,19 @@ pub fn concentrations(data: &[u8]) {
 /// Plate grids, one plate parsed directly and the same bytes as a stream
 /// of plates (any layout).
 pub fn plate_grid(data: &[u8]) {
-    let q = quantity(data);
-    if let Ok(p) = plate::parse_grid(data, 1, "fuzz", q) {
+    let q = plate::Reading {
+        quantity: quantity(data),
+        overflow_markers: OverflowMarkers::new(&["over"]),
+    };
+    if let Ok(p) = plate::parse_grid(data, 1, "fuzz", &q) {
         check_plate(&p);
     }
-    let Ok(mut stream) = plates::PlateStream::open(data, "fuzz", q) else {
+    let Ok(mut stream) = plates::PlateStream::open(data, "fuzz", &q) else {
         return;
     };
     // A stream over bytes cannot fail on I/O; stop at the first error anyway.
     while let Ok(Some(raw)) = stream.next_plate() {
-        if let Ok(p) = raw.parse(q) {
+        if let Ok(p) = raw.parse(&q) {
             check_plate(&p);
         }
     }
@@ -183,8 +243,11 @@ pub fn component(data: &[u8]) {
 pub type Target = fn(&[u8]);
 
 /// Every target by name (the folder names under `corpus/` and `regressions/`).
-pub const TARGETS: [(&str, Target); 6] = [
+pub const TARGETS: [(&str, Target); 9] = [
     ("spectra", spectra),
+    ("table", table),
+    ("jcamp", jcamp),
+    ("workbook", workbook),
     ("epsilon", epsilon),
     ("concentrations", concentrations),
     ("plate_grid", plate_grid),

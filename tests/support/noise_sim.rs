@@ -206,6 +206,8 @@ pub fn simulate(s: &Scenario) -> Simulated {
             }],
             failures: Vec::new(),
             n_samples: n,
+            sections: Vec::new(),
+            warnings: Vec::new(),
         },
         truth,
         refs,
