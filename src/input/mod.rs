@@ -6,6 +6,7 @@
 //! ([`plates`]), and plate maps ([`platemap`]). Parsers never solve anything.
 
 pub mod concentrations;
+pub mod emission;
 pub mod epsilon;
 pub mod fields;
 pub mod plate;
