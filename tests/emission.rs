@@ -435,3 +435,64 @@ fn quinine_like_calibration_series_is_straightened_by_the_correction() {
         assert!((got / conc - 1.0).abs() < 0.002, "{conc}: {got}");
     }
 }
+
+/// An emission reference from a quinine-like calibration series (shape as
+/// above): two blanks and eight levels up to A_ex ≈ 0.29; the top levels,
+/// bent by the inner filter, are left out and named, and the curve from the
+/// dilute levels matches the truth.
+#[test]
+fn emission_reference_from_calibration_leaves_out_inner_filtered_standards() {
+    use unblend::calibrate::{CalibrationOptions, Provenance};
+    use unblend::emission::calibrate::emission_curve;
+    use unblend::input::concentrations::{Role, Standard};
+    let eps = |w: f64| 5700.0 * gauss(w, 347.5, 20.0);
+    let shape = |w: f64| 5.0e9 * gauss(w, 450.0, 42.0);
+    let concs = [0.0, 0.0, 1e-6, 2e-6, 4e-6, 6e-6, 8e-6, 1e-5, 3e-5, 5e-5];
+    let mut rng = StdRng::seed_from_u64(23);
+    let noise = Normal::new(0.0, 20.0).unwrap();
+    let (mut ids, mut rows, mut standards) = (vec![], vec![], vec![]);
+    for (i, &c) in concs.iter().enumerate() {
+        let id = format!("std-{i}");
+        for &w in &em_grid() {
+            let f = shape(w) * c / true_factor(eps(350.0) * c, eps(w) * c);
+            rows.push(f + 30.0 + noise.sample(&mut rng));
+        }
+        standards.push(Standard {
+            sample: id.clone(),
+            line: i + 2,
+            concentration_mol_per_l: c,
+            role: if c > 0.0 { Role::Standard } else { Role::Blank },
+        });
+        ids.push(id);
+    }
+    let spectra = file(ids, em_grid(), rows);
+    let (curve, result) = emission_curve(
+        &spectra,
+        &standards,
+        &CalibrationOptions::default(),
+        &Provenance::default(),
+        350.0,
+    )
+    .unwrap();
+    let mut left_out: Vec<&str> = result
+        .calibration
+        .excluded_standards
+        .iter()
+        .map(|e| e.sample.as_str())
+        .collect();
+    left_out.sort();
+    // A_ex = 0.17 and 0.29 lose 18 % and 28 % of their emission.
+    assert_eq!(left_out, ["std-8", "std-9"]);
+    let at450 = curve
+        .grid
+        .wavelengths_nm()
+        .iter()
+        .position(|&w| (w - 450.0).abs() < 1e-9)
+        .unwrap();
+    // The kept levels (A_ex ≤ 0.057) still lose up to 6 % at the top, within
+    // the linearity tolerance: the slope comes out about 7 % low, as any
+    // calibration of uncorrected emission does (so keep standards dilute).
+    let ratio = curve.intensity_per_mol_per_l[at450] / shape(450.0);
+    assert!(ratio > 0.90 && ratio < 1.0, "{ratio}");
+    assert!((curve.excitation_nm - 350.0).abs() < 1e-12);
+}

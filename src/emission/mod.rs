@@ -22,8 +22,10 @@
 //! place of ε and a pathlength of one; residuals are in the input's
 //! intensity units.
 
+pub mod calibrate;
 pub mod fit;
 pub mod inner_filter;
+pub mod limits;
 pub mod raman;
 
 pub use fit::{
