@@ -328,7 +328,10 @@ fn raman_band_is_found_at_the_right_shift_for_two_excitations() {
         for o in &out {
             let raman = fitted(o).raman.clone().unwrap();
             assert!((raman.band_nm - want).abs() < 1e-9);
-            assert!((raman.height / 200.0 - 1.0).abs() < 0.05, "{ex}: {raman:?}");
+            assert!(
+                (raman.height_intensity / 200.0 - 1.0).abs() < 0.05,
+                "{ex}: {raman:?}"
+            );
         }
         let errors = relative_errors(&s.truth, &out);
         assert!(

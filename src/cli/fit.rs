@@ -1,6 +1,7 @@
 //! `unblend fit`: fit spectra against reference components.
 
 use super::diagnostic_args::DiagnosticArgs;
+use super::emission_args::EmissionArgs;
 use super::{Failure, exit, library_dir, parse_positive, parse_range_nm};
 use crate::fit::{FitOptions, FitReport, Outcome, StreamError, fit_stream_with};
 use crate::input::spectra::{self, Opened, Quantity, ReadOptions, WideStream};
@@ -48,6 +49,9 @@ pub struct Args {
     /// Residual tests and saturation masking.
     #[command(flatten)]
     pub checks: DiagnosticArgs,
+    /// Emission (fluorescence) fits.
+    #[command(flatten)]
+    pub emission: EmissionArgs,
     /// Also write a self-contained HTML report (summary, one figure per sample: measured, fitted, stacked component contributions, residual with the ±2σ noise band).
     #[arg(long, value_name = "FILE.html")]
     pub report: Option<PathBuf>,
@@ -173,6 +177,9 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             components: candidates.components,
         });
     }
+    if args.emission.is_emission() {
+        return run_emission(&args, &refs, options, &checks, format, &shown);
+    }
     if args.with_curves && format != Format::Json {
         return Err(Failure::new(
             "--with-curves adds the fit curves to the JSON results: use it with --format json",
@@ -242,6 +249,59 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             Ok(exit_code(&report))
         }
     }
+}
+
+/// `--signal emission`: read the whole input, fit the emission references
+/// at the excitation (inner-filter correction, Raman term), write the
+/// emission outputs.
+fn run_emission(
+    args: &Args,
+    refs: &ReferenceSet,
+    options: FitOptions,
+    checks: &crate::diagnostics::Options,
+    format: Format,
+    shown: &str,
+) -> Result<u8, Failure> {
+    if args.report.is_some()
+        || args.plot.is_some()
+        || args.with_curves
+        || args.screen_with.is_some()
+    {
+        return Err(Failure::new(
+            "--signal emission writes the table, CSV or JSON only: drop --report, --plot, --with-curves and --screen-with",
+        ));
+    }
+    let em = args.emission.options()?.with_fit(options);
+    let ctx = |e: crate::Error| Failure::new(format!("{shown}: {e}"));
+    let bytes = read_input(&args.input)?;
+    let file = spectra::read(&bytes, ReadOptions::default()).map_err(ctx)?;
+    let report = crate::emission::fit_emission(&file, refs, &em, checks).map_err(ctx)?;
+    for w in &report.warnings {
+        eprintln!("unblend: warning: {w}");
+    }
+    let n_failed = report
+        .outcomes
+        .iter()
+        .filter(|o| matches!(o, crate::emission::EmissionOutcome::Failed(_)))
+        .count();
+    match args.out.as_deref() {
+        Some(path) => {
+            crate::atomic::write_with(path, false, |w| {
+                output::emission::write(&report, format, w)
+            })?;
+            eprintln!("{}", summary(report.outcomes.len(), n_failed, path));
+        }
+        None => {
+            let mut lock = std::io::BufWriter::new(std::io::stdout().lock());
+            let r = output::emission::write(&report, format, &mut lock).and_then(|_| lock.flush());
+            if let Err(e) = r
+                && e.kind() != std::io::ErrorKind::BrokenPipe
+            {
+                return Err(Failure::new(format!("standard output: {e}")));
+            }
+        }
+    }
+    Ok(code_for(report.outcomes.len(), n_failed))
 }
 
 /// Pixels per SVG pixel in a PNG figure (sharp on high-density screens and

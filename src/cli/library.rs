@@ -4,7 +4,7 @@
 use super::calibrate::{ReportFormat, print_stdout, sig};
 use super::fit::BaselineArg;
 use super::{Failure, exit, library_dir, parse_positive, parse_range_nm};
-use crate::reference::{Component, Conditions, Library, Source};
+use crate::reference::{Component, Conditions, EmissionCurve, Library, Source};
 use crate::separability::{self, CheckOptions, CheckReport, DEFAULT_NOISE_AU};
 use sha2::{Digest, Sha256};
 use std::path::PathBuf;
@@ -28,9 +28,18 @@ pub enum Command {
 pub struct AddArgs {
     /// Component name (letters, digits, '-', '_', '.'); the file is NAME.toml.
     pub name: String,
-    /// CSV with header `wavelength_nm,epsilon`, ε in L/(mol·cm).
+    /// CSV with header `wavelength_nm,epsilon`, ε in L/(mol·cm) (needed for a new component).
     #[arg(long, value_name = "FILE")]
-    pub spectrum: PathBuf,
+    pub spectrum: Option<PathBuf>,
+    /// Emission curve, CSV with header `wavelength_nm,intensity_per_mol_per_l` (emission per mol/L at one excitation, on your instrument and settings); added to the component, or to an existing one without --spectrum.
+    #[arg(long, value_name = "FILE")]
+    pub emission: Option<PathBuf>,
+    /// Excitation wavelength of --emission, nm (or a `# excitation_nm = X` line in the file).
+    #[arg(long, value_parser = parse_positive, value_name = "NM", requires = "emission")]
+    pub excitation_nm: Option<f64>,
+    /// Instrument and settings the emission curve holds for (slits, detector voltage, reader), kept with it.
+    #[arg(long, value_name = "TEXT", requires = "emission")]
+    pub instrument_note: Option<String>,
     /// Library folder [default: $UNBLEND_LIBRARY or ./library].
     #[arg(long, value_name = "DIR")]
     pub library: Option<PathBuf>,
@@ -144,17 +153,24 @@ pub fn run(cmd: Command) -> Result<u8, Failure> {
 
 fn add(a: AddArgs) -> Result<u8, Failure> {
     crate::reference::component::validate_name(&a.name)?;
-    let shown = a.spectrum.display().to_string();
-    let bytes = std::fs::read(&a.spectrum).map_err(|e| Failure::new(format!("{shown}: {e}")))?;
+    let Some(spectrum) = a.spectrum.clone() else {
+        return add_emission_only(a);
+    };
+    let emission = a
+        .emission
+        .as_deref()
+        .map(|p| emission_curve(p, &a))
+        .transpose()?;
+    let shown = spectrum.display().to_string();
+    let bytes = std::fs::read(&spectrum).map_err(|e| Failure::new(format!("{shown}: {e}")))?;
     let table =
         crate::input::epsilon::read(&bytes).map_err(|e| Failure::new(format!("{shown}: {e}")))?;
     let sha = hex(&Sha256::digest(&bytes));
-    let file_name = a
-        .spectrum
+    let file_name = spectrum
         .file_name()
         .map(|s| s.to_string_lossy().into_owned())
         .unwrap_or(shown.clone());
-    let c = Component {
+    let mut c = Component {
         name: a.name.clone(),
         molar_mass_g_per_mol: a.molar_mass,
         note: a.note,
@@ -174,6 +190,9 @@ fn add(a: AddArgs) -> Result<u8, Failure> {
         epsilon_std_error_l_per_mol_cm: None,
         extra: toml::Table::new(),
     };
+    if let Some(curve) = emission {
+        c.set_emission(curve)?;
+    }
     let dir = library_dir(a.library);
     let path = Library::add(&dir, &c, a.replace)?;
     let (lo, hi) = c.range_nm();
@@ -183,6 +202,65 @@ fn add(a: AddArgs) -> Result<u8, Failure> {
         c.name,
         path.display(),
         c.grid.len()
+    );
+    Ok(exit::OK)
+}
+
+/// Read `--emission` with its excitation and instrument note.
+fn emission_curve(path: &std::path::Path, a: &AddArgs) -> Result<EmissionCurve, Failure> {
+    let shown = path.display().to_string();
+    let ctx = |e: crate::Error| Failure::new(format!("{shown}: {e}"));
+    let bytes = std::fs::read(path).map_err(|e| Failure::new(format!("{shown}: {e}")))?;
+    let table = crate::input::emission::read(&bytes, a.excitation_nm).map_err(ctx)?;
+    if table.n_zeroed > 0 {
+        eprintln!(
+            "unblend: note: {shown}: {} small negative intensities (noise around zero) set to 0",
+            table.n_zeroed
+        );
+    }
+    let mut curve = EmissionCurve::new(
+        table.excitation_nm,
+        table.grid.wavelengths_nm().to_vec(),
+        table.intensity_per_mol_per_l,
+    )
+    .map_err(ctx)?;
+    curve.instrument_note = a.instrument_note.clone();
+    curve.source_file = path.file_name().map(|s| s.to_string_lossy().into_owned());
+    Ok(curve)
+}
+
+/// `library add NAME --emission FILE` without `--spectrum`: add the
+/// emission curve to a component already in the library.
+fn add_emission_only(a: AddArgs) -> Result<u8, Failure> {
+    let Some(path) = a.emission.as_deref() else {
+        return Err(Failure::new(
+            "library add: give --spectrum FILE (absorptivity), --emission FILE (emission curve) or both",
+        ));
+    };
+    let curve = emission_curve(path, &a)?;
+    let dir = library_dir(a.library.clone());
+    let lib = Library::open(&dir)?;
+    let Some(existing) = lib.get(&a.name) else {
+        return Err(Failure::new(format!(
+            "no component named '{}' in {}: a new component needs its absorptivity curve too (--spectrum FILE)",
+            a.name,
+            dir.display()
+        )));
+    };
+    let mut c = existing.clone();
+    let (ex, n) = (curve.excitation_nm, curve.grid.len());
+    c.set_emission(curve)?;
+    let written = Library::add(&dir, &c, true)?;
+    let all: Vec<String> = c
+        .emission_curves()
+        .iter()
+        .map(|e| format!("{} nm", e.excitation_nm))
+        .collect();
+    println!(
+        "added an emission curve at excitation {ex} nm ({n} points) to '{}' in {} (emission curves at {})",
+        c.name,
+        written.display(),
+        all.join(", ")
     );
     Ok(exit::OK)
 }

@@ -9,6 +9,7 @@ pub mod calibrate;
 pub mod demo;
 pub mod diagnostic_args;
 pub mod discover;
+pub mod emission_args;
 pub mod fit;
 pub mod library;
 pub mod report;

@@ -125,9 +125,9 @@ pub struct RamanResult {
     /// Centre of the band, nm.
     pub band_nm: f64,
     /// Height of the band, in the input's intensity units.
-    pub height: f64,
+    pub height_intensity: f64,
     /// Its standard error, same units.
-    pub std_error: Option<f64>,
+    pub std_error_intensity: Option<f64>,
 }
 
 /// The inner-filter correction applied to one sample.
@@ -498,8 +498,8 @@ impl<'a> GridFit<'a> {
             let term = r.components.pop()?;
             Some(RamanResult {
                 band_nm,
-                height: term.concentration_mol_per_l,
-                std_error: term.std_error_mol_per_l,
+                height_intensity: term.concentration_mol_per_l,
+                std_error_intensity: term.std_error_mol_per_l,
             })
         });
         if raman.is_some() {
