@@ -36,5 +36,6 @@ pub mod report;
 pub mod separability;
 pub mod solver;
 pub mod spectrum;
+pub mod stats;
 
 pub use error::{Error, Result};
