@@ -294,7 +294,7 @@ fn without_correction_the_bias_at_a_ex_0_2_shows_and_the_flag_is_raised() {
     );
     let errors = relative_errors(&s.truth, &out);
     let mean = errors.iter().sum::<f64>() / errors.len() as f64;
-    // 10^(−(0.2 + A_em)/2) ≤ 0.79: at least 20 % low (here about 25 %).
+    // 10^(−(0.2 + A_em)/2) ≤ 0.79: about 20 % low or more (here about 22 %).
     eprintln!("uncorrected bias at A_ex = 0.2: mean {:.1} %", 100.0 * mean);
     assert!(mean < -0.15, "{mean}");
     for o in &out {
