@@ -348,3 +348,86 @@ fn emission_curve_is_added_to_an_existing_component_and_kept() {
     let out = unblend(&["library", "list", "--library", &lib]);
     assert!(out.status.success());
 }
+
+/// `calibrate --emission`: standards of glint-teal made from its demo curve,
+/// the top two bent by the inner filter (Lakowicz centred form applied
+/// here, ε from the demo's absorptivity file), are left out and named; the
+/// curve goes onto the existing component.
+#[test]
+fn calibrate_emission_adds_a_curve_and_names_bent_standards() {
+    let dir = temp("calibrate");
+    let lib = library(&dir);
+    let read = |name: &str| -> Vec<(f64, f64)> {
+        std::fs::read_to_string(format!("{DATA}/references/{name}"))
+            .unwrap()
+            .lines()
+            .filter(|l| !l.starts_with('#') && !l.starts_with('w'))
+            .map(|l| {
+                let (a, b) = l.split_once(',').unwrap();
+                (a.parse().unwrap(), b.parse().unwrap())
+            })
+            .collect()
+    };
+    let eps = read("glint-teal.csv");
+    let em = read("glint-teal-em350.csv");
+    let eps_at = |w: f64| eps.iter().find(|p| (p.0 - w).abs() < 1e-9).unwrap().1;
+    let levels = [0.0, 0.0, 2e-8, 5e-8, 1e-7, 2e-7, 5e-7, 1e-6, 4e-6, 7e-6];
+    let mut spectra = String::from("sample");
+    for (w, _) in &em {
+        spectra.push_str(&format!(",{w}"));
+    }
+    let mut conc = String::from("sample,concentration,role\n");
+    for (i, c) in levels.iter().enumerate() {
+        let id = format!("std-{i}");
+        spectra.push_str(&format!("\n{id}"));
+        for (w, s) in &em {
+            let factor = 10f64.powf((eps_at(350.0) * c + eps_at(*w) * c) / 2.0);
+            spectra.push_str(&format!(",{}", s * c / factor + 12.0));
+        }
+        let role = if *c > 0.0 { "standard" } else { "blank" };
+        conc.push_str(&format!("{id},{c},{role}\n"));
+    }
+    std::fs::write(dir.join("std.csv"), spectra + "\n").unwrap();
+    std::fs::write(dir.join("conc.csv"), conc).unwrap();
+    let out = unblend(&[
+        "calibrate",
+        dir.join("std.csv").to_str().unwrap(),
+        "--concentrations",
+        dir.join("conc.csv").to_str().unwrap(),
+        "--unit",
+        "mol/L",
+        "--name",
+        "glint-teal",
+        "--library",
+        &lib,
+        "--emission",
+        "--excitation-nm",
+        "365",
+        "--format",
+        "json",
+    ]);
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let doc: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    let left: Vec<&str> = doc["excluded_standards"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|e| e["sample"].as_str().unwrap())
+        .collect();
+    // A_ex = 0.17 and 0.29: 18 % and 29 % short of the line.
+    assert!(
+        left.contains(&"std-8") && left.contains(&"std-9"),
+        "{left:?}"
+    );
+    let top = doc["intensity_per_mol_per_l_at_band_max"].as_f64().unwrap();
+    // The kept levels reach A_ex 0.04, whose emission is 4.5 % short (within
+    // the 5 % linearity tolerance): the slope is that much low, as for any
+    // uncorrected calibration (keep standards below A_ex ≈ 0.01 for 1 %).
+    assert!(top < 6.0e10 && top > 0.93 * 6.0e10, "{top}");
+    let text = std::fs::read_to_string(Path::new(&lib).join("glint-teal.toml")).unwrap();
+    assert!(text.contains("excitation_nm = 365.0"), "{text}");
+}
