@@ -115,6 +115,12 @@ pub struct CheckArgs {
     /// Also write a self-contained HTML page: the reference spectra overlaid and the separability tables.
     #[arg(long, value_name = "FILE.html")]
     pub report: Option<PathBuf>,
+    /// Also predict emission LOD/LOQ from the components' emission curves at this excitation, nm, beside the absorbance ones.
+    #[arg(long, value_parser = parse_positive, value_name = "NM", requires = "emission_noise")]
+    pub excitation_nm: Option<f64>,
+    /// Emission noise of one reading, in the emission curves' intensity units (the SD of a blank's emission).
+    #[arg(long, value_parser = parse_positive, value_name = "INTENSITY", requires = "excitation_nm")]
+    pub emission_noise: Option<f64>,
 }
 
 const CHECK_AFTER_HELP: &str = "\
@@ -437,13 +443,34 @@ fn check(a: CheckArgs) -> Result<u8, Failure> {
     for w in &report.warnings {
         eprintln!("unblend: warning: {w}");
     }
+    let limits = match (a.excitation_nm, a.emission_noise) {
+        (Some(excitation_nm), Some(emission_noise)) => Some(crate::emission::limits::limits(
+            &refs,
+            &crate::emission::limits::LimitOptions {
+                excitation_nm,
+                emission_noise,
+                absorbance: options,
+            },
+        )?),
+        _ => None,
+    };
     match a.format {
         ReportFormat::Json => {
-            let text = serde_json::to_string_pretty(&report)
-                .map_err(|e| Failure::new(format!("json: {e}")))?;
+            let text = match &limits {
+                None => serde_json::to_string_pretty(&report),
+                Some(l) => serde_json::to_string_pretty(
+                    &serde_json::json!({ "check": report, "emission_limits": l }),
+                ),
+            }
+            .map_err(|e| Failure::new(format!("json: {e}")))?;
             print_stdout(&format!("{text}\n"))?;
         }
-        ReportFormat::Table => print_check(&report)?,
+        ReportFormat::Table => {
+            print_check(&report)?;
+            if let Some(l) = &limits {
+                print_stdout(&emission_limits_table(l, &a))?;
+            }
+        }
     }
     if let Some(path) = &a.report {
         let html = crate::report::render_check_html(&refs, &report, &dir.display().to_string());
@@ -453,6 +480,39 @@ fn check(a: CheckArgs) -> Result<u8, Failure> {
         eprintln!("unblend: wrote the check report to {}", path.display());
     }
     Ok(exit::OK)
+}
+
+/// The emission and absorbance limits side by side.
+fn emission_limits_table(l: &[crate::emission::limits::ComponentLimits], a: &CheckArgs) -> String {
+    let typical = l
+        .iter()
+        .filter_map(|c| c.emission_lod_mol_per_l)
+        .fold(f64::INFINITY, f64::min);
+    let (label, f) = concentration_unit(if typical.is_finite() { typical } else { 1e-9 });
+    let v = |x: Option<f64>| x.map_or("-".into(), |x| format!("{:.4}", x * f));
+    let mut out = format!(
+        "\nemission at excitation {} nm, noise {} per reading, vs absorbance (noise {} AU, {} cm); {label}:\n{:<20} {:>14} {:>14} {:>14} {:>14}\n",
+        a.excitation_nm.unwrap_or(f64::NAN),
+        a.emission_noise.unwrap_or(f64::NAN),
+        a.noise_au,
+        a.pathlength_cm,
+        "component",
+        "LOD emission",
+        "LOQ emission",
+        "LOD absorbance",
+        "LOQ absorbance"
+    );
+    for c in l {
+        out.push_str(&format!(
+            "{:<20} {:>14} {:>14} {:>14} {:>14}\n",
+            c.name,
+            v(c.emission_lod_mol_per_l),
+            v(c.emission_loq_mol_per_l),
+            v(c.absorbance_lod_mol_per_l),
+            v(c.absorbance_loq_mol_per_l)
+        ));
+    }
+    out
 }
 
 /// A display unit for concentrations of about `typical` mol/L.
