@@ -27,6 +27,7 @@ pub mod curves;
 pub mod dates;
 pub mod diagnostics;
 pub mod discover;
+pub mod emission;
 pub mod error;
 pub mod fit;
 pub mod input;

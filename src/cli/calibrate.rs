@@ -86,6 +86,15 @@ pub struct Args {
     /// Report only: do not write the component.
     #[arg(long)]
     pub dry_run: bool,
+    /// INPUT holds emission spectra (intensities) at --excitation-nm: make an emission curve and add it to the existing component NAME (standards bent by the inner filter or self-quenching are left out and named).
+    #[arg(long, requires = "excitation_nm")]
+    pub emission: bool,
+    /// Excitation wavelength of the emission standards, nm (with --emission).
+    #[arg(long, value_parser = parse_positive, value_name = "NM", requires = "emission")]
+    pub excitation_nm: Option<f64>,
+    /// Instrument and settings the emission curve holds for, kept with it (with --emission).
+    #[arg(long, value_name = "TEXT", requires = "emission")]
+    pub instrument_note: Option<String>,
     /// Write the line at every wavelength (ε, standard errors, intercept, R², …) as CSV to FILE.
     #[arg(long, value_name = "FILE")]
     pub out: Option<PathBuf>,
@@ -154,6 +163,16 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         concentration_unit: table.unit.label().into(),
         date: crate::dates::today_utc(),
     };
+    if let (true, Some(excitation_nm)) = (args.emission, args.excitation_nm) {
+        return run_emission(
+            &args,
+            &file,
+            &standards,
+            &options,
+            &provenance,
+            excitation_nm,
+        );
+    }
     let mut result = calibrate::calibrate(&file, &standards, &options, &provenance)?;
     if table.unit_stated_by.is_none() {
         result.warnings.insert(
@@ -205,6 +224,93 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             print_summary(&args, &table.unit, &result, written.as_deref())?
         }
     }
+    Ok(if result.unreadable.is_empty() {
+        exit::OK
+    } else {
+        exit::PARTIAL
+    })
+}
+
+/// `calibrate --emission`: an emission curve from the standards, added to
+/// the component NAME already in the library.
+fn run_emission(
+    args: &Args,
+    file: &crate::input::spectra::SpectraFile,
+    standards: &[crate::input::concentrations::Standard],
+    options: &CalibrationOptions,
+    provenance: &Provenance,
+    excitation_nm: f64,
+) -> Result<u8, Failure> {
+    let (mut curve, result) = crate::emission::calibrate::emission_curve(
+        file,
+        standards,
+        options,
+        provenance,
+        excitation_nm,
+    )?;
+    curve.instrument_note = args.instrument_note.clone();
+    let dir = library_dir(args.library.clone());
+    let lib = Library::open(&dir)?;
+    let mut component = lib.get(&args.name).cloned().ok_or_else(|| {
+        Failure::new(format!(
+            "no component named '{}' in {}: add it with its absorptivity curve first (library add or calibrate), then its emission curve",
+            args.name,
+            dir.display()
+        ))
+    })?;
+    component.set_emission(curve.clone())?;
+    let written = if args.dry_run {
+        None
+    } else {
+        Some(Library::add(&dir, &component, true)?)
+    };
+    for w in &result.warnings {
+        eprintln!("unblend: warning: {w}");
+    }
+    let cal = &result.calibration;
+    let doc = serde_json::json!({
+        "component": args.name,
+        "file": written.as_ref().map(|p| p.display().to_string()),
+        "excitation_nm": excitation_nm,
+        "n_points": curve.grid.len(),
+        "range_nm": cal.range_nm,
+        "band_max_nm": cal.band_max_nm,
+        "intensity_per_mol_per_l_at_band_max": cal.epsilon_at_band_max_l_per_mol_cm,
+        "r_squared_at_band_max": cal.r_squared_at_band_max,
+        "n_standards": cal.n_standards,
+        "concentration_max_mol_per_l": cal.concentration_max_mol_per_l,
+        "excluded_standards": cal.excluded_standards,
+        "warnings": result.warnings,
+    });
+    let text = match args.format {
+        FormatArg::Json => format!("{doc:#}\n"),
+        FormatArg::Table | FormatArg::Csv | FormatArg::Jsonl => {
+            let mut t = format!(
+                "emission curve of '{}' at excitation {excitation_nm} nm: {} points, {}–{} nm, {:.4e} per mol/L at {} nm (R² {:.5}), {} standards up to {:.4e} mol/L\n",
+                args.name,
+                curve.grid.len(),
+                cal.range_nm[0],
+                cal.range_nm[1],
+                cal.epsilon_at_band_max_l_per_mol_cm,
+                cal.band_max_nm,
+                cal.r_squared_at_band_max,
+                cal.n_standards,
+                cal.concentration_max_mol_per_l
+            );
+            for e in &cal.excluded_standards {
+                t.push_str(&format!(
+                    "left out: {} ({:.4e} mol/L): {}\n",
+                    e.sample, e.concentration_mol_per_l, e.reason
+                ));
+            }
+            t.push_str(&match &written {
+                Some(p) => format!("wrote {}\n", p.display()),
+                None => "dry run: nothing written\n".into(),
+            });
+            t
+        }
+    };
+    print_stdout(&text)?;
     Ok(if result.unreadable.is_empty() {
         exit::OK
     } else {

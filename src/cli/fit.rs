@@ -5,6 +5,7 @@ use super::common::{
     summary,
 };
 use super::diagnostic_args::DiagnosticArgs;
+use super::emission_args::EmissionArgs;
 use super::qc_args::QcArgs;
 use super::{Failure, inputs};
 use crate::fit::{FitOptions, FitReport, Outcome, StreamError, fit_stream_with};
@@ -38,6 +39,9 @@ pub struct Args {
     /// Lot QC against a target recipe; colour of the solution.
     #[command(flatten)]
     pub qc: QcArgs,
+    /// Emission (fluorescence) fits.
+    #[command(flatten)]
+    pub emission: EmissionArgs,
     /// Also write a self-contained HTML report (summary, one figure per sample: measured, fitted, stacked component contributions, residual with the ±2σ noise band).
     #[arg(long, value_name = "FILE.html")]
     pub report: Option<PathBuf>,
@@ -58,6 +62,10 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let format: Format = args.format.into();
     let refs = args.model.references()?;
     let checks = checks(&args)?;
+    if args.emission.is_emission() {
+        let shown = args.inputs.iter().map(|p| shown(p)).collect::<Vec<_>>().join(", ");
+        return run_emission(&args, &refs.set, options, &checks, format, &shown);
+    }
     check_outputs(&args, format)?;
     let run = FitRun {
         args: &args,
@@ -198,6 +206,58 @@ fn fit_wide<R: Read + Send>(stream: &mut WideStream<R>, run: &FitRun) -> Result<
     };
     emit(&report, run.format, run.args.out.as_deref())?;
     Ok(exit_code(&report))
+}
+
+/// `--signal emission`: read the whole input, fit the emission references
+/// at the excitation (inner-filter correction, Raman term), write the
+/// emission outputs.
+fn run_emission(
+    args: &Args,
+    refs: &crate::reference::ReferenceSet,
+    options: FitOptions,
+    checks: &crate::diagnostics::Options,
+    format: Format,
+    shown: &str,
+) -> Result<u8, Failure> {
+    if args.report.is_some()
+        || args.plot.is_some()
+        || args.with_curves
+        || args.screen_with.is_some()
+    {
+        return Err(Failure::new(
+            "--signal emission writes the table, CSV or JSON only: drop --report, --plot, --with-curves and --screen-with",
+        ));
+    }
+    let em = args.emission.options()?.with_fit(options);
+    let ctx = |e: crate::Error| Failure::new(format!("{shown}: {e}"));
+    let file = inputs::read_all(&args.inputs, None)?;
+    let report = crate::emission::fit_emission(&file, refs, &em, checks).map_err(ctx)?;
+    for w in &report.warnings {
+        eprintln!("unblend: warning: {w}");
+    }
+    let n_failed = report
+        .outcomes
+        .iter()
+        .filter(|o| matches!(o, crate::emission::EmissionOutcome::Failed(_)))
+        .count();
+    match args.out.as_deref() {
+        Some(path) => {
+            crate::atomic::write_with(path, false, |w| {
+                output::emission::write(&report, format, w)
+            })?;
+            eprintln!("{}", summary(report.outcomes.len(), n_failed, path));
+        }
+        None => {
+            let mut lock = std::io::BufWriter::new(std::io::stdout().lock());
+            let r = output::emission::write(&report, format, &mut lock).and_then(|_| lock.flush());
+            if let Err(e) = r
+                && e.kind() != std::io::ErrorKind::BrokenPipe
+            {
+                return Err(Failure::new(format!("standard output: {e}")));
+            }
+        }
+    }
+    Ok(code_for(report.outcomes.len(), n_failed))
 }
 
 /// Pixels per SVG pixel in a PNG figure (sharp on high-density screens and

@@ -6,7 +6,7 @@ use super::common::{
     summary_format,
 };
 use super::{Failure, exit};
-use crate::reference::{Component, Conditions, Library, Source};
+use crate::reference::{Component, Conditions, EmissionCurve, Library, Source};
 use crate::separability::{self, CheckOptions, CheckReport, DEFAULT_NOISE_AU};
 use sha2::{Digest, Sha256};
 use std::path::PathBuf;
@@ -30,9 +30,18 @@ pub enum Command {
 pub struct AddArgs {
     /// Component name (letters, digits, '-', '_', '.'); the file is NAME.toml.
     pub name: String,
-    /// CSV with header `wavelength_nm,epsilon`, ε in L/(mol·cm).
+    /// CSV with header `wavelength_nm,epsilon`, ε in L/(mol·cm) (needed for a new component).
     #[arg(long, value_name = "FILE")]
-    pub spectrum: PathBuf,
+    pub spectrum: Option<PathBuf>,
+    /// Emission curve, CSV with header `wavelength_nm,intensity_per_mol_per_l` (emission per mol/L at one excitation, on your instrument and settings); added to the component, or to an existing one without --spectrum.
+    #[arg(long, value_name = "FILE")]
+    pub emission: Option<PathBuf>,
+    /// Excitation wavelength of --emission, nm (or a `# excitation_nm = X` line in the file).
+    #[arg(long, value_parser = parse_positive, value_name = "NM", requires = "emission")]
+    pub excitation_nm: Option<f64>,
+    /// Instrument and settings the emission curve holds for (slits, detector voltage, reader), kept with it.
+    #[arg(long, value_name = "TEXT", requires = "emission")]
+    pub instrument_note: Option<String>,
     /// Library folder [default: $UNBLEND_LIBRARY or ./library].
     #[arg(long, value_name = "DIR")]
     pub library: Option<PathBuf>,
@@ -108,6 +117,12 @@ pub struct CheckArgs {
     /// Also write a self-contained HTML page: the reference spectra overlaid and the separability tables.
     #[arg(long, value_name = "FILE.html")]
     pub report: Option<PathBuf>,
+    /// Also predict emission LOD/LOQ from the components' emission curves at this excitation, nm, beside the absorbance ones.
+    #[arg(long, value_parser = parse_positive, value_name = "NM", requires = "emission_noise")]
+    pub excitation_nm: Option<f64>,
+    /// Emission noise of one reading, in the emission curves' intensity units (the SD of a blank's emission).
+    #[arg(long, value_parser = parse_positive, value_name = "INTENSITY", requires = "excitation_nm")]
+    pub emission_noise: Option<f64>,
 }
 
 const CHECK_AFTER_HELP: &str = "\
@@ -146,17 +161,24 @@ pub fn run(cmd: Command) -> Result<u8, Failure> {
 
 fn add(a: AddArgs) -> Result<u8, Failure> {
     crate::reference::component::validate_name(&a.name)?;
-    let shown = a.spectrum.display().to_string();
-    let bytes = std::fs::read(&a.spectrum).map_err(|e| Failure::new(format!("{shown}: {e}")))?;
+    let Some(spectrum) = a.spectrum.clone() else {
+        return add_emission_only(a);
+    };
+    let emission = a
+        .emission
+        .as_deref()
+        .map(|p| emission_curve(p, &a))
+        .transpose()?;
+    let shown = spectrum.display().to_string();
+    let bytes = std::fs::read(&spectrum).map_err(|e| Failure::new(format!("{shown}: {e}")))?;
     let table =
         crate::input::epsilon::read(&bytes).map_err(|e| Failure::new(format!("{shown}: {e}")))?;
     let sha = hex(&Sha256::digest(&bytes));
-    let file_name = a
-        .spectrum
+    let file_name = spectrum
         .file_name()
         .map(|s| s.to_string_lossy().into_owned())
         .unwrap_or(shown.clone());
-    let c = Component {
+    let mut c = Component {
         name: a.name.clone(),
         molar_mass_g_per_mol: a.molar_mass,
         note: a.note,
@@ -176,6 +198,9 @@ fn add(a: AddArgs) -> Result<u8, Failure> {
         epsilon_std_error_l_per_mol_cm: None,
         extra: toml::Table::new(),
     };
+    if let Some(curve) = emission {
+        c.set_emission(curve)?;
+    }
     let dir = library_dir(a.library);
     let path = Library::add(&dir, &c, a.replace)?;
     let (lo, hi) = c.range_nm();
@@ -185,6 +210,65 @@ fn add(a: AddArgs) -> Result<u8, Failure> {
         c.name,
         path.display(),
         c.grid.len()
+    );
+    Ok(exit::OK)
+}
+
+/// Read `--emission` with its excitation and instrument note.
+fn emission_curve(path: &std::path::Path, a: &AddArgs) -> Result<EmissionCurve, Failure> {
+    let shown = path.display().to_string();
+    let ctx = |e: crate::Error| Failure::new(format!("{shown}: {e}"));
+    let bytes = std::fs::read(path).map_err(|e| Failure::new(format!("{shown}: {e}")))?;
+    let table = crate::input::emission::read(&bytes, a.excitation_nm).map_err(ctx)?;
+    if table.n_zeroed > 0 {
+        eprintln!(
+            "unblend: note: {shown}: {} small negative intensities (noise around zero) set to 0",
+            table.n_zeroed
+        );
+    }
+    let mut curve = EmissionCurve::new(
+        table.excitation_nm,
+        table.grid.wavelengths_nm().to_vec(),
+        table.intensity_per_mol_per_l,
+    )
+    .map_err(ctx)?;
+    curve.instrument_note = a.instrument_note.clone();
+    curve.source_file = path.file_name().map(|s| s.to_string_lossy().into_owned());
+    Ok(curve)
+}
+
+/// `library add NAME --emission FILE` without `--spectrum`: add the
+/// emission curve to a component already in the library.
+fn add_emission_only(a: AddArgs) -> Result<u8, Failure> {
+    let Some(path) = a.emission.as_deref() else {
+        return Err(Failure::new(
+            "library add: give --spectrum FILE (absorptivity), --emission FILE (emission curve) or both",
+        ));
+    };
+    let curve = emission_curve(path, &a)?;
+    let dir = library_dir(a.library.clone());
+    let lib = Library::open(&dir)?;
+    let Some(existing) = lib.get(&a.name) else {
+        return Err(Failure::new(format!(
+            "no component named '{}' in {}: a new component needs its absorptivity curve too (--spectrum FILE)",
+            a.name,
+            dir.display()
+        )));
+    };
+    let mut c = existing.clone();
+    let (ex, n) = (curve.excitation_nm, curve.grid.len());
+    c.set_emission(curve)?;
+    let written = Library::add(&dir, &c, true)?;
+    let all: Vec<String> = c
+        .emission_curves()
+        .iter()
+        .map(|e| format!("{} nm", e.excitation_nm))
+        .collect();
+    println!(
+        "added an emission curve at excitation {ex} nm ({n} points) to '{}' in {} (emission curves at {})",
+        c.name,
+        written.display(),
+        all.join(", ")
     );
     Ok(exit::OK)
 }
@@ -361,14 +445,34 @@ fn check(a: CheckArgs) -> Result<u8, Failure> {
     for w in &report.warnings {
         eprintln!("unblend: warning: {w}");
     }
+    let limits = match (a.excitation_nm, a.emission_noise) {
+        (Some(excitation_nm), Some(emission_noise)) => Some(crate::emission::limits::limits(
+            &refs,
+            &crate::emission::limits::LimitOptions {
+                excitation_nm,
+                emission_noise,
+                absorbance: options,
+            },
+        )?),
+        _ => None,
+    };
     match a.format {
         FormatArg::Json => {
-            let text = serde_json::to_string_pretty(&report)
-                .map_err(|e| Failure::new(format!("json: {e}")))?;
+            let text = match &limits {
+                None => serde_json::to_string_pretty(&report),
+                Some(l) => serde_json::to_string_pretty(
+                    &serde_json::json!({ "check": report, "emission_limits": l }),
+                ),
+            }
+            .map_err(|e| Failure::new(format!("json: {e}")))?;
             print_stdout(&format!("{text}\n"))?;
         }
-        // `summary_format` never gives csv.
-        FormatArg::Table | FormatArg::Csv | FormatArg::Jsonl => print_check(&report)?,
+        FormatArg::Table | FormatArg::Csv | FormatArg::Jsonl => {
+            print_check(&report)?;
+            if let Some(l) = &limits {
+                print_stdout(&emission_limits_table(l, &a))?;
+            }
+        }
     }
     if let Some(path) = &a.report {
         let html = crate::report::render_check_html(&refs, &report, &dir.display().to_string());
@@ -378,6 +482,39 @@ fn check(a: CheckArgs) -> Result<u8, Failure> {
         eprintln!("unblend: wrote the check report to {}", path.display());
     }
     Ok(exit::OK)
+}
+
+/// The emission and absorbance limits side by side.
+fn emission_limits_table(l: &[crate::emission::limits::ComponentLimits], a: &CheckArgs) -> String {
+    let typical = l
+        .iter()
+        .filter_map(|c| c.emission_lod_mol_per_l)
+        .fold(f64::INFINITY, f64::min);
+    let (label, f) = concentration_unit(if typical.is_finite() { typical } else { 1e-9 });
+    let v = |x: Option<f64>| x.map_or("-".into(), |x| format!("{:.4}", x * f));
+    let mut out = format!(
+        "\nemission at excitation {} nm, noise {} per reading, vs absorbance (noise {} AU, {} cm); {label}:\n{:<20} {:>14} {:>14} {:>14} {:>14}\n",
+        a.excitation_nm.unwrap_or(f64::NAN),
+        a.emission_noise.unwrap_or(f64::NAN),
+        a.noise_au,
+        a.pathlength_cm,
+        "component",
+        "LOD emission",
+        "LOQ emission",
+        "LOD absorbance",
+        "LOQ absorbance"
+    );
+    for c in l {
+        out.push_str(&format!(
+            "{:<20} {:>14} {:>14} {:>14} {:>14}\n",
+            c.name,
+            v(c.emission_lod_mol_per_l),
+            v(c.emission_loq_mol_per_l),
+            v(c.absorbance_lod_mol_per_l),
+            v(c.absorbance_loq_mol_per_l)
+        ));
+    }
+    out
 }
 
 /// A display unit for concentrations of about `typical` mol/L.

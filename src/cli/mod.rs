@@ -10,6 +10,7 @@ pub mod common;
 pub mod demo;
 pub mod diagnostic_args;
 pub mod discover;
+pub mod emission_args;
 pub mod fit;
 pub mod inputs;
 pub mod library;

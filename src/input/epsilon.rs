@@ -32,13 +32,7 @@ pub fn read(bytes: &[u8]) -> Result<EpsilonTable> {
     let Some((header_line, header_bytes, delimiter)) = header else {
         return Err(Error::Empty);
     };
-    let mut raw = Vec::new();
-    fields::split(header_bytes, delimiter.byte(), &mut raw);
-    fields::trim_trailing_empty(&mut raw);
-    let names: Vec<String> = raw
-        .iter()
-        .map(|f| fields::text(f).trim().to_ascii_lowercase())
-        .collect();
+    let names = fields::header_names(header_bytes, delimiter.byte());
     let ok_w = matches!(
         names.first().map(String::as_str),
         Some("wavelength_nm" | "wavelength")

@@ -112,6 +112,17 @@ pub fn trim_trailing_empty(fields: &mut Vec<&[u8]>) {
     }
 }
 
+/// A header line's field names: split, trailing empty fields dropped,
+/// trimmed and lowercased.
+pub fn header_names(line: &[u8], delim: u8) -> Vec<String> {
+    let mut raw = Vec::new();
+    split(line, delim, &mut raw);
+    trim_trailing_empty(&mut raw);
+    raw.iter()
+        .map(|f| text(f).trim().to_ascii_lowercase())
+        .collect()
+}
+
 /// Trim ASCII spaces and tabs from both ends.
 pub fn trim(field: &[u8]) -> &[u8] {
     let start = field

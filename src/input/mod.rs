@@ -7,6 +7,7 @@
 
 pub mod asdf;
 pub mod concentrations;
+pub mod emission;
 pub mod epsilon;
 pub mod fields;
 pub mod jcamp;

@@ -3,6 +3,7 @@
 //! always mol/L (mg/L beside them where the molar mass is known).
 
 pub mod batch;
+pub mod emission;
 pub mod jsonl;
 pub mod notes;
 pub mod qc;
@@ -333,9 +334,34 @@ pub fn write_table(report: &FitReport, w: &mut dyn Write) -> io::Result<()> {
             }
         }
     }
+    write_aligned(&header, &rows, w)?;
+    if let Some(first) = report.outcomes.iter().find_map(|o| match o {
+        Outcome::Fitted(s) => Some(s),
+        Outcome::Failed(_) => None,
+    }) {
+        writeln!(
+            w,
+            "\nrange {}–{} nm, {} points, pathlength {} cm, solver {}; concentrations ± standard error",
+            first.range_nm[0], first.range_nm[1], first.n_points, first.pathlength_cm, first.solver
+        )?;
+    }
+    notes::write_notes(report, &unit, w)?;
+    qc::write_qc(report, &unit, w)?;
+    if !errors.is_empty() {
+        writeln!(w, "\nnot fitted:")?;
+        for e in errors {
+            writeln!(w, "  {e}")?;
+        }
+    }
+    Ok(())
+}
+
+/// Write a header, a rule and rows as aligned columns: the first and last
+/// column left-aligned, the others right-aligned.
+pub fn write_aligned(header: &[String], rows: &[Vec<String>], w: &mut dyn Write) -> io::Result<()> {
     let ncol = header.len();
     let mut width = vec![0usize; ncol];
-    for r in std::iter::once(&header).chain(rows.iter()) {
+    for r in std::iter::once(header).chain(rows.iter().map(Vec::as_slice)) {
         for (i, cell) in r.iter().enumerate() {
             width[i] = width[i].max(cell.chars().count());
         }
@@ -359,29 +385,11 @@ pub fn write_table(report: &FitReport, w: &mut dyn Write) -> io::Result<()> {
         }
         writeln!(w, "{}", s.trim_end())
     };
-    line(w, &header)?;
+    line(w, header)?;
     let rule: Vec<String> = width.iter().map(|n| "-".repeat(*n)).collect();
     line(w, &rule)?;
-    for r in &rows {
+    for r in rows {
         line(w, r)?;
-    }
-    if let Some(first) = report.outcomes.iter().find_map(|o| match o {
-        Outcome::Fitted(s) => Some(s),
-        Outcome::Failed(_) => None,
-    }) {
-        writeln!(
-            w,
-            "\nrange {}–{} nm, {} points, pathlength {} cm, solver {}; concentrations ± standard error",
-            first.range_nm[0], first.range_nm[1], first.n_points, first.pathlength_cm, first.solver
-        )?;
-    }
-    notes::write_notes(report, &unit, w)?;
-    qc::write_qc(report, &unit, w)?;
-    if !errors.is_empty() {
-        writeln!(w, "\nnot fitted:")?;
-        for e in errors {
-            writeln!(w, "  {e}")?;
-        }
     }
     Ok(())
 }

@@ -38,7 +38,9 @@
 //! The `[calibration]` table is additive: files without it read as before,
 //! and it is kept in [`Component::extra`] so a component written by an older
 //! build keeps it on rewrite. It is checked when the file is read and parsed
-//! into a [`Calibration`] by [`Component::calibration`].
+//! into a [`Calibration`] by [`Component::calibration`]. The `[[emission]]`
+//! tables (emission curves per excitation) are additive in the same way;
+//! see [`super::emission`].
 
 use crate::error::{Error, Result};
 use crate::spectrum::Grid;
@@ -449,6 +451,7 @@ impl Component {
             cal.validate()
                 .map_err(|e| bad(format!("[calibration]: {e}")))?;
         }
+        super::emission::curves_in(&raw.extra).map_err(bad)?;
         if points.epsilon.iter().all(|&x| x <= 0.0) {
             return Err(bad(
                 "every ε value is zero: a reference must absorb somewhere".into(),

@@ -6,7 +6,9 @@
 //! Out: [`Component`] values, selected into an ordered [`ReferenceSet`].
 
 pub mod component;
+pub mod emission;
 pub mod store;
 
 pub use component::{Calibration, Component, Conditions, Source};
+pub use emission::EmissionCurve;
 pub use store::{Library, ReferenceSet};
