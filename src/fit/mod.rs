@@ -143,6 +143,10 @@ pub struct SampleResult {
     /// Candidate screening (flagged samples, with `--screen-with`).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub screening: Option<Box<diagnostics::screen::Screening>>,
+    /// Lot QC (`--target`, `--colour`): the JSON keys `target`, `colour`,
+    /// `colour_note` and `correction` beside the others.
+    #[serde(flatten, default, deserialize_with = "crate::target::qc_or_none")]
+    pub qc: Option<Box<crate::target::Qc>>,
 }
 
 /// A sample that could not be fitted.
@@ -634,6 +638,7 @@ impl Model {
             masking: None,
             spikes_nm: None,
             screening: None,
+            qc: None,
         }
     }
 }
