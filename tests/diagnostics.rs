@@ -619,11 +619,30 @@ fn checks_leave_the_concentrations_of_unmasked_samples_unchanged() {
     let b = batch(19, 300, |i| i % 3 == 0, (0.02, 0.1), NoiseModel::White, 0.0);
     let refs = references();
     let opts = FitOptions::default();
-    let on = fit_file_with(&b.file, &refs, &opts, &checks(None, 0.01)).unwrap();
+    // Unweighted: a weighted refit (noise growing with absorbance) changes
+    // the estimate on purpose; the tests themselves must not. Standard
+    // errors change only where the noise was found correlated.
+    let unweighted = diagnostics::Options {
+        weights: diagnostics::Weights::None,
+        ..checks(None, 0.01)
+    };
+    let on = fit_file_with(&b.file, &refs, &opts, &unweighted).unwrap();
     let off = fit_file_with(&b.file, &refs, &opts, &diagnostics::Options::off()).unwrap();
     for (x, y) in fitted(&on).iter().zip(fitted(&off)) {
         assert!(x.masking.is_none() && y.diagnostics.is_none());
-        assert_eq!(x.components, y.components);
+        if x.spikes_nm.is_some() {
+            continue;
+        }
+        let factor = x.diagnostics.as_ref().and_then(|d| d.std_error_factor);
+        for (cx, cy) in x.components.iter().zip(&y.components) {
+            assert_eq!(
+                cx.concentration_mol_per_l.to_bits(),
+                cy.concentration_mol_per_l.to_bits()
+            );
+            if factor.is_none() {
+                assert_eq!(cx.std_error_mol_per_l, cy.std_error_mol_per_l);
+            }
+        }
         assert_eq!(x.residual_rms.to_bits(), y.residual_rms.to_bits());
     }
 }

@@ -518,8 +518,29 @@ impl Model {
         sol: &crate::solver::Solution,
         keep: Option<&[bool]>,
     ) {
+        if self.test_residual(r, view, a, sol) {
+            let input = diagnostics::screen::ScreenInput {
+                a,
+                wavelengths_nm: view.wavelengths_nm,
+                keep,
+                base_rss: sol.rss,
+                pathlength_cm: r.pathlength_cm,
+            };
+            self.screen(r, input);
+        }
+    }
+
+    /// Residual tests into `r` (diagnostics, flag, standard errors scaled
+    /// for correlated noise); whether the sample was flagged.
+    fn test_residual(
+        &self,
+        r: &mut SampleResult,
+        view: View<'_>,
+        a: &[f64],
+        sol: &crate::solver::Solution,
+    ) -> bool {
         let Some(opts) = &self.checks.residual else {
-            return;
+            return false;
         };
         let res = diagnostics::examine(view, a, &sol.x, opts);
         if let Some(f) = res.std_error_factor {
@@ -528,20 +549,19 @@ impl Model {
                 c.std_error_mg_per_l = c.std_error_mg_per_l.map(|v| v * f);
             }
         }
-        if res.flagged() {
+        let flagged = res.flagged();
+        if flagged {
             r.flags.push(diagnostics::FLAG_UNEXPLAINED.to_string());
-            if let Some(s) = &self.screener {
-                let input = diagnostics::screen::ScreenInput {
-                    a,
-                    wavelengths_nm: view.wavelengths_nm,
-                    keep,
-                    base_rss: sol.rss,
-                    pathlength_cm: r.pathlength_cm,
-                };
-                r.screening = s.screen(input, opts).map(Box::new);
-            }
         }
         r.diagnostics = Some(Box::new(res));
+        flagged
+    }
+
+    /// Candidate screening of a flagged sample (with `--screen-with`).
+    fn screen(&self, r: &mut SampleResult, input: diagnostics::screen::ScreenInput<'_>) {
+        if let (Some(s), Some(opts)) = (&self.screener, &self.checks.residual) {
+            r.screening = s.screen(input, opts).map(Box::new);
+        }
     }
 
     fn assemble(

@@ -11,7 +11,8 @@
 //! Soc. Edinb. 55:42, 1935), and its standard errors σ̂·√diag((EᵀWE)⁻¹)
 //! are those of the weighted model. The weights come from the fitted
 //! curve, not the readings, so they do not follow the noise. The residual
-//! tests run on the scaled residual with the scaled design. Saturation-
+//! tests run on the scaled residual with the scaled design; candidate
+//! screening runs unweighted, on the readings in AU. Saturation-
 //! masked samples are not reweighted (their high readings are already out).
 
 use super::{FailedSample, Model, Outcome};
@@ -76,8 +77,20 @@ impl Model {
             moments: &moments,
             uniform_step: self.uniform_step,
         };
+        let unweighted_rss = sol.rss;
         sol.rss = weighted_rss;
-        self.check(&mut result, view, &a_w, &sol, None);
+        // Tests on the weighted residual; screening with the candidates'
+        // unweighted designs, so on the readings and RSS in AU.
+        if self.test_residual(&mut result, view, &a_w, &sol) {
+            let input = diagnostics::screen::ScreenInput {
+                a,
+                wavelengths_nm: &d.wavelengths_nm,
+                keep: None,
+                base_rss: unweighted_rss,
+                pathlength_cm: l_cm,
+            };
+            self.screen(&mut result, input);
+        }
         if let Some(res) = result.diagnostics.as_mut() {
             res.noise_transmittance_share = Some(if h.is_finite() { h / (1.0 + h) } else { 1.0 });
         }

@@ -154,76 +154,9 @@ impl Prepared {
         if columns.iter().any(|v| !v.is_finite()) {
             return Err(Error::Invalid("design holds a non-finite value".into()));
         }
-        let mut scale = Vec::with_capacity(p);
-        let mut scaled = Vec::with_capacity(n * p);
-        for j in 0..p {
-            let col = &columns[j * n..(j + 1) * n];
-            let norm = col.iter().map(|v| v * v).sum::<f64>().sqrt();
-            if !(norm > 0.0 && norm.is_finite()) {
-                return Err(Error::Degenerate(format!(
-                    "'{}' is zero at every wavelength used: it cannot be fitted over this range",
-                    names[j]
-                )));
-            }
-            scale.push(norm);
-            scaled.extend(col.iter().map(|v| v / norm));
-        }
-        let mut gram = vec![0.0; p * p];
-        for i in 0..p {
-            for j in i..p {
-                let g = normal::dot(&scaled[i * n..(i + 1) * n], &scaled[j * n..(j + 1) * n]);
-                gram[i * p + j] = g;
-                gram[j * p + i] = g;
-            }
-        }
-        let gm = DMatrix::from_row_slice(p, p, &gram);
-        let eig = SymmetricEigen::new(gm.clone());
-        let max = eig
-            .eigenvalues
-            .iter()
-            .cloned()
-            .fold(f64::NEG_INFINITY, f64::max);
-        let min = eig
-            .eigenvalues
-            .iter()
-            .cloned()
-            .fold(f64::INFINITY, f64::min);
-        let condition = if min > 0.0 {
-            (max / min).sqrt()
-        } else {
-            f64::INFINITY
-        };
-        if condition.is_nan() || condition >= DEGENERATE_CONDITION {
-            let (a, b, cos) = most_similar_pair(&gram, p);
-            return Err(Error::Degenerate(format!(
-                "the model cannot tell '{}' and '{}' apart over this range (spectral similarity {:.6}, condition number {}): remove one, widen the range, or check the files",
-                names[a],
-                names[b],
-                cos,
-                if condition.is_finite() {
-                    format!("{condition:.3e}")
-                } else {
-                    "infinite".into()
-                }
-            )));
-        }
-        let full_inverse_diag = match gm.cholesky() {
-            Some(ch) => {
-                let inv = ch.inverse();
-                (0..p).map(|i| inv[(i, i)]).collect()
-            }
-            None => {
-                // Positive definite by the condition check above; recompute
-                // the diagonal from the eigen-decomposition if rounding says no.
-                (0..p)
-                    .map(|i| {
-                        (0..p)
-                            .map(|k| eig.eigenvectors[(i, k)].powi(2) / eig.eigenvalues[k])
-                            .sum()
-                    })
-                    .collect()
-            }
-        };
+        let (scale, scaled) = scale_columns(columns, n, p, names)?;
+        let gram = gram_matrix(&scaled, n, p);
+        let (condition, full_inverse_diag) = conditioning(&gram, p, names)?;
         let method = if condition > FALLBACK_CONDITION {
             Method::LawsonHanson
         } else {
@@ -383,6 +316,98 @@ fn sigma2(rss: f64, n: usize, n_passive: usize) -> f64 {
     } else {
         rss.max(0.0) / dof as f64
     }
+}
+
+/// Columns scaled to unit length: (the norms, the scaled columns).
+fn scale_columns(
+    columns: &[f64],
+    n: usize,
+    p: usize,
+    names: &[String],
+) -> Result<(Vec<f64>, Vec<f64>)> {
+    let mut scale = Vec::with_capacity(p);
+    let mut scaled = Vec::with_capacity(n * p);
+    for j in 0..p {
+        let col = &columns[j * n..(j + 1) * n];
+        let norm = col.iter().map(|v| v * v).sum::<f64>().sqrt();
+        if !(norm > 0.0 && norm.is_finite()) {
+            return Err(Error::Degenerate(format!(
+                "'{}' is zero at every wavelength used: it cannot be fitted over this range",
+                names[j]
+            )));
+        }
+        scale.push(norm);
+        scaled.extend(col.iter().map(|v| v / norm));
+    }
+    Ok((scale, scaled))
+}
+
+/// Gram matrix EᵀE of column-major columns, row-major p × p.
+fn gram_matrix(scaled: &[f64], n: usize, p: usize) -> Vec<f64> {
+    let mut gram = vec![0.0; p * p];
+    for i in 0..p {
+        for j in i..p {
+            let g = normal::dot(&scaled[i * n..(i + 1) * n], &scaled[j * n..(j + 1) * n]);
+            gram[i * p + j] = g;
+            gram[j * p + i] = g;
+        }
+    }
+    gram
+}
+
+/// The condition number of the scaled design (√ of the Gram matrix's
+/// eigenvalue ratio) and the diagonal of the Gram matrix's inverse; an
+/// error naming the most similar pair when the design is degenerate.
+fn conditioning(gram: &[f64], p: usize, names: &[String]) -> Result<(f64, Vec<f64>)> {
+    let gm = DMatrix::from_row_slice(p, p, gram);
+    let eig = SymmetricEigen::new(gm.clone());
+    let max = eig
+        .eigenvalues
+        .iter()
+        .cloned()
+        .fold(f64::NEG_INFINITY, f64::max);
+    let min = eig
+        .eigenvalues
+        .iter()
+        .cloned()
+        .fold(f64::INFINITY, f64::min);
+    let condition = if min > 0.0 {
+        (max / min).sqrt()
+    } else {
+        f64::INFINITY
+    };
+    if condition.is_nan() || condition >= DEGENERATE_CONDITION {
+        let (a, b, cos) = most_similar_pair(gram, p);
+        return Err(Error::Degenerate(format!(
+            "the model cannot tell '{}' and '{}' apart over this range (spectral similarity {:.6}, condition number {}): remove one, widen the range, or check the files",
+            names[a],
+            names[b],
+            cos,
+            if condition.is_finite() {
+                format!("{condition:.3e}")
+            } else {
+                "infinite".into()
+            }
+        )));
+    }
+    let full_inverse_diag = match gm.cholesky() {
+        Some(ch) => {
+            let inv = ch.inverse();
+            (0..p).map(|i| inv[(i, i)]).collect()
+        }
+        None => {
+            // Positive definite by the condition check above; recompute
+            // the diagonal from the eigen-decomposition if rounding says no.
+            (0..p)
+                .map(|i| {
+                    (0..p)
+                        .map(|k| eig.eigenvectors[(i, k)].powi(2) / eig.eigenvalues[k])
+                        .sum()
+                })
+                .collect()
+        }
+    };
+    Ok((condition, full_inverse_diag))
 }
 
 pub use normal::Workspace;

@@ -294,38 +294,14 @@ pub(crate) fn solve(prep: &Prepared, a: &[f64], ws: &mut Workspace) -> Result<(f
     // start with x_P > 0 solving the sub-problem, as the Lawson–Hanson
     // iteration requires. Usually one or two sub-solves instead of adding
     // the components one at a time.
-    let all_mask: u64 = (0..p).fold(0, |m, j| m | (1 << j));
-    let mut mask = ws.last_mask.unwrap_or(all_mask) | free_mask;
-    loop {
-        solve_mask(prep, ws, mask)?;
-        let bad = (0..nn)
-            .filter(|&j| mask & (1 << j) != 0 && ws.z[j] <= 0.0)
-            .fold(0u64, |m, j| m | (1 << j));
-        if bad == 0 {
-            break;
-        }
-        mask &= !bad;
-    }
-    ws.x.copy_from_slice(&ws.z);
+    let mut mask = warm_start(prep, ws, free_mask)?;
 
     let max_iter = 3 * p + 10;
     let mut status = Status::IterationLimit;
     let mut blocked: u64 = 0;
     for _ in 0..max_iter {
         // Gradient of ½‖Ex−a‖² is −w with w = r − G·x.
-        let mut best: Option<(usize, f64)> = None;
-        for j in 0..nn {
-            let bit = 1u64 << j;
-            if mask & bit != 0 || blocked & bit != 0 {
-                continue;
-            }
-            let g = &prep.gram[j * p..(j + 1) * p];
-            let w = ws.r[j] - g.iter().zip(&ws.x).map(|(a, b)| a * b).sum::<f64>();
-            if w > tol && best.is_none_or(|(_, bw)| w > bw) {
-                best = Some((j, w));
-            }
-        }
-        let Some((t, _)) = best else {
+        let Some(t) = entering(prep, ws, mask | blocked, tol) else {
             status = Status::Converged;
             break;
         };
@@ -338,37 +314,7 @@ pub(crate) fn solve(prep: &Prepared, a: &[f64], ws: &mut Workspace) -> Result<(f
             continue;
         }
         blocked = 0;
-        // Inner loop: step back until every passive non-negative z > 0.
-        for _ in 0..=p {
-            let infeasible: Vec<usize> = (0..nn)
-                .filter(|&j| mask & (1 << j) != 0 && ws.z[j] <= 0.0)
-                .collect();
-            if infeasible.is_empty() {
-                break;
-            }
-            let alpha = infeasible
-                .iter()
-                .map(|&j| ws.x[j] / (ws.x[j] - ws.z[j]))
-                .fold(f64::INFINITY, f64::min);
-            for j in 0..p {
-                ws.x[j] += alpha * (ws.z[j] - ws.x[j]);
-            }
-            for j in 0..nn {
-                if mask & (1 << j) != 0
-                    && ws.x[j] <= 1e-15 * ws.x.iter().fold(0.0f64, |m, v| m.max(v.abs()))
-                {
-                    mask &= !(1 << j);
-                    ws.x[j] = 0.0;
-                }
-            }
-            // Make sure every infeasible index found leaves the set.
-            for &j in &infeasible {
-                if (ws.x[j]).abs() <= 0.0 {
-                    mask &= !(1 << j);
-                }
-            }
-            solve_mask(prep, ws, mask)?;
-        }
+        mask = step_back(prep, ws, mask)?;
         ws.x.copy_from_slice(&ws.z);
         for j in 0..nn {
             if mask & (1 << j) == 0 {
@@ -384,21 +330,103 @@ pub(crate) fn solve(prep: &Prepared, a: &[f64], ws: &mut Workspace) -> Result<(f
         }
     }
     ws.last_mask = Some(mask);
-    let xr: f64 = (0..p).map(|j| ws.z[j] * ws.r[j]).sum();
-    let mut rss = aa - xr;
-    if rss < 1e-6 * aa {
-        // The Gram identity cancels badly for near-exact fits: recompute.
-        let mut s = 0.0;
-        for (i, &ai) in a.iter().enumerate() {
-            let mut fit = 0.0;
-            for j in 0..p {
-                fit += prep.columns[j * n + i] * ws.z[j];
-            }
-            s += (ai - fit) * (ai - fit);
+    Ok((final_rss(prep, ws, a, aa), mask, status))
+}
+
+/// A feasible start: the previous spectrum's passive set (every variable
+/// for the first of a chunk) less the components whose least-squares
+/// value is not positive, until the rest are; x is set to that solution.
+fn warm_start(prep: &Prepared, ws: &mut Workspace, free_mask: u64) -> Result<u64> {
+    let (p, nn) = (prep.p, prep.n_nonneg);
+    let all_mask: u64 = (0..p).fold(0, |m, j| m | (1 << j));
+    let mut mask = ws.last_mask.unwrap_or(all_mask) | free_mask;
+    loop {
+        solve_mask(prep, ws, mask)?;
+        let bad = (0..nn)
+            .filter(|&j| mask & (1 << j) != 0 && ws.z[j] <= 0.0)
+            .fold(0u64, |m, j| m | (1 << j));
+        if bad == 0 {
+            break;
         }
-        rss = s;
+        mask &= !bad;
     }
-    Ok((rss, mask, status))
+    ws.x.copy_from_slice(&ws.z);
+    Ok(mask)
+}
+
+/// The non-negative variable outside `skip` with the largest positive
+/// gradient component w = r − G·x above `tol` (the one to enter the set).
+fn entering(prep: &Prepared, ws: &Workspace, skip: u64, tol: f64) -> Option<usize> {
+    let p = prep.p;
+    let mut best: Option<(usize, f64)> = None;
+    for j in 0..prep.n_nonneg {
+        if skip & (1u64 << j) != 0 {
+            continue;
+        }
+        let g = &prep.gram[j * p..(j + 1) * p];
+        let w = ws.r[j] - g.iter().zip(&ws.x).map(|(a, b)| a * b).sum::<f64>();
+        if w > tol && best.is_none_or(|(_, bw)| w > bw) {
+            best = Some((j, w));
+        }
+    }
+    best.map(|(j, _)| j)
+}
+
+/// The inner loop of Lawson–Hanson: step back from x towards z until every
+/// passive non-negative z is positive, dropping the variables that reach 0.
+fn step_back(prep: &Prepared, ws: &mut Workspace, mut mask: u64) -> Result<u64> {
+    let (p, nn) = (prep.p, prep.n_nonneg);
+    for _ in 0..=p {
+        let infeasible: Vec<usize> = (0..nn)
+            .filter(|&j| mask & (1 << j) != 0 && ws.z[j] <= 0.0)
+            .collect();
+        if infeasible.is_empty() {
+            break;
+        }
+        let alpha = infeasible
+            .iter()
+            .map(|&j| ws.x[j] / (ws.x[j] - ws.z[j]))
+            .fold(f64::INFINITY, f64::min);
+        for j in 0..p {
+            ws.x[j] += alpha * (ws.z[j] - ws.x[j]);
+        }
+        for j in 0..nn {
+            if mask & (1 << j) != 0
+                && ws.x[j] <= 1e-15 * ws.x.iter().fold(0.0f64, |m, v| m.max(v.abs()))
+            {
+                mask &= !(1 << j);
+                ws.x[j] = 0.0;
+            }
+        }
+        // Make sure every infeasible index found leaves the set.
+        for &j in &infeasible {
+            if (ws.x[j]).abs() <= 0.0 {
+                mask &= !(1 << j);
+            }
+        }
+        solve_mask(prep, ws, mask)?;
+    }
+    Ok(mask)
+}
+
+/// RSS from the Gram identity aᵀa − xᵀEᵀa, recomputed from the columns
+/// when it cancels badly (near-exact fits).
+fn final_rss(prep: &Prepared, ws: &Workspace, a: &[f64], aa: f64) -> f64 {
+    let (n, p) = (prep.n, prep.p);
+    let xr: f64 = (0..p).map(|j| ws.z[j] * ws.r[j]).sum();
+    let rss = aa - xr;
+    if rss >= 1e-6 * aa {
+        return rss;
+    }
+    let mut s = 0.0;
+    for (i, &ai) in a.iter().enumerate() {
+        let mut fit = 0.0;
+        for j in 0..p {
+            fit += prep.columns[j * n + i] * ws.z[j];
+        }
+        s += (ai - fit) * (ai - fit);
+    }
+    s
 }
 
 #[cfg(test)]
