@@ -9,6 +9,7 @@ use crate::fit::{FitOptions, fit_file};
 use crate::input::spectra::{self, ReadOptions};
 use crate::output::{self, Format};
 use crate::reference::{Component, ReferenceSet};
+use crate::target::{ColourOptions, QcContext, Target, Tolerances, recipe};
 use std::path::PathBuf;
 
 /// Run the fit on the built-in demo data and write its results.
@@ -39,6 +40,54 @@ pub const DEMO_LIBRARY: &[(&str, &str)] = &[
     ),
 ];
 
+/// The demo's target recipes (invented), as (shade, lot prefix, file text):
+/// copies of `demo-data/targets/*.csv`.
+pub const DEMO_TARGETS: &[(&str, &str, &str)] = &[
+    (
+        "harbour-teal",
+        "lot-2611",
+        include_str!("../../demo-data/targets/harbour-teal.csv"),
+    ),
+    (
+        "autumn-rust",
+        "lot-2612",
+        include_str!("../../demo-data/targets/autumn-rust.csv"),
+    ),
+    (
+        "heather",
+        "lot-2613",
+        include_str!("../../demo-data/targets/heather.csv"),
+    ),
+    (
+        "heather",
+        "lot-2614",
+        include_str!("../../demo-data/targets/heather.csv"),
+    ),
+    (
+        "strong-shade",
+        "lot-2615",
+        include_str!("../../demo-data/targets/strong-shade.csv"),
+    ),
+];
+
+/// The demo's targets resolved against its references, with the lot prefix
+/// each applies to.
+pub fn demo_targets(refs: &ReferenceSet) -> Result<Vec<(&'static str, Target)>, Failure> {
+    DEMO_TARGETS
+        .iter()
+        .map(|(shade, prefix, text)| {
+            let in_file = |e: crate::Error| {
+                Failure::new(format!("(built-in) demo-data/targets/{shade}.csv: {e}"))
+            };
+            let recipe = recipe::read(text.as_bytes()).map_err(in_file)?;
+            let target = recipe
+                .resolve(shade, refs, Tolerances::default())
+                .map_err(in_file)?;
+            Ok((*prefix, target))
+        })
+        .collect()
+}
+
 /// The demo's reference set, parsed from the embedded files.
 pub fn demo_references() -> Result<ReferenceSet, Failure> {
     let mut components = Vec::new();
@@ -65,7 +114,18 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let file = spectra::read(DEMO_SPECTRA.as_bytes(), ReadOptions::default())
         .map_err(|e| Failure::new(format!("(built-in) demo-data/lot-check.csv: {e}")))?;
     let options = FitOptions::default();
-    let report = fit_file(&file, &refs, &options)?;
+    let mut report = fit_file(&file, &refs, &options)?;
+    let targets = demo_targets(&refs)?;
+    crate::target::apply_to_file(&file, &mut report, |sample| {
+        let (_, target) = targets.iter().find(|(p, _)| sample.starts_with(p))?;
+        Some(QcContext {
+            refs: &refs,
+            target: Some(target),
+            colour: Some(ColourOptions::default()),
+            stock_mol_per_l: &[],
+            batch_volume_l: None,
+        })
+    });
     println!("unblend demo: an invented ink workshop checks its production lots.");
     println!(
         "Three house dyes ({}), {} spectra: blanks, single-dye standards and lots in replicate, 1 cm cells.\n",
@@ -92,6 +152,10 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             ["pathlength".into(), format!("{} cm", options.pathlength_cm)],
             ["baseline".into(), "offset".into()],
             ["residual checks".into(), "on (defaults)".into()],
+            [
+                "targets".into(),
+                "(built-in) demo-data/targets/*.csv, one per shade".into(),
+            ],
         ],
     });
     doc.curves = Some(crate::curves::for_file(&file, &refs, &options, &report));
@@ -105,6 +169,9 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     );
     println!(
         "The lot-2615 replicates read above 2 AU in the blue band: those points are masked out of the fit (saturation-masked); dilute and re-measure for a confident number."
+    );
+    println!(
+        "Against their targets (demo-data/targets/): lots 2611, 2613 and 2615 pass; lot 2612 carries 9 % too much saffron-yellow and fails on strength (the correction above dilutes it and tops up the other dyes); lot 2614 fails on colour (ΔE00 above 1) and on strength, its impurity biasing the fit."
     );
     println!(
         "At the default alarm rate 1 % of clean samples are flagged by chance: a lone flag with a band of a few tenths of a mAU may be one of them."
