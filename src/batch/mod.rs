@@ -292,6 +292,16 @@ pub struct SampleSummary {
     pub outliers_kept: bool,
     /// Per-component statistics, in component order.
     pub components: Vec<ComponentStats>,
+    /// Screening candidates that explain the residual of one or more of its
+    /// wells; those wells enter the statistics with their refitted values.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub screen_candidates: Vec<String>,
+    /// Every flag of its wells, once each, in the order first seen.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub flags: Vec<String>,
+    /// Remarks on the specimen as a whole (refitted wells, outliers).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub notes: Vec<String>,
 }
 
 /// Everything about one plate.

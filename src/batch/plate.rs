@@ -238,7 +238,7 @@ impl Plate<'_> {
         r.curves = curves;
         match outcome {
             Outcome::Fitted(s) => {
-                r.undiluted = undiluted(&s, entry.dilution);
+                r.undiluted = undiluted(&s, entry.dilution, self.model.molar_masses());
                 r.fit = Some(s);
             }
             Outcome::Failed(f) => r.error = Some(f.error),
@@ -381,16 +381,42 @@ fn fit_with(
     (o, c)
 }
 
-/// The concentrations in the specimen: the well's times the dilution.
-fn undiluted(s: &SampleResult, dilution: f64) -> Vec<Undiluted> {
+/// The concentrations in the specimen: the well's answer times the
+/// dilution. The answer is the fit, or, when a screening candidate explains
+/// the residual, the components refitted beside it (the refit has no
+/// standard errors, so they are left empty).
+fn undiluted(s: &SampleResult, dilution: f64, molar_masses: &[Option<f64>]) -> Vec<Undiluted> {
+    let refit = s.screening.as_ref().and_then(|x| x.best.as_ref());
     s.components
         .iter()
-        .map(|c| Undiluted {
-            name: c.name.to_string(),
-            concentration_mol_per_l: c.concentration_mol_per_l * dilution,
-            std_error_mol_per_l: c.std_error_mol_per_l.map(|v| v * dilution),
-            concentration_mg_per_l: c.concentration_mg_per_l.map(|v| v * dilution),
-            std_error_mg_per_l: c.std_error_mg_per_l.map(|v| v * dilution),
+        .enumerate()
+        .map(|(i, c)| {
+            let refitted = refit.and_then(|b| {
+                b.refitted
+                    .iter()
+                    .find(|r| *r.name == *c.name)
+                    .map(|r| r.concentration_mol_per_l)
+            });
+            match refitted {
+                Some(mol) => Undiluted {
+                    name: c.name.to_string(),
+                    concentration_mol_per_l: mol * dilution,
+                    std_error_mol_per_l: None,
+                    concentration_mg_per_l: molar_masses
+                        .get(i)
+                        .copied()
+                        .flatten()
+                        .map(|m| mol * dilution * m * 1000.0),
+                    std_error_mg_per_l: None,
+                },
+                None => Undiluted {
+                    name: c.name.to_string(),
+                    concentration_mol_per_l: c.concentration_mol_per_l * dilution,
+                    std_error_mol_per_l: c.std_error_mol_per_l.map(|v| v * dilution),
+                    concentration_mg_per_l: c.concentration_mg_per_l.map(|v| v * dilution),
+                    std_error_mg_per_l: c.std_error_mg_per_l.map(|v| v * dilution),
+                },
+            }
         })
         .collect()
 }

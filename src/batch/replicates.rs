@@ -33,6 +33,7 @@ pub(super) fn replicates(wells: &mut [WellResult], options: &BatchOptions) -> Ve
         let components = (0..n_comp)
             .map(|c| component_stats(wells, &in_stats, c, &per_comp_flags[c], idx[0]))
             .collect();
+        let remarks = Remarks::of(wells, &idx, &flagged, options.keep_outliers);
         out.push(SampleSummary {
             sample: key.1,
             role: key.0,
@@ -40,9 +41,67 @@ pub(super) fn replicates(wells: &mut [WellResult], options: &BatchOptions) -> Ve
             outlier_wells: flagged.iter().map(|&i| wells[i].well.clone()).collect(),
             outliers_kept: options.keep_outliers,
             components,
+            screen_candidates: remarks.candidates,
+            flags: remarks.flags,
+            notes: remarks.notes,
         });
     }
     out
+}
+
+/// What a specimen's summary says about its wells: the screening
+/// candidates, the flags and the notes in words.
+struct Remarks {
+    candidates: Vec<String>,
+    flags: Vec<String>,
+    notes: Vec<String>,
+}
+
+impl Remarks {
+    fn of(wells: &[WellResult], idx: &[usize], outliers: &[usize], kept: bool) -> Self {
+        let mut flags: Vec<String> = Vec::new();
+        let mut by_candidate: Vec<(String, Vec<&str>)> = Vec::new();
+        for &i in idx {
+            for f in wells[i].all_flags() {
+                if !flags.iter().any(|g| g == f) {
+                    flags.push(f.to_string());
+                }
+            }
+            let best = wells[i].fit.as_ref().and_then(|s| s.screening.as_ref());
+            if let Some(b) = best.and_then(|x| x.best.as_ref()) {
+                match by_candidate.iter_mut().find(|(n, _)| *n == b.name) {
+                    Some((_, w)) => w.push(&wells[i].well),
+                    None => by_candidate.push((b.name.clone(), vec![&wells[i].well])),
+                }
+            }
+        }
+        let mut notes: Vec<String> = by_candidate
+            .iter()
+            .map(|(name, w)| {
+                format!(
+                    "candidate {name} explains the residual of well(s) {}: their refitted concentrations are used",
+                    w.join(" ")
+                )
+            })
+            .collect();
+        if !outliers.is_empty() {
+            let names: Vec<&str> = outliers.iter().map(|&i| wells[i].well.as_str()).collect();
+            notes.push(format!(
+                "replicate outlier(s) {} {}",
+                names.join(" "),
+                if kept {
+                    "kept in the statistics"
+                } else {
+                    "left out of the statistics"
+                }
+            ));
+        }
+        Remarks {
+            candidates: by_candidate.into_iter().map(|(n, _)| n).collect(),
+            flags,
+            notes,
+        }
+    }
 }
 
 /// The fitted sample and standard wells grouped by (role, sample), in the

@@ -234,15 +234,32 @@ pub fn run(args: Args) -> Result<u8, Failure> {
 }
 
 /// Create the output folder and the temporary outputs (the report's first:
-/// a report path in a missing folder fails before the folder is created),
+/// a report path in a missing folder fails before the folder is created,
+/// unless the report goes into `--out-dir`, which is then made first),
 /// and write their heads. Also says whether the folder is new.
 fn open_outputs(
     args: &Args,
     refs: &ReferenceSet,
     options: &BatchOptions,
 ) -> Result<(Outputs, bool), Failure> {
+    let created_dir = !args.out_dir.exists();
+    let make_dir = || {
+        std::fs::create_dir_all(&args.out_dir)
+            .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))
+    };
+    let inside = args
+        .report
+        .as_deref()
+        .and_then(std::path::Path::parent)
+        .is_some_and(|d| d.starts_with(&args.out_dir));
+    if inside {
+        make_dir()?;
+    }
     let report_file = match &args.report {
         Some(path) => Some(AtomicFile::create(path).map_err(|e| {
+            if inside && created_dir {
+                let _ = std::fs::remove_dir(&args.out_dir);
+            }
             Failure::new(format!(
                 "--report {}: cannot write there ({e}); does its folder exist?",
                 path.display()
@@ -250,9 +267,7 @@ fn open_outputs(
         })?),
         None => None,
     };
-    let created_dir = !args.out_dir.exists();
-    std::fs::create_dir_all(&args.out_dir)
-        .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
+    make_dir()?;
     let mut out = Outputs::create(&args.out_dir)?;
     out.report = report_file.map(|f| {
         let names = refs.names().into_iter().map(String::from).collect();
@@ -326,6 +341,15 @@ fn progress_bar(args: &Args) -> Option<indicatif::ProgressBar> {
 
 /// Print the run's closing lines; the exit code they add up to.
 fn closing(tally: &Tally, elapsed_s: f64, paths: &[String]) -> u8 {
+    if !tally.summary.is_empty() {
+        println!("specimens (mean ± SD over replicate wells, dilution applied):");
+        for line in &tally.summary {
+            println!("  {line}");
+        }
+        if tally.summary_more > 0 {
+            println!("  … {} more in samples.csv", tally.summary_more);
+        }
+    }
     let rate = tally.wells_fitted as f64 / elapsed_s.max(1e-9);
     eprintln!(
         "unblend: {} plate(s), {} well(s) fitted, {} failed, in {elapsed_s:.2} s ({rate:.0} wells/s); wrote {}",
@@ -372,6 +396,9 @@ struct Tally {
     inputs: Vec<InputSummary>,
     warnings: Vec<String>,
     n_warnings: usize,
+    /// The first specimens' summary lines, and how many more there were.
+    summary: Vec<String>,
+    summary_more: usize,
 }
 
 impl Tally {
@@ -393,6 +420,13 @@ impl Tally {
         self.blanks += p.blank.wells.len();
         self.blank_outliers += p.blank.outliers.len();
         self.samples += p.samples.len();
+        for line in crate::output::batch::summary_lines(p) {
+            if self.summary.len() < crate::output::batch::SUMMARY_SHOWN {
+                self.summary.push(line);
+            } else {
+                self.summary_more += 1;
+            }
+        }
         for w in &p.wells {
             if w.flags
                 .iter()

@@ -12,7 +12,8 @@ pub struct DiagnosticArgs {
     #[arg(long, default_value_t = diagnostics::DEFAULT_ALARM_RATE, value_parser = parse_rate, value_name = "RATE")]
     pub alarm_rate: f64,
     /// Ceiling in AU: points above it are masked out of the fit (stray light); `none` keeps every point.
-    #[arg(long, default_value = "2", value_parser = parse_ceiling, value_name = "AU|none")]
+    /// Spelled as in `calibrate`; the older `--max-absorbance` is still accepted.
+    #[arg(long = "max-absorbance-au", alias = "max-absorbance", default_value = "2", value_parser = parse_ceiling, value_name = "AU|none")]
     pub max_absorbance: Ceiling,
     /// Weights of the readings in the fit: `estimated` (each spectrum's noise growth with absorbance, weighted when it grows) or `none` (every reading the same).
     #[arg(long, default_value = "estimated", value_parser = parse_weights, value_name = "none|estimated")]

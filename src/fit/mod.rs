@@ -294,6 +294,12 @@ pub struct Model {
 }
 
 impl Model {
+    /// Molar masses of the components in column order, g/mol (`None`
+    /// where the reference file gives none).
+    pub fn molar_masses(&self) -> &[Option<f64>] {
+        &self.molar_masses
+    }
+
     /// Build the plain model for a grid: no masking, no residual checks
     /// (as before the checks existed). [`Model::with_checks`] adds them;
     /// [`fit_file`] and [`fit_stream`] use the default checks.

@@ -113,8 +113,12 @@ pub fn write(report: &FitReport, format: Format, w: &mut dyn Write) -> io::Resul
 }
 
 /// Column names of the tidy CSV; the residual-check columns (from
-/// `noise_au` on, see [`notes`]) come after `error`.
-pub const CSV_HEADER: &str = "sample,component,concentration_mol_per_l,std_error_mol_per_l,concentration_mg_per_l,std_error_mg_per_l,mole_fraction,mass_fraction,baseline_offset_au,baseline_slope_au_per_nm,residual_rms_au,r_squared,range_low_nm,range_high_nm,n_points,pathlength_cm,solver,flags,error,noise_au,reduced_chi_squared,durbin_watson,alarm_p_value,band_centre_nm,band_fwhm_nm,band_peak_au,band_signal_fraction,n_masked,screen_candidate,screen_concentration_mol_per_l,screen_p_value";
+/// `noise_au` on, see [`notes`]) come after `error`. The last two say which
+/// concentration is the answer: when a screening candidate explains the
+/// residual, `refitted_mol_per_l` holds the component's concentration with
+/// the candidate in the model and `answer` reads `refit`; otherwise
+/// `refitted_mol_per_l` is empty and `answer` reads `fit`.
+pub const CSV_HEADER: &str = "sample,component,concentration_mol_per_l,std_error_mol_per_l,concentration_mg_per_l,std_error_mg_per_l,mole_fraction,mass_fraction,baseline_offset_au,baseline_slope_au_per_nm,residual_rms_au,r_squared,range_low_nm,range_high_nm,n_points,pathlength_cm,solver,flags,error,noise_au,reduced_chi_squared,durbin_watson,alarm_p_value,band_centre_nm,band_fwhm_nm,band_peak_au,band_signal_fraction,n_masked,screen_candidate,screen_concentration_mol_per_l,screen_p_value,refitted_mol_per_l,answer";
 
 /// Quote a CSV field when it needs it.
 pub fn csv_field(s: &str) -> std::borrow::Cow<'_, str> {
@@ -146,7 +150,7 @@ fn csv_rows(o: &Outcome, out: &mut String) {
             out.push_str(&csv_field(&f.sample));
             out.push_str(&",".repeat(18));
             out.push_str(&csv_field(&f.error));
-            out.push_str(&",".repeat(notes::CSV_EXTRA_COLUMNS));
+            out.push_str(&",".repeat(notes::CSV_EXTRA_COLUMNS + 2));
             out.push('\n');
         }
         Outcome::Fitted(s) => {
@@ -179,7 +183,7 @@ fn csv_rows(o: &Outcome, out: &mut String) {
             }
             tail.push(',');
             notes::csv_extra(s, &mut tail);
-            tail.push('\n');
+            tail.push(',');
             let sample = csv_field(&s.sample);
             for c in &s.components {
                 out.push_str(&sample);
@@ -199,6 +203,10 @@ fn csv_rows(o: &Outcome, out: &mut String) {
                 opt(out, c.mass_fraction);
                 out.push(',');
                 out.push_str(&tail);
+                opt(out, notes::refitted_mol_per_l(s, &c.name));
+                out.push(',');
+                out.push_str(notes::answer(s));
+                out.push('\n');
             }
         }
     }
@@ -248,6 +256,29 @@ pub struct DisplayUnit {
     pub factor: f64,
 }
 
+impl DisplayUnit {
+    /// mol/L, mmol/L, µmol/L or nmol/L: the largest in which `typical`
+    /// (mol/L) reads 0.1 or more (µmol/L when it is not positive).
+    pub fn for_typical(typical: f64) -> DisplayUnit {
+        let typical = if typical.is_finite() && typical > 0.0 {
+            typical
+        } else {
+            1e-6
+        };
+        let units = [
+            ("mol/L", 1.0),
+            ("mmol/L", 1e3),
+            ("µmol/L", 1e6),
+            ("nmol/L", 1e9),
+        ];
+        let (label, factor) = units
+            .into_iter()
+            .find(|(_, f)| typical * f >= 0.1)
+            .unwrap_or(units[3]);
+        DisplayUnit { label, factor }
+    }
+}
+
 /// Choose mol/L, mmol/L, µmol/L or nmol/L so typical values read 0.1–1000.
 pub fn display_unit(report: &FitReport) -> DisplayUnit {
     let mut v: Vec<f64> = report
@@ -261,31 +292,7 @@ pub fn display_unit(report: &FitReport) -> DisplayUnit {
         .filter(|c| *c > 0.0)
         .collect();
     v.sort_by(f64::total_cmp);
-    let typical = v.get(v.len() / 2).copied().unwrap_or(1e-6);
-    let units = [
-        DisplayUnit {
-            label: "mol/L",
-            factor: 1.0,
-        },
-        DisplayUnit {
-            label: "mmol/L",
-            factor: 1e3,
-        },
-        DisplayUnit {
-            label: "µmol/L",
-            factor: 1e6,
-        },
-        DisplayUnit {
-            label: "nmol/L",
-            factor: 1e9,
-        },
-    ];
-    for u in units {
-        if typical * u.factor >= 0.1 {
-            return u;
-        }
-    }
-    units[3]
+    DisplayUnit::for_typical(v.get(v.len() / 2).copied().unwrap_or(1e-6))
 }
 
 /// Aligned terminal table: one row per sample, concentrations ± standard

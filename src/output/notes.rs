@@ -2,6 +2,7 @@
 //! printed under the terminal table.
 
 use super::opt as num;
+use crate::diagnostics::screen::CandidateResult;
 use crate::fit::{FitReport, Outcome, SampleResult};
 use std::io::{self, Write};
 
@@ -42,6 +43,33 @@ pub fn csv_extra(s: &SampleResult, out: &mut String) {
     num(out, best.map(|b| b.concentration_mol_per_l));
     out.push(',');
     num(out, best.map(|b| b.p_value));
+}
+
+/// The candidate whose refit is the answer: the best screening candidate,
+/// which is only set when it explains the residual (significant, and the
+/// residual left is noise).
+pub fn explaining(s: &SampleResult) -> Option<&CandidateResult> {
+    s.screening.as_ref().and_then(|x| x.best.as_ref())
+}
+
+/// The concentration of component `name` refitted beside the explaining
+/// candidate, mol/L (`None` when no candidate explains the residual).
+pub fn refitted_mol_per_l(s: &SampleResult, name: &str) -> Option<f64> {
+    explaining(s)?
+        .refitted
+        .iter()
+        .find(|r| r.name == name)
+        .map(|r| r.concentration_mol_per_l)
+}
+
+/// Which set of concentrations is the answer: `refit` when a candidate
+/// explains the residual, else `fit`.
+pub fn answer(s: &SampleResult) -> &'static str {
+    if explaining(s).is_some() {
+        "refit"
+    } else {
+        "fit"
+    }
 }
 
 fn p_text(p: f64) -> String {
@@ -125,16 +153,7 @@ pub fn notes(s: &SampleResult, unit: &super::DisplayUnit) -> Vec<String> {
     }
     if let Some(sc) = &s.screening {
         match &sc.best {
-            Some(b) => out.push(format!(
-                "candidate {} explains the residual: {:.3} ± {:.3} {} (F = {:.1}, p = {}), residual then {:.2} mAU",
-                b.name,
-                b.concentration_mol_per_l * unit.factor,
-                b.std_error_mol_per_l * unit.factor,
-                unit.label,
-                b.f_statistic,
-                p_text(b.p_value),
-                b.residual_rms_au * 1000.0
-            )),
+            Some(b) => out.push(candidate_note(b, unit)),
             None => out.push(format!(
                 "no candidate explains the residual ({} tried{})",
                 sc.tried.len(),
@@ -147,6 +166,28 @@ pub fn notes(s: &SampleResult, unit: &super::DisplayUnit) -> Vec<String> {
         }
     }
     out
+}
+
+/// The note of a candidate that explains the residual, with the refitted
+/// concentrations, which are the answer.
+fn candidate_note(b: &CandidateResult, unit: &super::DisplayUnit) -> String {
+    let refitted: Vec<String> = b
+        .refitted
+        .iter()
+        .map(|r| format!("{} {:.3}", r.name, r.concentration_mol_per_l * unit.factor))
+        .collect();
+    format!(
+        "candidate {} explains the residual: {:.3} ± {:.3} {} (F = {:.1}, p = {}), residual then {:.2} mAU; refitted with it (the answer): {} {}",
+        b.name,
+        b.concentration_mol_per_l * unit.factor,
+        b.std_error_mol_per_l * unit.factor,
+        unit.label,
+        b.f_statistic,
+        p_text(b.p_value),
+        b.residual_rms_au * 1000.0,
+        refitted.join(", "),
+        unit.label
+    )
 }
 
 /// Write the notes of every sample that has any, under a heading.

@@ -290,7 +290,7 @@ pub fn sample_anchor(n: usize) -> String {
 pub(crate) const CSS: &str = "body{font-family:sans-serif;margin:1.5em auto;max-width:1100px;color:#111;line-height:1.35}\
 h1{font-size:1.5em}h2{font-size:1.2em;border-bottom:1px solid #999;margin-top:1.6em}h3{font-size:1.05em;margin-bottom:.3em}\
 table{border-collapse:collapse;margin:.4em 0}td,th{border:1px solid #bbb;padding:2px 6px;text-align:right;white-space:nowrap}\
-th{background:#eee}td:first-child,th:first-child{text-align:left}.flag{color:#a33f00;font-weight:bold}\
+th{background:#eee}td.wrap{white-space:normal;text-align:left;min-width:16em}td:first-child,th:first-child{text-align:left}.flag{color:#a33f00;font-weight:bold}\
 .note{color:#444;font-size:.9em}section.sample{page-break-inside:avoid}svg{max-width:100%;height:auto}\
 @media print{a{color:#000;text-decoration:none}}";
 
@@ -436,7 +436,7 @@ fn sample_table(h: &mut String, doc: &JsonReport, unit: &str, factor: f64) {
     h.push_str("</table>\n<p class=\"note\">concentrations ± standard error</p>\n");
 }
 
-pub(crate) fn sample_numbers(h: &mut String, s: &SampleResult, unit: &str, factor: f64) {
+pub(crate) fn sample_numbers(h: &mut String, s: &SampleResult, unit: &'static str, factor: f64) {
     h.push_str("<table><tr><th>component</th>");
     let _ = write!(h, "<th>concentration ± SE ({unit})</th>");
     h.push_str("<th>mg/L</th><th>mole fraction</th><th>mass fraction</th></tr>\n");
@@ -489,6 +489,13 @@ pub(crate) fn sample_numbers(h: &mut String, s: &SampleResult, unit: &str, facto
             "<p>flags: <span class=\"flag\">{}</span></p>",
             escape(&s.flags.join(", "))
         );
+    }
+    let display = crate::output::DisplayUnit {
+        label: unit,
+        factor,
+    };
+    for n in crate::output::notes::notes(s, &display) {
+        let _ = writeln!(h, "<p class=\"note\">{}</p>", escape(&n));
     }
 }
 

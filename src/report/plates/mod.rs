@@ -499,7 +499,7 @@ fn replicate_table(h: &mut String, p: &PlateResult, components: &[String]) {
     for c in components {
         let _ = write!(h, "<th>{} ({unit}) mean ± SD (CV %)</th>", escape(c));
     }
-    h.push_str("<th>outlier wells</th></tr>\n");
+    h.push_str("<th>outlier wells</th><th>flags</th><th>notes</th></tr>\n");
     for s in &p.samples {
         let _ = write!(
             h,
@@ -517,8 +517,10 @@ fn replicate_table(h: &mut String, p: &PlateResult, components: &[String]) {
         }
         let _ = writeln!(
             h,
-            "<td class=\"flag\">{}</td></tr>",
-            escape(&s.outlier_wells.join(" "))
+            "<td class=\"flag\">{}</td><td class=\"flag\">{}</td><td class=\"wrap\">{}</td></tr>",
+            escape(&s.outlier_wells.join(" ")),
+            escape(&s.flags.join(" ")),
+            escape(&s.notes.join("; "))
         );
     }
     h.push_str("</table>\n");
