@@ -512,11 +512,12 @@ impl Outputs {
             file.write_all(html.as_bytes()).map_err(io)?;
             files.push(file);
         }
-        let mut paths = Vec::new();
-        for f in files {
-            paths.push(f.target().display().to_string());
-            f.commit()?;
-        }
+        let paths = files
+            .iter()
+            .map(|f| f.target().display().to_string())
+            .collect();
+        // All old or all new: a failure part way puts the old set back.
+        crate::atomic::commit_all(files)?;
         Ok(paths)
     }
 }

@@ -96,13 +96,11 @@ impl From<crate::Error> for Failure {
 /// Parse the command line, run it, and return the exit code.
 pub fn main() -> ExitCode {
     // An interrupted run removes its temporary files; the outputs it was
-    // writing keep their previous content (see `atomic`). If the handler
+    // writing keep their previous content, or, past the commit point, the
+    // run finishes (see `atomic::on_interrupt`). If the handler
     // cannot be installed the default applies: the process stops at once and
     // temporaries stay behind, but no output is ever half written.
-    let _ = ctrlc::set_handler(|| {
-        eprintln!("unblend: interrupted: outputs left as they were");
-        crate::atomic::exit_removing_temporaries(i32::from(exit::INTERRUPTED))
-    });
+    let _ = ctrlc::set_handler(|| crate::atomic::on_interrupt(i32::from(exit::INTERRUPTED)));
     let cli = match Cli::try_parse() {
         Ok(c) => c,
         Err(e) => {
