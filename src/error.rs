@@ -84,6 +84,18 @@ pub enum Error {
         /// What writing would do.
         why: &'static str,
     },
+    /// A number outside its plausible range (see `ranges`).
+    #[error("{what} {} {unit}: {why}", crate::ranges::shown(.value))]
+    OutOfRange {
+        /// What the number is ("pathlength").
+        what: &'static str,
+        /// The value given.
+        value: f64,
+        /// Its unit.
+        unit: &'static str,
+        /// The plausible range and why.
+        why: &'static str,
+    },
     /// A line of a text input is longer than any reading has a reason to be.
     #[error("line {line} is longer than {limit_mib} MiB: expected a text file with line breaks")]
     LineTooLong {

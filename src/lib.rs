@@ -32,6 +32,7 @@ pub mod input;
 pub mod limits;
 pub mod output;
 pub mod preprocess;
+pub mod ranges;
 pub mod reference;
 pub mod report;
 pub mod separability;

@@ -12,6 +12,7 @@ pub mod discover;
 pub mod fit;
 pub mod library;
 pub mod report;
+pub mod stdout;
 
 use clap::{Parser, Subcommand};
 use std::process::ExitCode;
