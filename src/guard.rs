@@ -28,6 +28,14 @@ impl<'a> Named<'a> {
     }
 }
 
+/// The files among optional ones that were given, with their roles.
+pub fn given<'a>(files: &[(&'a str, Option<&'a Path>)]) -> Vec<Named<'a>> {
+    files
+        .iter()
+        .filter_map(|&(role, path)| path.map(|path| Named { role, path }))
+        .collect()
+}
+
 /// What makes two paths the same file.
 #[derive(Debug, PartialEq, Eq)]
 enum Identity {

@@ -93,6 +93,39 @@ pub fn read_with_cap(mut r: impl Read, shown: &str, limit: usize) -> Result<Vec<
     }
 }
 
+/// A reader that fails (with [`Error::LineTooLong`] inside an
+/// [`std::io::ErrorKind::InvalidData`] error) once a line passes the cap,
+/// for readers that stream their input rather than read it whole.
+pub struct Capped<R> {
+    inner: R,
+    cap: LineCap,
+}
+
+impl<R: Read> Capped<R> {
+    /// Wrap `inner` with a cap of [`MAX_LINE_BYTES`] per line.
+    pub fn new(inner: R) -> Self {
+        Self::with_limit(inner, MAX_LINE_BYTES)
+    }
+
+    /// Wrap `inner` with a cap of `limit` bytes per line.
+    pub fn with_limit(inner: R, limit: usize) -> Self {
+        Capped {
+            inner,
+            cap: LineCap::new(limit),
+        }
+    }
+}
+
+impl<R: Read> Read for Capped<R> {
+    fn read(&mut self, buf: &mut [u8]) -> std::io::Result<usize> {
+        let n = self.inner.read(buf)?;
+        self.cap
+            .feed(&buf[..n])
+            .map_err(|e| std::io::Error::new(std::io::ErrorKind::InvalidData, e))?;
+        Ok(n)
+    }
+}
+
 /// Read a text input (a file, or standard input for `-`) with the line cap.
 pub fn read_text(path: &Path) -> Result<Vec<u8>> {
     if path.as_os_str() == "-" {
@@ -162,6 +195,19 @@ mod tests {
         assert_eq!(
             e,
             "line 1 is longer than 1 MiB: expected a text file with line breaks"
+        );
+    }
+
+    #[test]
+    fn a_capped_reader_stops_an_endless_stream() {
+        let zeros = std::io::repeat(b'x').take(4 << 20);
+        let mut capped = Capped::with_limit(zeros, 1 << 20);
+        let mut sink = Vec::new();
+        let e = capped.read_to_end(&mut sink).unwrap_err();
+        assert_eq!(e.kind(), std::io::ErrorKind::InvalidData);
+        assert!(
+            e.to_string().starts_with("line 1 is longer than 1 MiB"),
+            "{e}"
         );
     }
 

@@ -3,11 +3,12 @@
 
 use super::diagnostic_args::DiagnosticArgs;
 use super::fit::{BaselineArg, QuantityArg};
-use super::{Failure, exit, library_dir, parse_positive, parse_range_nm};
+use super::{Failure, exit, library_dir, parse_pathlength_cm, parse_positive, parse_range_nm};
 use crate::atomic::AtomicFile;
 use crate::batch::run::{self, Event, InputSummary, RunSpec};
 use crate::batch::{BatchOptions, Models, PlateResult, WaterBand};
 use crate::fit::FitOptions;
+use crate::guard::Named;
 use crate::input::platemap;
 use crate::output::batch::{RenderedPlate, SAMPLES_HEADER, WELLS_HEADER, render_plate_with};
 use crate::reference::{Library, ReferenceSet};
@@ -57,7 +58,7 @@ pub struct Args {
     #[arg(long, value_delimiter = ',', value_name = "NAMES")]
     pub components: Vec<String>,
     /// Pathlength in cm for wells whose map gives none (and without --pathlength-from-water).
-    #[arg(long, default_value = "1", value_parser = parse_positive, value_name = "CM")]
+    #[arg(long, default_value = "1", value_parser = parse_pathlength_cm, allow_negative_numbers = true, value_name = "CM")]
     pub pathlength_cm: f64,
     /// Pathlength of each well from the near-infrared water band:
     /// l = (A(977 nm) − A(900 nm)) / --water-au-per-cm, from the reading before blank
@@ -72,7 +73,7 @@ pub struct Args {
     #[arg(long, value_enum, default_value_t = BaselineArg::Offset)]
     pub baseline: BaselineArg,
     /// Wavelength window LO:HI in nm [default: all wavelengths the plate and every reference cover].
-    #[arg(long, value_parser = parse_range_nm, value_name = "LO:HI")]
+    #[arg(long, value_parser = parse_range_nm, allow_hyphen_values = true, value_name = "LO:HI")]
     pub range_nm: Option<(f64, f64)>,
     /// What the numbers in the inputs are.
     #[arg(long, value_enum, default_value_t = QuantityArg::Absorbance)]
@@ -132,6 +133,20 @@ fn checks(args: &Args) -> Result<crate::diagnostics::Options, Failure> {
     Ok(checks)
 }
 
+/// Refuse a run whose outputs (in `--out-dir`, and `--report`) include an
+/// input file or the plate map, before anything is read.
+fn refuse_overwriting_inputs(args: &Args) -> Result<(), Failure> {
+    let paths: Vec<PathBuf> = OUTPUT_NAMES.iter().map(|n| args.out_dir.join(n)).collect();
+    let mut outputs: Vec<Named> = paths.iter().map(|p| Named::new("output", p)).collect();
+    outputs.extend(crate::guard::given(&[("--report", args.report.as_deref())]));
+    let mut inputs: Vec<Named> = args.inputs.iter().map(|p| Named::new("input", p)).collect();
+    inputs.extend(crate::guard::given(&[(
+        "--plate-map",
+        args.plate_map.as_deref(),
+    )]));
+    Ok(crate::guard::refuse_overwriting(&inputs, &outputs)?)
+}
+
 fn parse_alpha(s: &str) -> Result<f64, String> {
     match s.trim().parse::<f64>() {
         Ok(v) if v > 0.0 && v < 0.5 => Ok(v),
@@ -170,6 +185,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let started = Instant::now();
     let started_utc = now_utc();
     let options = BatchOptions::try_from(&args)?;
+    refuse_overwriting_inputs(&args)?;
     if args.inputs.iter().filter(|p| p.as_os_str() == "-").count() > 1 {
         return Err(Failure {
             message: "standard input ('-') can be given only once".into(),
@@ -194,6 +210,9 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     };
     let dir = library_dir(args.library.clone());
     let library = Library::open(&dir)?;
+    for w in &library.skipped {
+        eprintln!("unblend: warning: {w}");
+    }
     let refs = library.select(&args.components)?;
     let checks = checks(&args)?;
     // The report's temporary file first: a report path in a missing folder
@@ -420,6 +439,9 @@ impl Tally {
     }
 }
 
+/// The names of the four output files in `--out-dir`.
+const OUTPUT_NAMES: [&str; 4] = ["wells.csv", "samples.csv", "run.json", "run-log.txt"];
+
 /// The four output files, filled as the run goes and committed together.
 struct Outputs {
     wells: AtomicFile,
@@ -444,10 +466,10 @@ struct LogInfo<'a> {
 impl Outputs {
     fn create(dir: &Path) -> Result<Self, Failure> {
         Ok(Outputs {
-            wells: AtomicFile::create(&dir.join("wells.csv"))?,
-            samples: AtomicFile::create(&dir.join("samples.csv"))?,
-            json: AtomicFile::create(&dir.join("run.json"))?,
-            log: AtomicFile::create(&dir.join("run-log.txt"))?,
+            wells: AtomicFile::create(&dir.join(OUTPUT_NAMES[0]))?,
+            samples: AtomicFile::create(&dir.join(OUTPUT_NAMES[1]))?,
+            json: AtomicFile::create(&dir.join(OUTPUT_NAMES[2]))?,
+            log: AtomicFile::create(&dir.join(OUTPUT_NAMES[3]))?,
             first_plate: true,
             report: None,
         })

@@ -1,11 +1,12 @@
 //! `unblend calibrate`: a reference component from a blank and standards.
 
 use super::fit::{QuantityArg, read_input};
-use super::{Failure, exit, library_dir, parse_positive, parse_range_nm};
+use super::{Failure, exit, library_dir, parse_pathlength_cm, parse_positive, parse_range_nm};
 use crate::calibrate::{
     self, ABSORBANCE_CEILING_AU, CalibrationOptions, CalibrationResult, LINEARITY_TOLERANCE,
     Provenance,
 };
+use crate::guard::Named;
 use crate::input::concentrations::{self, ConcentrationUnit};
 use crate::input::spectra::{self, ReadOptions};
 use crate::reference::{Calibration, Conditions, Library};
@@ -45,7 +46,7 @@ pub struct Args {
     #[arg(long, value_name = "DIR")]
     pub library: Option<PathBuf>,
     /// Optical pathlength of the standards' cell, cm.
-    #[arg(long, default_value = "1", value_parser = parse_positive, value_name = "CM")]
+    #[arg(long, default_value = "1", value_parser = parse_pathlength_cm, allow_negative_numbers = true, value_name = "CM")]
     pub pathlength_cm: f64,
     /// Molar mass in g/mol (needed for mg/L and g/L; enables mg/L results).
     #[arg(long, value_parser = parse_positive, value_name = "G_PER_MOL")]
@@ -57,7 +58,7 @@ pub struct Args {
     #[arg(long, value_enum, default_value_t = QuantityArg::Absorbance)]
     pub quantity: QuantityArg,
     /// Use only wavelengths in LO:HI nm [default: every wavelength in INPUT].
-    #[arg(long, value_parser = parse_range_nm, value_name = "LO:HI")]
+    #[arg(long, value_parser = parse_range_nm, allow_hyphen_values = true, value_name = "LO:HI")]
     pub range_nm: Option<(f64, f64)>,
     /// Relative deviation from the line of the lower standards that counts as non-linear (fraction).
     #[arg(long, default_value_t = LINEARITY_TOLERANCE, value_parser = parse_positive, value_name = "FRACTION")]
@@ -138,6 +139,16 @@ impl TryFrom<&Args> for CalibrationOptions {
 /// Run `unblend calibrate`.
 pub fn run(args: Args) -> Result<u8, Failure> {
     crate::reference::component::validate_name(&args.name)?;
+    let component_file = Library::path_for(&library_dir(args.library.clone()), &args.name);
+    let outputs = crate::guard::given(&[
+        ("--out", args.out.as_deref()),
+        ("component file", Some(&component_file)),
+    ]);
+    let inputs = [
+        Named::new("input", &args.input),
+        Named::new("--concentrations", &args.concentrations),
+    ];
+    crate::guard::refuse_overwriting(&inputs, &outputs)?;
     let options = CalibrationOptions::try_from(&args)?;
     let shown = shown(&args.input);
     let bytes = read_input(&args.input)?;
@@ -223,13 +234,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
 /// Write text to standard output; a reader that went away (a closed pipe)
 /// is not an error.
 pub(crate) fn print_stdout(text: &str) -> Result<(), Failure> {
-    let mut lock = std::io::stdout().lock();
-    match lock.write_all(text.as_bytes()).and_then(|_| lock.flush()) {
-        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => {
-            Err(Failure::new(format!("standard output: {e}")))
-        }
-        _ => Ok(()),
-    }
+    super::stdout::print(text)
 }
 
 fn shown(path: &Path) -> String {

@@ -3,9 +3,10 @@
 
 use super::diagnostic_args::DiagnosticArgs;
 use super::fit::{BaselineArg, QuantityArg, read_input};
-use super::{Failure, exit, library_dir, parse_positive, parse_range_nm};
+use super::{Failure, exit, library_dir, parse_pathlength_cm, parse_positive, parse_range_nm};
 use crate::discover::{self, DiscoverOptions, Discovery};
 use crate::fit::FitOptions;
+use crate::guard::Named;
 use crate::input::spectra::{self, ReadOptions};
 use crate::reference::Library;
 use clap::ValueEnum;
@@ -29,13 +30,13 @@ pub struct Args {
     #[arg(long, value_delimiter = ',', value_name = "NAMES")]
     pub components: Vec<String>,
     /// Optical pathlength in cm.
-    #[arg(long, default_value = "1", value_parser = parse_positive, value_name = "CM")]
+    #[arg(long, default_value = "1", value_parser = parse_pathlength_cm, allow_negative_numbers = true, value_name = "CM")]
     pub pathlength_cm: f64,
     /// Baseline terms fitted beside the components (free in sign).
     #[arg(long, value_enum, default_value_t = BaselineArg::Offset)]
     pub baseline: BaselineArg,
     /// Wavelength window LO:HI in nm [default: all wavelengths the sample and every reference cover].
-    #[arg(long, value_parser = parse_range_nm, value_name = "LO:HI")]
+    #[arg(long, value_parser = parse_range_nm, allow_hyphen_values = true, value_name = "LO:HI")]
     pub range_nm: Option<(f64, f64)>,
     /// What the numbers in INPUT are.
     #[arg(long, value_enum, default_value_t = QuantityArg::Absorbance)]
@@ -65,6 +66,10 @@ pub enum ReportFormat {
 
 /// Run `unblend discover`.
 pub fn run(args: Args) -> Result<u8, Failure> {
+    crate::guard::refuse_overwriting(
+        &[Named::new("input", &args.input)],
+        &[Named::new("--out", &args.out)],
+    )?;
     if args.checks.no_diagnostics {
         return Err(Failure::new(
             "discover works on the samples the residual tests flag: drop --no-diagnostics",

@@ -1,9 +1,12 @@
 //! `unblend fit`: fit spectra against reference components.
 
 use super::diagnostic_args::DiagnosticArgs;
-use super::{Failure, exit, library_dir, parse_positive, parse_range_nm};
+use super::{Failure, exit, library_dir, parse_pathlength_cm, parse_range_nm};
+use crate::atomic::{AtomicFile, stage_with};
 use crate::fit::{FitOptions, FitReport, Outcome, StreamError, fit_stream_with};
+use crate::guard::Named;
 use crate::input::spectra::{self, Opened, Quantity, ReadOptions, WideStream};
+use crate::limits::Capped;
 use crate::output::{self, Format};
 use crate::preprocess::Baseline;
 use crate::reference::{Library, ReferenceSet};
@@ -25,13 +28,13 @@ pub struct Args {
     #[arg(long, value_delimiter = ',', value_name = "NAMES")]
     pub components: Vec<String>,
     /// Optical pathlength in cm.
-    #[arg(long, default_value = "1", value_parser = parse_positive, value_name = "CM")]
+    #[arg(long, default_value = "1", value_parser = parse_pathlength_cm, allow_negative_numbers = true, value_name = "CM")]
     pub pathlength_cm: f64,
     /// Baseline terms fitted beside the components (free in sign): offset in AU, slope in AU/nm.
     #[arg(long, value_enum, default_value_t = BaselineArg::Offset)]
     pub baseline: BaselineArg,
     /// Wavelength window LO:HI in nm [default: all wavelengths the sample and every reference cover].
-    #[arg(long, value_parser = parse_range_nm, value_name = "LO:HI")]
+    #[arg(long, value_parser = parse_range_nm, allow_hyphen_values = true, value_name = "LO:HI")]
     pub range_nm: Option<(f64, f64)>,
     /// What the numbers in INPUT are.
     #[arg(long, value_enum, default_value_t = QuantityArg::Absorbance)]
@@ -140,7 +143,15 @@ impl TryFrom<&Args> for FitOptions {
 }
 
 /// Run `unblend fit`.
-pub fn run(args: Args) -> Result<u8, Failure> {
+pub fn run(mut args: Args) -> Result<u8, Failure> {
+    // `--out -` is standard output, as `-` is standard input.
+    args.out = args.out.filter(|p| p.as_os_str() != "-");
+    let outputs = crate::guard::given(&[
+        ("--out", args.out.as_deref()),
+        ("--report", args.report.as_deref()),
+        ("--plot", args.plot.as_deref()),
+    ]);
+    crate::guard::refuse_overwriting(&[Named::new("input", &args.input)], &outputs)?;
     let options = FitOptions::try_from(&args)?;
     let format: Format = args.format.into();
     let shown = if args.input.as_os_str() == "-" {
@@ -151,6 +162,9 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let dir = library_dir(args.library.clone());
     let library_dir_shown = dir.clone();
     let library = Library::open(&dir)?;
+    for w in &library.skipped {
+        eprintln!("unblend: warning: {w}");
+    }
     let refs = library.select(&args.components)?;
     let mut checks = args.checks.options();
     if let Some(dir) = &args.screen_with {
@@ -174,14 +188,14 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         });
     }
     if args.with_curves && format != Format::Json {
-        return Err(Failure::new(
+        return Err(Failure::usage(
             "--with-curves adds the fit curves to the JSON results: use it with --format json",
         ));
     }
     if let Some(p) = &args.plot
         && plot_kind(p).is_none()
     {
-        return Err(Failure::new(format!(
+        return Err(Failure::usage(format!(
             "--plot {}: expected a file name ending in .svg or .png (the extension picks the format)",
             p.display()
         )));
@@ -197,12 +211,14 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             &library_dir_shown,
         );
     }
+    // Every line is capped, so an input without line breaks (/dev/zero)
+    // fails with its line number instead of filling memory.
     let reader: Box<dyn Read + Send> = if args.input.as_os_str() == "-" {
-        Box::new(std::io::stdin())
+        Box::new(Capped::new(std::io::stdin()))
     } else {
-        Box::new(
+        Box::new(Capped::new(
             std::fs::File::open(&args.input).map_err(|e| Failure::new(format!("{shown}: {e}")))?,
-        )
+        ))
     };
     let ctx = |e: crate::Error| Failure::new(format!("{shown}: {e}"));
     let read_options = ReadOptions {
@@ -289,81 +305,96 @@ fn run_with_curves(
     let mut doc = output::JsonReport::from_report(&report);
     doc.run = Some(run_info(args, shown, library));
     doc.curves = Some(curves);
+    // Every file output is staged first and replaced as one set (all old
+    // or all new); what was written is said only once it is in place.
+    let mut staged = Vec::new();
+    let mut said = Vec::new();
     if let Some(path) = &args.plot {
-        let curve = match &args.plot_sample {
-            Some(name) => doc
-                .curves
-                .iter()
-                .flatten()
-                .find(|c| &c.sample == name)
-                .ok_or_else(|| {
-                    Failure::new(format!(
-                        "--plot-sample '{name}': no fitted sample of that name in {shown}"
-                    ))
-                })?,
-            None => doc.curves.iter().flatten().next().ok_or_else(|| {
-                // Say why, with the first sample's own error.
-                let why = doc
-                    .failed
-                    .first()
-                    .map(|f| format!(" ({}: {})", f.sample, f.error))
-                    .unwrap_or_default();
-                Failure::new(format!("--plot: no sample of {shown} was fitted{why}"))
-            })?,
-        };
-        let svg = crate::report::sample_figure(curve);
-        if plot_kind(path) == Some(PlotKind::Png) {
-            let png = crate::report::png::render(&svg, PNG_SCALE).map_err(Failure::new)?;
-            if !png.has_font {
-                eprintln!(
-                    "unblend: warning: no system font found: the PNG's text labels are missing (install a sans-serif font, or write the figure as .svg)"
-                );
-            }
-            crate::atomic::write_with(path, false, |w| w.write_all(&png.bytes))?;
-        } else {
-            crate::atomic::write_with(path, false, |w| {
-                w.write_all(b"<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n")?;
-                w.write_all(svg.as_bytes())?;
-                w.write_all(b"\n")
-            })?;
-        }
-        eprintln!(
-            "unblend: wrote the fit of {} to {}",
-            curve.sample,
-            path.display()
-        );
+        let (file, line) = stage_plot(args, &doc, path, shown)?;
+        staged.push(file);
+        said.push(line);
     }
     if let Some(path) = &args.report {
         let html = crate::report::render_html(&doc, &format!("unblend fit: {shown}"));
-        crate::atomic::write_with(path, false, |w| w.write_all(html.as_bytes()))?;
-        eprintln!("unblend: wrote the report to {}", path.display());
+        staged.push(stage_with(path, |w| w.write_all(html.as_bytes()))?);
+        said.push(format!("unblend: wrote the report to {}", path.display()));
     }
-    if format == Format::Json && (args.with_curves || args.report.is_some()) {
-        for w in &report.warnings {
-            eprintln!("unblend: warning: {w}");
+    let json_doc = format == Format::Json && (args.with_curves || args.report.is_some());
+    let write = |w: &mut (dyn Write + Send)| {
+        if json_doc {
+            output::write_json(&doc, w)
+        } else {
+            output::write(&report, format, w)
         }
-        match args.out.as_deref() {
-            Some(path) => {
-                crate::atomic::write_with(path, false, |w| output::write_json(&doc, w))?;
-                eprintln!(
-                    "{}",
-                    summary(report.outcomes.len(), report.n_failed(), path)
-                );
-            }
-            None => {
-                let mut lock = std::io::BufWriter::new(std::io::stdout().lock());
-                let r = output::write_json(&doc, &mut lock).and_then(|_| lock.flush());
-                if let Err(e) = r
-                    && e.kind() != std::io::ErrorKind::BrokenPipe
-                {
-                    return Err(Failure::new(format!("standard output: {e}")));
-                }
-            }
-        }
-    } else {
-        emit(&report, format, args.out.as_deref())?;
+    };
+    if let Some(path) = args.out.as_deref() {
+        staged.push(stage_with(path, write)?);
+        said.push(summary(report.outcomes.len(), report.n_failed(), path));
+    }
+    for w in &report.warnings {
+        eprintln!("unblend: warning: {w}");
+    }
+    crate::atomic::commit_all(staged)?;
+    for line in said {
+        eprintln!("{line}");
+    }
+    if args.out.is_none() {
+        super::stdout::write_with(write)?;
     }
     Ok(exit_code(&report))
+}
+
+/// The `--plot` figure, staged (not yet in place), and the line that says
+/// so once it is.
+fn stage_plot(
+    args: &Args,
+    doc: &output::JsonReport,
+    path: &std::path::Path,
+    shown: &str,
+) -> Result<(AtomicFile, String), Failure> {
+    let curve = match &args.plot_sample {
+        Some(name) => doc
+            .curves
+            .iter()
+            .flatten()
+            .find(|c| &c.sample == name)
+            .ok_or_else(|| {
+                Failure::new(format!(
+                    "--plot-sample '{name}': no fitted sample of that name in {shown}"
+                ))
+            })?,
+        None => doc.curves.iter().flatten().next().ok_or_else(|| {
+            // Say why, with the first sample's own error.
+            let why = doc
+                .failed
+                .first()
+                .map(|f| format!(" ({}: {})", f.sample, f.error))
+                .unwrap_or_default();
+            Failure::new(format!("--plot: no sample of {shown} was fitted{why}"))
+        })?,
+    };
+    let svg = crate::report::sample_figure(curve);
+    let file = if plot_kind(path) == Some(PlotKind::Png) {
+        let png = crate::report::png::render(&svg, PNG_SCALE).map_err(Failure::new)?;
+        if !png.has_font {
+            eprintln!(
+                "unblend: warning: no system font found: the PNG's text labels are missing (install a sans-serif font, or write the figure as .svg)"
+            );
+        }
+        stage_with(path, |w| w.write_all(&png.bytes))?
+    } else {
+        stage_with(path, |w| {
+            w.write_all(b"<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n")?;
+            w.write_all(svg.as_bytes())?;
+            w.write_all(b"\n")
+        })?
+    };
+    let line = format!(
+        "unblend: wrote the fit of {} to {}",
+        curve.sample,
+        path.display()
+    );
+    Ok((file, line))
 }
 
 /// The run's inputs and options for the report's summary.
@@ -480,14 +511,7 @@ fn stream_csv<R: Read + Send>(
     };
     let result = match out {
         Some(path) => crate::atomic::write_with(path, false, &mut body).map_err(Failure::from),
-        None => {
-            let mut lock = std::io::BufWriter::with_capacity(1 << 20, std::io::stdout());
-            match body(&mut lock).and_then(|_| lock.flush()) {
-                Ok(()) => Ok(()),
-                Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => Ok(()),
-                Err(e) => Err(Failure::new(format!("standard output: {e}"))),
-            }
-        }
+        None => super::stdout::write_with(|w| body(w)),
     };
     if let Some(e) = engine_error {
         return Err(Failure::new(format!("{shown}: {e}")));
@@ -525,18 +549,14 @@ fn code_for(total: usize, failed: usize) -> u8 {
     }
 }
 
-/// Read a file, or standard input for `-`.
+/// Read a file, or standard input for `-`, with every line capped (see
+/// [`crate::limits`]).
 pub fn read_input(path: &std::path::Path) -> Result<Vec<u8>, Failure> {
-    let mut bytes = Vec::new();
-    if path.as_os_str() == "-" {
-        std::io::stdin()
-            .read_to_end(&mut bytes)
-            .map_err(|e| Failure::new(format!("standard input: {e}")))?;
-    } else {
-        bytes =
-            std::fs::read(path).map_err(|e| Failure::new(format!("{}: {e}", path.display())))?;
-    }
-    Ok(bytes)
+    crate::limits::read_text(path).map_err(|e| match e {
+        crate::Error::Io { .. } => Failure::from(e),
+        e if path.as_os_str() == "-" => Failure::new(format!("standard input: {e}")),
+        e => Failure::new(format!("{}: {e}", path.display())),
+    })
 }
 
 /// Print warnings to stderr and write the report to a file or stdout.
@@ -556,16 +576,7 @@ pub fn emit(
                 summary(report.outcomes.len(), report.n_failed(), path)
             );
         }
-        None => {
-            let stdout = std::io::stdout();
-            let mut lock = std::io::BufWriter::new(stdout.lock());
-            let r = output::write(report, format, &mut lock).and_then(|_| lock.flush());
-            if let Err(e) = r
-                && e.kind() != std::io::ErrorKind::BrokenPipe
-            {
-                return Err(Failure::new(format!("standard output: {e}")));
-            }
-        }
+        None => super::stdout::write_with(|w| output::write(report, format, w))?,
     }
     Ok(())
 }

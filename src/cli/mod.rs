@@ -86,6 +86,15 @@ impl Failure {
             code: exit::FAILED,
         }
     }
+
+    /// A command-line usage error (options that do not go together, a
+    /// value clap cannot check alone), with exit code [`exit::USAGE`].
+    pub fn usage(message: impl Into<String>) -> Self {
+        Failure {
+            message: message.into(),
+            code: exit::USAGE,
+        }
+    }
 }
 
 impl From<crate::Error> for Failure {
@@ -154,10 +163,20 @@ pub fn parse_range_nm(s: &str) -> Result<(f64, f64), String> {
         .trim()
         .parse()
         .map_err(|_| format!("'{hi}': expected a wavelength in nm"))?;
-    if !(lo.is_finite() && hi.is_finite() && lo > 0.0 && hi > lo) {
+    for v in [lo, hi] {
+        crate::ranges::WAVELENGTH_NM
+            .check(v)
+            .map_err(|e| format!("'{s}': {e}"))?;
+    }
+    if hi <= lo {
         return Err(format!("'{s}': expected 0 < LO < HI in nm"));
     }
     Ok((lo, hi))
+}
+
+/// Parse a pathlength in cm inside its plausible range (1 µm to 10 m).
+pub fn parse_pathlength_cm(s: &str) -> Result<f64, String> {
+    crate::ranges::PATHLENGTH_CM.parse(s)
 }
 
 /// Parse a positive finite number (pathlength, molar mass).

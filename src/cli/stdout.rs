@@ -12,14 +12,35 @@ use std::io::{self, BufWriter, Write};
 pub fn outcome(result: io::Result<()>) -> Result<(), Failure> {
     match result {
         Ok(()) => Ok(()),
-        Err(e) if e.kind() == io::ErrorKind::BrokenPipe => Ok(()),
+        Err(e) if is_closed_pipe(&e) => Ok(()),
         Err(e) => Err(Failure::new(format!("standard output: {e}"))),
     }
 }
 
-/// Write to standard output through `fill` (buffered), then flush.
-pub fn write_with(fill: impl FnOnce(&mut dyn Write) -> io::Result<()>) -> Result<(), Failure> {
-    let mut w = BufWriter::with_capacity(1 << 16, io::stdout().lock());
+/// Whether an error is, or wraps, a closed pipe (an encoder such as
+/// serde_json may wrap the writer's error in its own).
+pub fn is_closed_pipe(e: &io::Error) -> bool {
+    if e.kind() == io::ErrorKind::BrokenPipe {
+        return true;
+    }
+    let Some(inner) = e.get_ref() else {
+        return false;
+    };
+    if let Some(io) = inner.downcast_ref::<io::Error>() {
+        return is_closed_pipe(io);
+    }
+    inner
+        .downcast_ref::<serde_json::Error>()
+        .and_then(serde_json::Error::io_error_kind)
+        == Some(io::ErrorKind::BrokenPipe)
+}
+
+/// Write to standard output through `fill` (buffered, 1 MiB), then flush.
+/// The writer is `Send`, so `fill` may hand it to a writer thread.
+pub fn write_with(
+    fill: impl FnOnce(&mut (dyn Write + Send)) -> io::Result<()>,
+) -> Result<(), Failure> {
+    let mut w = BufWriter::with_capacity(1 << 20, io::stdout());
     let result = fill(&mut w).and_then(|()| w.flush());
     // A closed pipe stays closed: drop the unwritten rest quietly.
     let (_, _) = w.into_parts();
@@ -39,6 +60,9 @@ mod tests {
     fn a_closed_pipe_is_quiet_and_a_full_device_fails() {
         let closed = io::Error::from(io::ErrorKind::BrokenPipe);
         assert!(outcome(Err(closed)).is_ok());
+        // The same wrapped the way `output::write_json` wraps serde's error.
+        let wrapped = io::Error::other(serde_json::Error::io(io::ErrorKind::BrokenPipe.into()));
+        assert!(outcome(Err(wrapped)).is_ok());
         // ENOSPC is what a write to /dev/full gives (Linux man page full(4)).
         let full = io::Error::from_raw_os_error(28);
         let f = outcome(Err(full)).unwrap_err();
