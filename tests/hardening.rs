@@ -497,3 +497,73 @@ fn formula_like_names_are_neutralised_in_csv_and_kept_in_json() {
         "{text}"
     );
 }
+
+#[test]
+fn a_long_files_rows_may_come_in_any_order() {
+    // The README: "a sample's rows may be anywhere in the file and in any
+    // wavelength order". Each sample's rows are permuted (i·7919 mod n, a
+    // fixed shuffle); the results must equal those of the ordered file.
+    let dir = scratch("long-order");
+    let text = std::fs::read_to_string(demo("lot-check-long.csv")).expect("demo");
+    let mut lines = text.lines();
+    let header = lines.next().expect("header");
+    let mut groups: Vec<(String, Vec<&str>)> = Vec::new();
+    for line in lines.filter(|l| !l.is_empty()) {
+        let sample = line.split(',').next().expect("sample").to_string();
+        match groups.last_mut() {
+            Some((s, rows)) if *s == sample => rows.push(line),
+            _ => groups.push((sample, vec![line])),
+        }
+    }
+    let mut shuffled = format!("{header}\n");
+    for (_, rows) in &groups {
+        let n = rows.len();
+        let mut order: Vec<usize> = (0..n).collect();
+        order.sort_by_key(|&i| (i * 7919) % n);
+        for i in order {
+            shuffled.push_str(rows[i]);
+            shuffled.push('\n');
+        }
+    }
+    std::fs::write(dir.join("shuffled.csv"), shuffled).expect("shuffled file");
+    let lib = library();
+    let ordered = demo("lot-check-long.csv");
+    let ordered = ordered.to_str().expect("utf-8 path");
+    let a = run(
+        &dir,
+        &["fit", ordered, "--library", &lib, "--format", "csv"],
+    );
+    let b = run(
+        &dir,
+        &["fit", "shuffled.csv", "--library", &lib, "--format", "csv"],
+    );
+    assert_eq!(b.status.code(), a.status.code(), "{}", stderr(&b));
+    assert!(!a.stdout.is_empty());
+    assert_eq!(a.stdout, b.stdout);
+}
+
+#[test]
+fn report_refuses_a_results_file_whose_curves_disagree() {
+    // The regression kept for the `report` fuzz target: a fit results file
+    // whose first residual is two points short (report panicked, exit 101).
+    let dir = scratch("report-check");
+    let bad = Path::new(ROOT).join("tests/fuzz/regressions/report/unequal-curve-lengths.json");
+    std::fs::copy(&bad, dir.join("bad.json")).expect("copy");
+    let o = run(&dir, &["report", "bad.json", "--out", "r.html"]);
+    let e = stderr(&o);
+    assert_eq!(o.status.code(), Some(1), "{e}");
+    assert!(
+        e.contains("curves entry 1 (sample '") && e.contains("residual_au has"),
+        "{e}"
+    );
+    assert!(!dir.join("r.html").exists());
+    let good = Path::new(ROOT).join("tests/fuzz/corpus/report/fit-with-curves.json");
+    std::fs::copy(&good, dir.join("good.json")).expect("copy");
+    let o = run(&dir, &["report", "good.json", "--out", "good.json"]);
+    assert_refused(
+        &o,
+        &dir.join("good.json"),
+        &std::fs::read(&good).expect("seed"),
+        ["--out", "results"],
+    );
+}

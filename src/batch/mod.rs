@@ -457,6 +457,36 @@ fn unmapped_entry(well: Well) -> MapEntry {
     }
 }
 
+/// Mapped wells (any role but `empty`) the plate has no reading for, in
+/// well order, as error rows: the run is then partial (exit 3) and
+/// `wells.csv` says why, instead of the wells quietly going missing (a row
+/// lost to a wrong delimiter, a truncated file).
+fn unread_mapped_wells(spectra: &PlateSpectra, m: &HashMap<Well, MapEntry>) -> Vec<WellResult> {
+    let read: std::collections::HashSet<Well> = spectra
+        .wells
+        .iter()
+        .copied()
+        .chain(spectra.failures.iter().filter_map(|f| f.well))
+        .collect();
+    let mut missing: Vec<(&Well, &MapEntry)> = m
+        .iter()
+        .filter(|(w, e)| e.role != Role::Empty && !read.contains(w))
+        .collect();
+    missing.sort_by_key(|(w, _)| **w);
+    missing
+        .into_iter()
+        .map(|(w, e)| {
+            let mut r = WellResult::new(&w.to_string(), e);
+            r.error = Some(format!(
+                "mapped as {} (plate map line {}) but the plate has no reading for this well: a lost or misread row of the input?",
+                e.role.name(),
+                e.line
+            ));
+            r
+        })
+        .collect()
+}
+
 /// Process one plate. `entries` is the plate's map (`None`: no map for this
 /// plate, every well is a sample named after its well).
 pub fn process_plate(
@@ -502,31 +532,18 @@ pub fn process_plate(
             fmt_wells(&unmapped)
         ));
     }
-    if let Some(m) = entries {
-        let read: std::collections::HashSet<Well> = spectra
-            .wells
-            .iter()
-            .copied()
-            .chain(spectra.failures.iter().filter_map(|f| f.well))
-            .collect();
-        let mut missing: Vec<Well> = m
-            .iter()
-            .filter(|(w, e)| e.role != Role::Empty && !read.contains(w))
-            .map(|(w, _)| *w)
-            .collect();
-        missing.sort();
-        if !missing.is_empty() {
-            let names: Vec<String> = missing.iter().map(Well::to_string).collect();
-            result.warnings.push(format!(
-                "plate '{}': {} mapped well(s) have no reading: {}",
-                spectra.name,
-                names.len(),
-                fmt_wells(&names)
-            ));
-        }
+    // Wells that could not be read, unless they are not analysed anyway;
+    // first the mapped wells the plate has no reading for at all.
+    let mut failed_reads = entries.map_or_else(Vec::new, |m| unread_mapped_wells(&spectra, m));
+    if !failed_reads.is_empty() {
+        let names: Vec<String> = failed_reads.iter().map(|r| r.well.clone()).collect();
+        result.warnings.push(format!(
+            "plate '{}': {} mapped well(s) have no reading: {}",
+            spectra.name,
+            names.len(),
+            fmt_wells(&names)
+        ));
     }
-    // Wells that could not be read, unless they are not analysed anyway.
-    let mut failed_reads: Vec<WellResult> = Vec::new();
     for f in &spectra.failures {
         let entry = match f.well {
             Some(w) => match entry_of(w) {

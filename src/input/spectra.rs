@@ -1030,12 +1030,11 @@ fn read_long(
             });
             continue;
         }
-        let (w, a): (Vec<f64>, Vec<f64>) = p.points.into_iter().unzip();
-        let (w, reversed) = spectrum::ascending(w);
-        let mut a = a;
-        if reversed {
-            a.reverse();
-        }
+        // A sample's rows may come in any order (README): sort them by
+        // wavelength; a wavelength given twice stays an error (Grid::new).
+        let mut points = p.points;
+        points.sort_by(|x, y| x.0.total_cmp(&y.0));
+        let (w, a): (Vec<f64>, Vec<f64>) = points.into_iter().unzip();
         let grid = match Grid::new(w) {
             Ok(g) => g,
             Err(e) => {
