@@ -9,8 +9,8 @@
 //! [`commit_all`]): all old or all new.
 //!
 //! Interrupts (Ctrl-C, SIGINT, SIGTERM; see [`on_interrupt`]) before the
-//! commit point remove the temporaries and exit, leaving every output as it
-//! was. From the commit point on (the first rename over an output) the run
+//! commit point remove the temporaries and the program exits, leaving every
+//! output as it was. From the commit point on (the first rename over an output) the run
 //! finishes and says what it wrote; a second interrupt after the renames
 //! ends it at once. Temporaries of a run that was killed outright are
 //! removed by the next run on the same output.
@@ -38,34 +38,45 @@ static PHASE: AtomicU8 = AtomicU8::new(IDLE);
 /// An interrupt arrived after the commit point and was deferred.
 static DEFERRED: AtomicBool = AtomicBool::new(false);
 
-/// What an interrupt (Ctrl-C, SIGINT or SIGTERM) does, called from the
-/// signal-handling thread. Before the commit point: remove every temporary
-/// and exit with `code`; the outputs keep their previous content. Inside or
-/// after it: say so and let the run finish, unless an interrupt was already
-/// deferred and the renames are over, in which case exit at once.
-pub fn on_interrupt(code: i32) {
-    // Held until the process ends when exiting, so no writer can record a
-    // new temporary or start renaming meanwhile.
+/// What the program should do about an interrupt.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Interrupt {
+    /// Exit now (the temporaries are already removed), saying this.
+    Exit(&'static str),
+    /// Let the run finish, saying this: outputs are being or have been
+    /// replaced.
+    Finish(&'static str),
+}
+
+/// Decide what an interrupt (Ctrl-C, SIGINT or SIGTERM) does, from the
+/// signal-handling thread; the caller (the program, never the library)
+/// prints the message and exits on [`Interrupt::Exit`]. Before the commit
+/// point: every temporary is removed and the outputs keep their previous
+/// content. Inside or after it: the run finishes, unless an interrupt was
+/// already deferred and the renames are over.
+pub fn on_interrupt() -> Interrupt {
     let open = temps::lock_open();
     let phase = PHASE.load(Ordering::SeqCst);
     let again = DEFERRED.swap(true, Ordering::SeqCst);
     let message = match phase {
         IDLE => "interrupted: outputs left as they were",
         COMMITTING => {
-            eprintln!("unblend: interrupt received while outputs are being replaced: finishing");
-            return;
+            return Interrupt::Finish(
+                "interrupt received while outputs are being replaced: finishing",
+            );
         }
         _ if !again => {
-            eprintln!("unblend: interrupt received after outputs were replaced: finishing");
-            return;
+            return Interrupt::Finish("interrupt received after outputs were replaced: finishing");
         }
         _ => "interrupted: outputs already replaced are kept, later ones were not written",
     };
-    eprintln!("unblend: {message}");
     for p in open.iter() {
         let _ = fs::remove_file(p);
     }
-    std::process::exit(code)
+    // Keep the list locked until the process exits, so no writer can record
+    // a new temporary or start renaming meanwhile.
+    std::mem::forget(open);
+    Interrupt::Exit(message)
 }
 
 /// The commit point of a run: while one lives, interrupts are deferred.

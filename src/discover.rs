@@ -159,6 +159,11 @@ pub struct Discovery {
 }
 
 /// Recover the common unknown absorber of a batch's flagged samples.
+///
+/// The steps: fit the batch and take its flagged samples ([`flagged_rows`]),
+/// the leading signal of their residuals ([`leading_signal`]), alternating
+/// non-negative least squares ([`alternate`]), then the amounts per sample
+/// ([`amounts`]) and how well the shape is pinned down ([`ambiguities`]).
 pub fn discover(
     file: &SpectraFile,
     refs: &ReferenceSet,
@@ -172,18 +177,90 @@ pub fn discover(
         ));
     };
     if !(d.peak_epsilon_l_per_mol_cm.is_finite() && d.peak_epsilon_l_per_mol_cm > 0.0) {
-        return Err(Error::Invalid(format!(
-            "peak ε {}: expected a positive number of L/(mol·cm)",
-            d.peak_epsilon_l_per_mol_cm
-        )));
+        return Err(Error::OutOfRange {
+            option: "peak ε",
+            value: d.peak_epsilon_l_per_mol_cm,
+            unit: "",
+            expected: "a positive number of L/(mol·cm)",
+        });
     }
     let checks = diagnostics::Options {
         candidates: None,
         ..checks.clone()
     };
     let report = fit::fit_file_with(file, refs, options, &checks)?;
+    let flagged = flagged_rows(file, &report, res_opts.alarm_rate)?;
+    let block = &file.blocks[flagged.block];
+    let model = Model::with_checks(&block.grid, refs, options, &checks)?;
+    let design = &model.design;
+    let spectra: Vec<&[f64]> = flagged
+        .rows
+        .iter()
+        .map(|&i| &block.row(i)[design.start..design.end])
+        .collect();
+    let projector = Projector::new(&model);
+    let mut warnings = Vec::new();
+    let signal = leading_signal(&model, &projector, &spectra, &mut warnings)?;
+    let names = component_names(refs, design.n_columns());
+    let alternated = alternate(design, &names, &spectra, signal.shape, d)?;
+    let l_times_peak = options.pathlength_cm * d.peak_epsilon_l_per_mol_cm;
+    let amount_inputs = AmountInputs {
+        design,
+        alternated: &alternated,
+        rows: &flagged.rows,
+        positions: &block.positions,
+        spectra: &spectra,
+        res_opts: &res_opts,
+        l_times_peak,
+    };
+    let (samples, rss_reduction_fraction) = amounts(&amount_inputs, &report.outcomes);
+    let shape = &alternated.shape;
+    let determined_fraction = norm(&projector.outside(shape)) / norm(shape);
+    let ambiguity = ambiguities(design, &alternated, &names);
+    ambiguity_warnings(determined_fraction, &ambiguity, &mut warnings);
+    if !alternated.converged {
+        warnings.push(format!(
+            "the alternating least squares did not settle within {} iterations: the spectrum is the last iterate",
+            d.max_iterations
+        ));
+    }
+    let n = design.n_points();
+    let peak_i = (0..n).fold(0, |b, i| if shape[i] > shape[b] { i } else { b });
+    let peak_eps = d.peak_epsilon_l_per_mol_cm;
+    Ok(Discovery {
+        wavelengths_nm: design.wavelengths_nm.clone(),
+        epsilon_l_per_mol_cm: shape.iter().map(|v| v * peak_eps).collect(),
+        peak_epsilon_l_per_mol_cm: peak_eps,
+        peak_nm: design.wavelengths_nm[peak_i],
+        singular_values_au: signal.singular.iter().take(5).copied().collect(),
+        noise_edge_au: signal.edge,
+        noise_au: signal.noise,
+        n_signals: signal.n_signals,
+        determined_fraction,
+        ambiguity,
+        iterations: alternated.iterations,
+        converged: alternated.converged,
+        rss_reduction_fraction,
+        samples,
+        left_out: flagged.left_out,
+        n_failed: report.n_failed(),
+        warnings,
+    })
+}
+
+/// The flagged samples used: all on one wavelength grid.
+struct Flagged {
+    /// The block they are in (the one with the most flagged samples).
+    block: usize,
+    /// Their rows in that block.
+    rows: Vec<usize>,
+    /// Flagged samples left out, with the reason.
+    left_out: Vec<[String; 2]>,
+}
+
+/// Step 1: the flagged, unmasked samples of the block that has the most.
+fn flagged_rows(file: &SpectraFile, report: &fit::FitReport, alarm_rate: f64) -> Result<Flagged> {
     let mut left_out: Vec<[String; 2]> = Vec::new();
-    // Flagged, unmasked samples per block, as (block, row) pairs.
     let mut per_block: Vec<Vec<usize>> = vec![Vec::new(); file.blocks.len()];
     for (b, block) in file.blocks.iter().enumerate() {
         for (i, pos) in block.positions.iter().enumerate() {
@@ -201,15 +278,14 @@ pub fn discover(
             }
         }
     }
-    let Some((bi, rows)) = per_block
+    let Some((bi, _)) = per_block
         .iter()
         .enumerate()
         .max_by_key(|(i, r)| (r.len(), std::cmp::Reverse(*i)))
         .filter(|(_, r)| !r.is_empty())
     else {
         return Err(Error::Invalid(format!(
-            "no sample carries unexplained absorbance at alarm rate {}{}: nothing to recover",
-            res_opts.alarm_rate,
+            "no sample carries unexplained absorbance at alarm rate {alarm_rate}{}: nothing to recover",
             if left_out.is_empty() {
                 String::new()
             } else {
@@ -227,24 +303,60 @@ pub fn discover(
             }
         }
     }
-    let block = &file.blocks[bi];
-    let model = Model::with_checks(&block.grid, refs, options, &checks)?;
-    let design = &model.design;
-    let (n, p, k) = (design.n_points(), design.n_columns(), design.n_components);
-    let spectra: Vec<&[f64]> = rows
-        .iter()
-        .map(|&i| &block.row(i)[design.start..design.end])
-        .collect();
-    let m = spectra.len();
+    Ok(Flagged {
+        block: bi,
+        rows: std::mem::take(&mut per_block[bi]),
+        left_out,
+    })
+}
 
-    // 2. Least-squares residuals and their singular values.
-    let x = DMatrix::from_column_slice(n, p, &model.prepared.columns);
-    let q = x.qr().q();
-    let project_out = |v: &[f64]| -> Vec<f64> {
+/// Removes from a spectrum its least-squares fit by the design's columns.
+struct Projector {
+    q: DMatrix<f64>,
+}
+
+impl Projector {
+    fn new(model: &Model) -> Self {
+        let (n, p) = (model.design.n_points(), model.design.n_columns());
+        let x = DMatrix::from_column_slice(n, p, &model.prepared.columns);
+        Projector { q: x.qr().q() }
+    }
+
+    /// The part of `v` outside the span of the columns.
+    fn outside(&self, v: &[f64]) -> Vec<f64> {
         let a = nalgebra::DVector::from_column_slice(v);
-        (&a - &q * (q.transpose() * &a)).as_slice().to_vec()
-    };
-    let resid: Vec<Vec<f64>> = spectra.iter().map(|a| project_out(a)).collect();
+        (&a - &self.q * (self.q.transpose() * &a))
+            .as_slice()
+            .to_vec()
+    }
+}
+
+/// The leading signal of the flagged residuals.
+struct Signal {
+    /// Largest singular values, AU.
+    singular: Vec<f64>,
+    /// The noise edge σ·(√m + √(n − p)), AU.
+    edge: f64,
+    /// Pooled noise σ, AU.
+    noise: f64,
+    /// Singular values above [`SIGNAL_MARGIN`] × the edge.
+    n_signals: usize,
+    /// The starting shape: the leading right singular vector, positive
+    /// part, unit peak.
+    shape: Vec<f64>,
+}
+
+/// Step 2: least-squares residuals and their singular values; no signal
+/// above the noise is an error, more than one a warning.
+fn leading_signal(
+    model: &Model,
+    projector: &Projector,
+    spectra: &[&[f64]],
+    warnings: &mut Vec<String>,
+) -> Result<Signal> {
+    let design = &model.design;
+    let (n, p, m) = (design.n_points(), design.n_columns(), spectra.len());
+    let resid: Vec<Vec<f64>> = spectra.iter().map(|a| projector.outside(a)).collect();
     let noise_sq: f64 = resid
         .iter()
         .map(|r| {
@@ -268,7 +380,6 @@ pub fn discover(
             edge
         )));
     }
-    let mut warnings = Vec::new();
     if n_signals > 1 {
         warnings.push(format!(
             "the flagged residuals hold {n_signals} independent signals: more than one unknown absorber, or an unknown plus a reference that does not match; recovering the strongest"
@@ -286,13 +397,52 @@ pub fn discover(
                 .into(),
         ));
     }
+    Ok(Signal {
+        singular,
+        edge,
+        noise,
+        n_signals,
+        shape,
+    })
+}
 
-    // 3. Non-negative alternating least squares.
+/// The names of the augmented design's columns: references, "recovered",
+/// then the baseline terms fitted.
+fn component_names(refs: &ReferenceSet, p: usize) -> Vec<String> {
     let mut names: Vec<String> = refs.names().iter().map(|s| s.to_string()).collect();
     names.push("recovered".into());
     names.push("baseline offset".into());
     names.push("baseline slope".into());
     names.truncate(p + 1);
+    names
+}
+
+/// Where the alternating least squares ended.
+struct Alternated {
+    /// The solver for the last augmented design.
+    prepared: Prepared,
+    /// The last augmented design's columns.
+    columns: Vec<f64>,
+    /// The last solutions, one per flagged sample.
+    sols: Vec<crate::solver::Solution>,
+    /// The shape the last solutions were computed with (unit peak).
+    shape: Vec<f64>,
+    /// Iterations run.
+    iterations: usize,
+    /// Whether the tolerances were met before the limit.
+    converged: bool,
+}
+
+/// Step 3: non-negative alternating least squares, concentrations given the
+/// shape, then the shape given the concentrations.
+fn alternate(
+    design: &crate::preprocess::Design,
+    names: &[String],
+    spectra: &[&[f64]],
+    mut shape: Vec<f64>,
+    d: &DiscoverOptions,
+) -> Result<Alternated> {
+    let (n, p, k) = (design.n_points(), design.n_columns(), design.n_components);
     let mut prev_rss = f64::INFINITY;
     let mut iterations = 0;
     let mut converged = false;
@@ -300,39 +450,14 @@ pub fn discover(
     while iterations < d.max_iterations {
         iterations += 1;
         let columns = augmented(&design.columns, n, k, &shape);
-        let prepared = Prepared::new(&columns, n, p + 1, k + 1, &names).map_err(|e| {
+        let prepared = Prepared::new(&columns, n, p + 1, k + 1, names).map_err(|e| {
             Error::Degenerate(format!(
                 "the recovered signal cannot be told apart from the references: {e}"
             ))
         })?;
-        let sols = solve_all(&prepared, &spectra)?;
+        let sols = solve_all(&prepared, spectra)?;
         let rss: f64 = sols.iter().map(|s| s.rss).sum();
-        let mut num = vec![0.0; n];
-        let mut den = 0.0;
-        for (a, sol) in spectra.iter().zip(&sols) {
-            let c = sol.x[k];
-            if c <= 0.0 {
-                continue;
-            }
-            let mut others = sol.x.clone();
-            others[k] = 0.0;
-            let r = diagnostics::residual(a, &columns, &others);
-            for (acc, v) in num.iter_mut().zip(&r) {
-                *acc += c * v;
-            }
-            den += c * c;
-        }
-        if den <= 0.0 {
-            return Err(Error::Invalid(
-                "the recovered component dropped out of every sample: no common unknown absorber could be resolved".into(),
-            ));
-        }
-        let mut next: Vec<f64> = num.iter().map(|v| (v / den).max(0.0)).collect();
-        if !normalise(&mut next) {
-            return Err(Error::Invalid(
-                "the recovered spectrum became zero at every wavelength".into(),
-            ));
-        }
+        let next = next_shape(spectra, &sols, &columns, (n, k))?;
         let change = next
             .iter()
             .zip(&shape)
@@ -351,56 +476,136 @@ pub fn discover(
     let (prepared, columns, sols) =
         last.ok_or_else(|| Error::Invalid("--max-iterations must be at least 1".into()))?;
     let shape = columns[k * n..(k + 1) * n].to_vec();
-    let moments = SerialMoments::new(&prepared.columns, n, p + 1);
+    Ok(Alternated {
+        prepared,
+        columns,
+        sols,
+        shape,
+        iterations,
+        converged,
+    })
+}
+
+/// The shape given the concentrations: the least-squares fit of what the
+/// other columns leave, weighted by the recovered component's amounts,
+/// clipped at zero and scaled to a unit peak.
+fn next_shape(
+    spectra: &[&[f64]],
+    sols: &[crate::solver::Solution],
+    columns: &[f64],
+    (n, k): (usize, usize),
+) -> Result<Vec<f64>> {
+    let mut num = vec![0.0; n];
+    let mut den = 0.0;
+    for (a, sol) in spectra.iter().zip(sols) {
+        let c = sol.x[k];
+        if c <= 0.0 {
+            continue;
+        }
+        let mut others = sol.x.clone();
+        others[k] = 0.0;
+        let r = diagnostics::residual(a, columns, &others);
+        for (acc, v) in num.iter_mut().zip(&r) {
+            *acc += c * v;
+        }
+        den += c * c;
+    }
+    if den <= 0.0 {
+        return Err(Error::Invalid(
+            "the recovered component dropped out of every sample: no common unknown absorber could be resolved".into(),
+        ));
+    }
+    let mut next: Vec<f64> = num.iter().map(|v| (v / den).max(0.0)).collect();
+    if !normalise(&mut next) {
+        return Err(Error::Invalid(
+            "the recovered spectrum became zero at every wavelength".into(),
+        ));
+    }
+    Ok(next)
+}
+
+/// What the amounts step reads.
+struct AmountInputs<'a> {
+    design: &'a crate::preprocess::Design,
+    alternated: &'a Alternated,
+    /// Rows of the flagged samples in their block.
+    rows: &'a [usize],
+    /// The block's positions in the input (index into the outcomes).
+    positions: &'a [usize],
+    spectra: &'a [&'a [f64]],
+    res_opts: &'a diagnostics::ResidualOptions,
+    /// Pathlength × peak ε, cm·L/(mol·cm).
+    l_times_peak: f64,
+}
+
+/// Step 4: the recovered component's amount in each flagged sample, whether
+/// its residual is still flagged, and 1 − ΣRSS_after/ΣRSS_before.
+fn amounts(a: &AmountInputs, outcomes: &[Outcome]) -> (Vec<SampleAmount>, f64) {
+    let design = a.design;
+    let (n, k) = (design.n_points(), design.n_components);
+    let alt = a.alternated;
+    let moments = SerialMoments::new(&alt.prepared.columns, n, design.n_columns() + 1);
     let view = View {
         wavelengths_nm: &design.wavelengths_nm,
-        columns: &columns,
+        columns: &alt.columns,
         n_components: k + 1,
         moments: &moments,
         uniform_step: diagnostics::uniform_step(&design.wavelengths_nm),
     };
-    let l = options.pathlength_cm;
-    let peak_eps = d.peak_epsilon_l_per_mol_cm;
-    let mut samples = Vec::with_capacity(m);
+    let mut samples = Vec::with_capacity(a.spectra.len());
     let (mut before, mut after) = (0.0, 0.0);
-    for ((&i, a), sol) in rows.iter().zip(&spectra).zip(&sols) {
-        let Outcome::Fitted(base) = &report.outcomes[block.positions[i]] else {
+    for ((&i, spectrum), sol) in a.rows.iter().zip(a.spectra).zip(&alt.sols) {
+        let Outcome::Fitted(base) = &outcomes[a.positions[i]] else {
             continue;
         };
-        let flagged_after = diagnostics::examine(view, a, &sol.x, &res_opts).flagged();
+        let flagged_after = diagnostics::examine(view, spectrum, &sol.x, a.res_opts).flagged();
         before += base.residual_rms.powi(2) * n as f64;
         after += sol.rss;
         samples.push(SampleAmount {
             sample: base.sample.clone(),
             peak_absorbance_au: sol.x[k],
-            concentration_mol_per_l: sol.x[k] / (l * peak_eps),
+            concentration_mol_per_l: sol.x[k] / a.l_times_peak,
             residual_rms_before_au: base.residual_rms,
             residual_rms_after_au: (sol.rss / n as f64).sqrt(),
             flagged_after,
         });
     }
-    let outside = project_out(&shape);
-    let norm = |v: &[f64]| v.iter().map(|x| x * x).sum::<f64>().sqrt();
-    let determined_fraction = norm(&outside) / norm(&shape);
-    if determined_fraction < 0.5 {
-        warnings.push(format!(
-            "only {:.0} % of the recovered shape lies outside what the references can mimic: the rest is set by non-negativity, not by the data, and may differ from the true spectrum",
-            100.0 * determined_fraction
-        ));
-    }
-    let norm_s = norm(&shape);
+    let reduction = if before > 0.0 {
+        1.0 - after / before
+    } else {
+        0.0
+    };
+    (samples, reduction)
+}
+
+/// The Euclidean norm.
+fn norm(v: &[f64]) -> f64 {
+    v.iter().map(|x| x * x).sum::<f64>().sqrt()
+}
+
+/// Step 5: per reference, how much of it the shape could gain or lose and
+/// fit the batch as well.
+fn ambiguities(
+    design: &crate::preprocess::Design,
+    alt: &Alternated,
+    names: &[String],
+) -> Vec<Ambiguity> {
+    let (n, k) = (design.n_points(), design.n_components);
+    let shape = &alt.shape;
+    let norm_s = norm(shape);
     let mut ambiguity = Vec::new();
     for j in 0..k {
         let eps = &design.columns[j * n..(j + 1) * n];
         let norm_e = norm(eps);
-        let add = sols
+        let add = alt
+            .sols
             .iter()
             .filter(|s| s.x[k] > 0.0)
             .map(|s| s.x[j] / s.x[k])
             .fold(f64::INFINITY, f64::min);
         let remove = eps
             .iter()
-            .zip(&shape)
+            .zip(shape)
             .filter(|(e, _)| **e > 0.0)
             .map(|(e, v)| v / e)
             .fold(f64::INFINITY, f64::min);
@@ -416,6 +621,22 @@ pub fn discover(
             addable_fraction: frac(add),
             removable_fraction: frac(remove),
         });
+    }
+    ambiguity
+}
+
+/// Warnings when the shape is mostly set by non-negativity, or could trade
+/// much of a reference.
+fn ambiguity_warnings(
+    determined_fraction: f64,
+    ambiguity: &[Ambiguity],
+    warnings: &mut Vec<String>,
+) {
+    if determined_fraction < 0.5 {
+        warnings.push(format!(
+            "only {:.0} % of the recovered shape lies outside what the references can mimic: the rest is set by non-negativity, not by the data, and may differ from the true spectrum",
+            100.0 * determined_fraction
+        ));
     }
     let loose: Vec<String> = ambiguity
         .iter()
@@ -435,36 +656,6 @@ pub fn discover(
             loose.join(", ")
         ));
     }
-    if !converged {
-        warnings.push(format!(
-            "the alternating least squares did not settle within {} iterations: the spectrum is the last iterate",
-            d.max_iterations
-        ));
-    }
-    let peak_i = (0..n).fold(0, |b, i| if shape[i] > shape[b] { i } else { b });
-    Ok(Discovery {
-        wavelengths_nm: design.wavelengths_nm.clone(),
-        epsilon_l_per_mol_cm: shape.iter().map(|v| v * peak_eps).collect(),
-        peak_epsilon_l_per_mol_cm: peak_eps,
-        peak_nm: design.wavelengths_nm[peak_i],
-        singular_values_au: singular.iter().take(5).copied().collect(),
-        noise_edge_au: edge,
-        noise_au: noise,
-        n_signals,
-        determined_fraction,
-        ambiguity,
-        iterations,
-        converged,
-        rss_reduction_fraction: if before > 0.0 {
-            1.0 - after / before
-        } else {
-            0.0
-        },
-        samples,
-        left_out,
-        n_failed: report.n_failed(),
-        warnings,
-    })
 }
 
 /// Design columns with `shape` inserted after the `k` component columns.

@@ -27,6 +27,7 @@ impl std::fmt::Display for Location {
 
 /// Everything that can go wrong inside the engine.
 #[derive(Debug, Error)]
+#[non_exhaustive]
 pub enum Error {
     /// A field could not be read as what was expected.
     #[error("{at} ('{value}'): expected {expected}")]
@@ -84,18 +85,6 @@ pub enum Error {
         /// What writing would do.
         why: &'static str,
     },
-    /// A number outside its plausible range (see `ranges`).
-    #[error("{what} {} {unit}: {why}", crate::ranges::shown(.value))]
-    OutOfRange {
-        /// What the number is ("pathlength").
-        what: &'static str,
-        /// The value given.
-        value: f64,
-        /// Its unit.
-        unit: &'static str,
-        /// The plausible range and why.
-        why: &'static str,
-    },
     /// A line of a text input is longer than any reading has a reason to be.
     #[error("line {line} is longer than {limit_mib} MiB: expected a text file with line breaks")]
     LineTooLong {
@@ -103,6 +92,83 @@ pub enum Error {
         line: usize,
         /// The limit in MiB.
         limit_mib: usize,
+    },
+    /// An option's value is outside what it accepts.
+    #[error("{option} {}{unit}: expected {expected}", crate::ranges::shown(.value))]
+    OutOfRange {
+        /// The option, in words ("pathlength", "linearity tolerance").
+        option: &'static str,
+        /// The value given.
+        value: f64,
+        /// The unit shown after the value, with its leading space ("" if none).
+        unit: &'static str,
+        /// What it accepts.
+        expected: &'static str,
+    },
+    /// Samples in an input have no row in the list that should name them all.
+    #[error("the {list} has no row for {} of the {input}: {expected}", quoted_list(.samples))]
+    UnlistedSamples {
+        /// The list that lacks rows ("concentration file").
+        list: &'static str,
+        /// The input whose samples are not listed ("spectra file").
+        input: &'static str,
+        /// The sample identifiers.
+        samples: Vec<String>,
+        /// What to do about it.
+        expected: &'static str,
+    },
+    /// A list names samples that an input does not have.
+    #[error("the {list} names {} that the {input} does not have: {expected}", join_some(.samples))]
+    MissingSamples {
+        /// The list ("concentration file").
+        list: &'static str,
+        /// The input ("spectra file").
+        input: &'static str,
+        /// The samples, each with where it is named.
+        samples: Vec<String>,
+        /// What to do about it.
+        expected: &'static str,
+    },
+    /// A wavelength is not a positive finite number.
+    #[error("wavelength {position} ({value}) must be a positive finite number of nm")]
+    BadWavelength {
+        /// 1-based position in the list.
+        position: usize,
+        /// The value found.
+        value: f64,
+    },
+    /// A wavelength repeats or breaks the order of the list.
+    #[error(
+        "wavelength {value_nm} nm {} (position {position} after {previous_nm} nm): wavelengths must be strictly ascending or strictly descending",
+        order_word(.repeated)
+    )]
+    WavelengthOrder {
+        /// 1-based position in the list.
+        position: usize,
+        /// The wavelength found there, nm.
+        value_nm: f64,
+        /// The one before it, nm.
+        previous_nm: f64,
+        /// Whether it equals the one before (else it is smaller).
+        repeated: bool,
+    },
+    /// A spectrum has a different number of values than its grid.
+    #[error("sample '{sample}': {values} absorbance values for {wavelengths} wavelengths")]
+    LengthMismatch {
+        /// Sample identifier.
+        sample: String,
+        /// Number of absorbance values.
+        values: usize,
+        /// Number of wavelengths expected.
+        wavelengths: usize,
+    },
+    /// A spectrum holds a value that is not a finite number.
+    #[error("sample '{sample}': absorbance at {wavelength_nm} nm is not a finite number")]
+    NotFinite {
+        /// Sample identifier.
+        sample: String,
+        /// Where, nm.
+        wavelength_nm: f64,
     },
     /// Reading or writing a file failed.
     #[error("{path}: {source}")]
@@ -167,6 +233,32 @@ pub fn shorten(raw: &[u8]) -> String {
     out
 }
 
+/// How a wavelength breaks the order: repeated or out of order.
+fn order_word(repeated: &bool) -> &'static str {
+    if *repeated {
+        "appears twice"
+    } else {
+        "is out of order"
+    }
+}
+
+/// Names in single quotes, the first five, then how many more.
+pub fn quoted_list(names: &[String]) -> String {
+    let quoted: Vec<String> = names.iter().map(|n| format!("'{n}'")).collect();
+    join_some(&quoted)
+}
+
+/// The first five items, comma separated, then how many more.
+pub fn join_some(items: &[String]) -> String {
+    let shown: Vec<&str> = items.iter().take(5).map(String::as_str).collect();
+    let more = items.len().saturating_sub(5);
+    if more > 0 {
+        format!("{} and {more} more", shown.join(", "))
+    } else {
+        shown.join(", ")
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -177,6 +269,57 @@ mod tests {
         assert_eq!(
             e.to_string(),
             "line 14, column 9 ('abc'): expected a number"
+        );
+    }
+
+    #[test]
+    fn unlisted_samples_are_quoted_and_cut_after_five() {
+        let e = Error::UnlistedSamples {
+            list: "concentration file",
+            input: "spectra file",
+            samples: (1..=7).map(|i| format!("s{i}")).collect(),
+            expected: "give every spectrum a row",
+        };
+        assert_eq!(
+            e.to_string(),
+            "the concentration file has no row for 's1', 's2', 's3', 's4', 's5' and 2 more of the spectra file: give every spectrum a row"
+        );
+    }
+
+    #[test]
+    fn out_of_range_names_option_value_unit_and_range() {
+        let e = Error::OutOfRange {
+            option: "pathlength",
+            value: -1.0,
+            unit: " cm",
+            expected: "a positive number of cm",
+        };
+        assert_eq!(
+            e.to_string(),
+            "pathlength -1 cm: expected a positive number of cm"
+        );
+    }
+
+    #[test]
+    fn spectrum_errors_name_position_and_values() {
+        let e = Error::WavelengthOrder {
+            position: 3,
+            value_nm: 400.0,
+            previous_nm: 401.0,
+            repeated: false,
+        };
+        assert_eq!(
+            e.to_string(),
+            "wavelength 400 nm is out of order (position 3 after 401 nm): wavelengths must be strictly ascending or strictly descending"
+        );
+        let e = Error::LengthMismatch {
+            sample: "s1".into(),
+            values: 3,
+            wavelengths: 4,
+        };
+        assert_eq!(
+            e.to_string(),
+            "sample 's1': 3 absorbance values for 4 wavelengths"
         );
     }
 

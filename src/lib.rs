@@ -20,6 +20,7 @@
 pub mod atomic;
 pub mod batch;
 pub mod calibrate;
+#[cfg(feature = "cli")]
 pub mod cli;
 pub mod curves;
 pub mod dates;
@@ -38,5 +39,6 @@ pub mod report;
 pub mod separability;
 pub mod solver;
 pub mod spectrum;
+pub mod stats;
 
 pub use error::{Error, Result};

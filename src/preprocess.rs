@@ -15,7 +15,6 @@
 
 use crate::error::{Error, Result};
 use crate::reference::ReferenceSet;
-use crate::reference::component::interpolate;
 use crate::spectrum::Grid;
 
 /// The baseline terms fitted beside the components; free in sign.
@@ -31,6 +30,15 @@ pub enum Baseline {
 }
 
 impl Baseline {
+    /// Name of the baseline model in outputs.
+    pub fn name(self) -> &'static str {
+        match self {
+            Baseline::None => "none",
+            Baseline::Offset => "offset",
+            Baseline::Linear => "linear",
+        }
+    }
+
     /// Number of baseline columns.
     pub fn n_terms(self) -> usize {
         match self {
@@ -180,9 +188,27 @@ pub fn design(
     })
 }
 
+/// Linear interpolation of `ys` over ascending `xs` at `x`; `None` outside.
+pub fn interpolate(xs: &[f64], ys: &[f64], x: f64) -> Option<f64> {
+    let n = xs.len();
+    if n == 0 || x < xs[0] || x > xs[n - 1] {
+        return None;
+    }
+    let j = xs.partition_point(|&v| v < x);
+    if j < n && (xs[j] - x).abs() <= f64::EPSILON * x.abs() {
+        return Some(ys[j]);
+    }
+    if j == 0 {
+        return Some(ys[0]);
+    }
+    let (x0, x1, y0, y1) = (xs[j - 1], xs[j], ys[j - 1], ys[j]);
+    Some(y0 + (y1 - y0) * (x - x0) / (x1 - x0))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
     use crate::reference::Component;
 
     fn comp(name: &str, lo: f64, hi: f64) -> Component {
@@ -226,5 +252,14 @@ mod tests {
                 .contains("at least as many wavelengths as unknowns"),
             "{e}"
         );
+    }
+
+    #[test]
+    fn interpolation_is_linear_and_bounded() {
+        let xs = [400.0, 500.0];
+        let ys = [0.0, 10.0];
+        assert!((interpolate(&xs, &ys, 450.0).unwrap() - 5.0).abs() < 1e-12);
+        assert!(interpolate(&xs, &ys, 399.0).is_none());
+        assert!((interpolate(&xs, &ys, 500.0).unwrap() - 10.0).abs() < 1e-12);
     }
 }

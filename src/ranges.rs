@@ -25,10 +25,10 @@ pub struct Plausible {
     pub low: f64,
     /// Highest plausible value, in `unit`.
     pub high: f64,
-    /// The unit of the value.
+    /// The unit of the value, with its leading space (" cm").
     pub unit: &'static str,
-    /// The range in words, with the reason.
-    pub why: &'static str,
+    /// The range in words, with the reason (after "expected ").
+    pub expected: &'static str,
 }
 
 /// Pathlength in cm: 1 µm to 10 m.
@@ -36,8 +36,8 @@ pub const PATHLENGTH_CM: Plausible = Plausible {
     what: "pathlength",
     low: 1e-4,
     high: 1000.0,
-    unit: "cm",
-    why: "expected 1 µm to 10 m (0.0001 to 1000 cm)",
+    unit: " cm",
+    expected: "1 µm to 10 m (0.0001 to 1000 cm)",
 };
 
 /// Wavelength in nm: 100 to 25,000 nm.
@@ -45,8 +45,8 @@ pub const WAVELENGTH_NM: Plausible = Plausible {
     what: "wavelength",
     low: 100.0,
     high: 25_000.0,
-    unit: "nm",
-    why: "expected 100 to 25,000 nm, vacuum ultraviolet to mid-infrared",
+    unit: " nm",
+    expected: "100 to 25,000 nm, vacuum ultraviolet to mid-infrared",
 };
 
 /// Absorbance in AU: within ±10 AU.
@@ -54,8 +54,8 @@ pub const ABSORBANCE_AU: Plausible = Plausible {
     what: "absorbance",
     low: -10.0,
     high: 10.0,
-    unit: "AU",
-    why: "expected within ±10 AU; no photometer reads past about 6 AU",
+    unit: " AU",
+    expected: "within ±10 AU; no photometer reads past about 6 AU",
 };
 
 impl Plausible {
@@ -66,10 +66,10 @@ impl Plausible {
             return Ok(value);
         }
         Err(Error::OutOfRange {
-            what: self.what,
+            option: self.what,
             value,
             unit: self.unit,
-            why: self.why,
+            expected: self.expected,
         })
     }
 
@@ -78,7 +78,7 @@ impl Plausible {
         let value: f64 = text
             .trim()
             .parse()
-            .map_err(|_| format!("'{text}': expected a number of {}", self.unit))?;
+            .map_err(|_| format!("'{text}': expected a number of{}", self.unit))?;
         self.check(value).map_err(|e| e.to_string())
     }
 }

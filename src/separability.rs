@@ -390,15 +390,6 @@ pub struct CheckReport {
     pub warnings: Vec<String>,
 }
 
-/// Name of a baseline model in outputs.
-pub fn baseline_name(b: Baseline) -> &'static str {
-    match b {
-        Baseline::None => "none",
-        Baseline::Offset => "offset",
-        Baseline::Linear => "linear",
-    }
-}
-
 /// A regular grid from `lo` to `hi` (inclusive within round-off).
 fn regular_grid(lo: f64, hi: f64, step: f64) -> Result<Grid> {
     let n = ((hi - lo) / step * (1.0 + 1e-12)).floor() as usize + 1;
@@ -407,20 +398,65 @@ fn regular_grid(lo: f64, hi: f64, step: f64) -> Result<Grid> {
 
 /// Check a reference set: conditioning, similarity, predicted errors.
 pub fn check(refs: &ReferenceSet, options: &CheckOptions) -> Result<CheckReport> {
-    for (what, v) in [
+    for (option, v) in [
         ("--step-nm", options.step_nm),
         ("--noise-au", options.noise_au),
         ("--pathlength-cm", options.pathlength_cm),
     ] {
         if !(v.is_finite() && v > 0.0) {
-            return Err(Error::Invalid(format!(
-                "{what} {v}: expected a positive number"
-            )));
+            return Err(Error::OutOfRange {
+                option,
+                value: v,
+                unit: "",
+                expected: "a positive number",
+            });
         }
     }
     if refs.components.is_empty() {
         return Err(Error::Invalid("no reference components selected".into()));
     }
+    let (lo, hi) = shared_range(refs, options.window_nm)?;
+    let grid = regular_grid(lo, hi, options.step_nm)?;
+    let design = preprocess::design(&grid, refs, options.baseline, None)?;
+    let names: Vec<String> = refs.names().iter().map(|s| s.to_string()).collect();
+    let analysis = analyse(&design);
+    let per_component = component_checks(refs, &analysis, options);
+    let pairs = analysis
+        .pairs
+        .iter()
+        .map(|p| PairCheck {
+            a: names[p.a].clone(),
+            b: names[p.b].clone(),
+            cosine: p.cosine,
+            cosine_after_baseline: p.cosine_after_baseline,
+            variance_inflation: p.variance_inflation,
+            collinear: p.collinear(),
+        })
+        .collect();
+    let range = design.range_nm();
+    let mut warnings = collinearity_warnings(&analysis, &names, range, options.baseline);
+    let solver = solver_for(&analysis, range, &mut warnings);
+    quantitation_warnings(&per_component, &mut warnings);
+    let best_range = scan(refs, &grid, options.baseline, design.n_components);
+    Ok(CheckReport {
+        components: names,
+        range_nm: [range.0, range.1],
+        n_points: design.n_points(),
+        step_nm: options.step_nm,
+        baseline: options.baseline.name().into(),
+        noise_au: options.noise_au,
+        pathlength_cm: options.pathlength_cm,
+        condition_number: analysis.condition,
+        solver: solver.into(),
+        per_component,
+        pairs,
+        best_range,
+        warnings,
+    })
+}
+
+/// The wavelength range all references share, cut to the window, nm.
+fn shared_range(refs: &ReferenceSet, window_nm: Option<(f64, f64)>) -> Result<(f64, f64)> {
     let describe: Vec<String> = refs
         .components
         .iter()
@@ -432,7 +468,7 @@ pub fn check(refs: &ReferenceSet, options: &CheckOptions) -> Result<CheckReport>
             describe.join(", ")
         ))
     })?;
-    if let Some((wlo, whi)) = options.window_nm {
+    if let Some((wlo, whi)) = window_nm {
         lo = lo.max(wlo);
         hi = hi.min(whi);
     }
@@ -442,14 +478,17 @@ pub fn check(refs: &ReferenceSet, options: &CheckOptions) -> Result<CheckReport>
             describe.join(", ")
         )));
     }
-    let grid = regular_grid(lo, hi, options.step_nm)?;
-    let design = preprocess::design(&grid, refs, options.baseline, None)?;
-    let names: Vec<String> = refs.names().iter().map(|s| s.to_string()).collect();
-    let analysis = analyse(&design);
-    let k = design.n_components;
+    Ok((lo, hi))
+}
+
+/// Per component: VIF, predicted standard error, LOD and LOQ.
+fn component_checks(
+    refs: &ReferenceSet,
+    analysis: &DesignAnalysis,
+    options: &CheckOptions,
+) -> Vec<ComponentCheck> {
     let l = options.pathlength_cm;
-    let per_component: Vec<ComponentCheck> = refs
-        .components
+    refs.components
         .iter()
         .enumerate()
         .map(|(i, c)| {
@@ -470,21 +509,15 @@ pub fn check(refs: &ReferenceSet, options: &CheckOptions) -> Result<CheckReport>
                 calibrated_max_mol_per_l: c.calibration().map(|k| k.concentration_max_mol_per_l),
             }
         })
-        .collect();
-    let pairs = analysis
-        .pairs
-        .iter()
-        .map(|p| PairCheck {
-            a: names[p.a].clone(),
-            b: names[p.b].clone(),
-            cosine: p.cosine,
-            cosine_after_baseline: p.cosine_after_baseline,
-            variance_inflation: p.variance_inflation,
-            collinear: p.collinear(),
-        })
-        .collect();
-    let range = design.range_nm();
-    let mut warnings = collinearity_warnings(&analysis, &names, range, options.baseline);
+        .collect()
+}
+
+/// The solver `fit` would use for this design; a refused one adds a warning.
+fn solver_for(
+    analysis: &DesignAnalysis,
+    range: (f64, f64),
+    warnings: &mut Vec<String>,
+) -> &'static str {
     let solver = match analysis.condition {
         Some(c) if c < DEGENERATE_CONDITION && c > FALLBACK_CONDITION => "lawson-hanson",
         Some(c) if c < DEGENERATE_CONDITION => "normal-equations",
@@ -500,7 +533,13 @@ pub fn check(refs: &ReferenceSet, options: &CheckOptions) -> Result<CheckReport>
                 .map_or("infinite".into(), |c| format!("{c:.3e}"))
         ));
     }
-    for c in &per_component {
+    solver
+}
+
+/// A warning for each component whose predicted LOQ lies above the top of
+/// its calibrated range.
+fn quantitation_warnings(per_component: &[ComponentCheck], warnings: &mut Vec<String>) {
+    for c in per_component {
         if let (Some(loq), Some(max)) = (c.loq_mol_per_l, c.calibrated_max_mol_per_l)
             && loq > max
         {
@@ -510,22 +549,6 @@ pub fn check(refs: &ReferenceSet, options: &CheckOptions) -> Result<CheckReport>
             ));
         }
     }
-    let best_range = scan(refs, &grid, options.baseline, k);
-    Ok(CheckReport {
-        components: names,
-        range_nm: [range.0, range.1],
-        n_points: design.n_points(),
-        step_nm: options.step_nm,
-        baseline: baseline_name(options.baseline).into(),
-        noise_au: options.noise_au,
-        pathlength_cm: l,
-        condition_number: analysis.condition,
-        solver: solver.into(),
-        per_component,
-        pairs,
-        best_range,
-        warnings,
-    })
 }
 
 /// Scan windows of the grid for the best conditioning: edges at

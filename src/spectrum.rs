@@ -21,22 +21,23 @@ impl Grid {
         if wavelengths_nm.is_empty() {
             return Err(Error::Invalid("no wavelengths given".into()));
         }
-        for &w in &wavelengths_nm {
+        for (i, &w) in wavelengths_nm.iter().enumerate() {
+            if !w.is_finite() || w <= 0.0 {
+                return Err(Error::BadWavelength {
+                    position: i + 1,
+                    value: w,
+                });
+            }
             crate::ranges::WAVELENGTH_NM.check(w)?;
         }
         for (i, pair) in wavelengths_nm.windows(2).enumerate() {
             if pair[1] <= pair[0] {
-                let what = if (pair[1] - pair[0]).abs() < f64::EPSILON * pair[0].abs() {
-                    "appears twice"
-                } else {
-                    "is out of order"
-                };
-                return Err(Error::Invalid(format!(
-                    "wavelength {} nm {what} (position {} after {} nm): wavelengths must be strictly ascending or strictly descending",
-                    pair[1],
-                    i + 2,
-                    pair[0]
-                )));
+                return Err(Error::WavelengthOrder {
+                    position: i + 2,
+                    value_nm: pair[1],
+                    previous_nm: pair[0],
+                    repeated: (pair[1] - pair[0]).abs() < f64::EPSILON * pair[0].abs(),
+                });
             }
         }
         Ok(Grid { wavelengths_nm })
@@ -96,17 +97,17 @@ impl Spectrum {
     pub fn new(id: impl Into<String>, grid: Arc<Grid>, absorbance_au: Vec<f64>) -> Result<Self> {
         let id = id.into();
         if absorbance_au.len() != grid.len() {
-            return Err(Error::Invalid(format!(
-                "sample '{id}': {} absorbance values for {} wavelengths",
-                absorbance_au.len(),
-                grid.len()
-            )));
+            return Err(Error::LengthMismatch {
+                sample: id,
+                values: absorbance_au.len(),
+                wavelengths: grid.len(),
+            });
         }
         if let Some(i) = absorbance_au.iter().position(|a| !a.is_finite()) {
-            return Err(Error::Invalid(format!(
-                "sample '{id}': absorbance at {} nm is not a finite number",
-                grid.wavelengths_nm()[i]
-            )));
+            return Err(Error::NotFinite {
+                sample: id,
+                wavelength_nm: grid.wavelengths_nm()[i],
+            });
         }
         Ok(Spectrum {
             id,

@@ -1,97 +1,17 @@
 //! The real binary on small inputs: the demo, fit in every format, library
 //! commands, and the catalogue of bad inputs (message and exit code).
 
-use serde::Deserialize;
-use std::io::Write;
-use std::path::{Path, PathBuf};
-use std::process::{Command, Stdio};
+mod common;
 
-const BIN: &str = env!("CARGO_BIN_EXE_unblend");
-const ROOT: &str = env!("CARGO_MANIFEST_DIR");
-
-/// The JSON shape `fit --format json` promises (typed, so a schema change
-/// is caught).
-#[derive(Debug, Deserialize)]
-struct Report {
-    samples: Vec<Sample>,
-    failed: Vec<Failed>,
-    warnings: Vec<String>,
-    components: Vec<String>,
-}
-
-#[derive(Debug, Deserialize, PartialEq)]
-struct Sample {
-    sample: String,
-    components: Vec<ComponentOut>,
-    residual_rms: f64,
-    r_squared: Option<f64>,
-    range_nm: [f64; 2],
-    n_points: usize,
-    pathlength_cm: f64,
-    flags: Vec<String>,
-}
-
-#[derive(Debug, Deserialize, PartialEq)]
-struct ComponentOut {
-    name: String,
-    concentration_mol_per_l: f64,
-    std_error_mol_per_l: Option<f64>,
-    concentration_mg_per_l: Option<f64>,
-    mole_fraction: Option<f64>,
-}
-
-#[derive(Debug, Deserialize)]
-struct Failed {
-    sample: String,
-    error: String,
-}
-
-struct Run {
-    code: i32,
-    stdout: String,
-    stderr: String,
-}
-
-fn run_in(dir: &Path, args: &[&str], stdin: Option<&[u8]>, env: &[(&str, &str)]) -> Run {
-    let mut cmd = Command::new(BIN);
-    cmd.args(args)
-        .current_dir(dir)
-        .env_remove("UNBLEND_LIBRARY");
-    for (k, v) in env {
-        cmd.env(k, v);
-    }
-    cmd.stdin(if stdin.is_some() {
-        Stdio::piped()
-    } else {
-        Stdio::null()
-    });
-    cmd.stdout(Stdio::piped()).stderr(Stdio::piped());
-    let mut child = cmd.spawn().expect("binary starts");
-    if let Some(bytes) = stdin {
-        child
-            .stdin
-            .take()
-            .expect("piped")
-            .write_all(bytes)
-            .expect("stdin written");
-    }
-    let out = child.wait_with_output().expect("binary finishes");
-    Run {
-        code: out.status.code().expect("exited normally, not by a signal"),
-        stdout: String::from_utf8_lossy(&out.stdout).into_owned(),
-        stderr: String::from_utf8_lossy(&out.stderr).into_owned(),
-    }
-}
+use common::{FitJson as Report, ROOT, Run, Scratch, run_in};
+use std::path::Path;
 
 fn run(args: &[&str]) -> Run {
     run_in(Path::new(ROOT), args, None, &[])
 }
 
-fn tempdir(tag: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("unblend-cli-{tag}-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).expect("temp dir");
-    d
+fn tempdir(tag: &str) -> Scratch {
+    Scratch::new(&format!("cli-{tag}"))
 }
 
 fn write(dir: &Path, name: &str, content: &[u8]) -> String {

@@ -7,73 +7,23 @@
 //! and the rules of NNLS (Lawson & Hanson 1974, ch. 23), not from outside
 //! measurements.
 
-use serde::Deserialize;
-use std::fmt::Write as _;
-use std::path::{Path, PathBuf};
-use std::process::Command;
+mod common;
 
-const BIN: &str = env!("CARGO_BIN_EXE_unblend");
+use common::{FitJson as Report, Run, SampleJson as Sample, Scratch, run_in};
+use std::fmt::Write as _;
+use std::path::Path;
 
 /// Relative tolerance for recovering a noise-free mixture after the CSV
 /// round trip of ε and absorbance (values printed with ~6 significant
 /// digits in the inputs below).
 const REL_TOL: f64 = 1e-4;
 
-#[derive(Debug, Deserialize)]
-struct Report {
-    samples: Vec<Sample>,
-    failed: Vec<Failed>,
-}
-
-#[derive(Debug, Deserialize)]
-struct Sample {
-    sample: String,
-    components: Vec<ComponentOut>,
-    flags: Vec<String>,
-}
-
-#[derive(Debug, Deserialize)]
-struct ComponentOut {
-    name: String,
-    concentration_mol_per_l: f64,
-}
-
-#[derive(Debug, Deserialize)]
-struct Failed {
-    error: String,
-}
-
-struct Run {
-    code: i32,
-    stdout: String,
-    stderr: String,
-}
-
-fn tempdir(tag: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("unblend-edge-{tag}-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).expect("temp dir");
-    d
+fn tempdir(tag: &str) -> Scratch {
+    Scratch::new(&format!("edge-{tag}"))
 }
 
 fn run(dir: &Path, args: &[&str]) -> Run {
-    let out = Command::new(BIN)
-        .args(args)
-        .current_dir(dir)
-        .env_remove("UNBLEND_LIBRARY")
-        .output()
-        .expect("binary runs");
-    let r = Run {
-        code: out.status.code().expect("exited normally, not by a signal"),
-        stdout: String::from_utf8_lossy(&out.stdout).into_owned(),
-        stderr: String::from_utf8_lossy(&out.stderr).into_owned(),
-    };
-    assert!(
-        !r.stderr.contains("panicked"),
-        "{args:?} panicked:\n{}",
-        r.stderr
-    );
-    r
+    run_in(dir, args, None, &[])
 }
 
 fn band(x: f64, centre_nm: f64, width_nm: f64) -> f64 {

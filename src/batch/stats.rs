@@ -14,10 +14,9 @@
 //! (t the upper α/(2n) quantile of Student's t with n − 2 degrees of
 //! freedom). The test needs n ≥ 3 and assumes the rest are normal.
 //!
-//! Student's t quantile is found by bisection on its distribution function,
-//! written with the regularised incomplete beta function
-//! (continued fraction, Press et al., *Numerical Recipes*, 3rd ed., §6.4) and
-//! the Lanczos approximation of ln Γ (§6.1).
+//! Student's t quantile comes from the shared `crate::stats` module.
+
+use crate::stats::t_quantile;
 
 /// Mean and sample standard deviation (n − 1 in the denominator; `None`
 /// for fewer than two values).
@@ -39,43 +38,6 @@ pub fn mean_sd(values: &[f64]) -> (f64, Option<f64>) {
 pub fn cv_percent(mean: f64, sd: Option<f64>) -> Option<f64> {
     let sd = sd?;
     (mean > 0.0 && mean.is_finite() && sd.is_finite()).then(|| 100.0 * sd / mean)
-}
-
-/// Regularised incomplete beta function I_x(a, b): the shared
-/// implementation in `diagnostics::stats` (checked there against scipy).
-fn incomplete_beta(a: f64, b: f64, x: f64) -> f64 {
-    crate::diagnostics::stats::beta_inc(a, b, x)
-}
-
-/// Distribution function of Student's t with `df` degrees of freedom.
-pub fn t_cdf(t: f64, df: f64) -> f64 {
-    let x = df / (df + t * t);
-    let tail = 0.5 * incomplete_beta(0.5 * df, 0.5, x);
-    if t >= 0.0 { 1.0 - tail } else { tail }
-}
-
-/// The `p` quantile (0 < p < 1) of Student's t with `df` degrees of freedom.
-pub fn t_quantile(p: f64, df: f64) -> f64 {
-    if p < 0.5 {
-        return -t_quantile(1.0 - p, df);
-    }
-    let (mut lo, mut hi) = (0.0f64, 1.0f64);
-    while t_cdf(hi, df) < p && hi < 1e12 {
-        lo = hi;
-        hi *= 2.0;
-    }
-    for _ in 0..200 {
-        let mid = 0.5 * (lo + hi);
-        if t_cdf(mid, df) < p {
-            lo = mid;
-        } else {
-            hi = mid;
-        }
-        if hi - lo <= 1e-14 * hi {
-            break;
-        }
-    }
-    0.5 * (lo + hi)
 }
 
 /// Grubbs' two-sided critical value for `n` values at significance `alpha`
@@ -156,28 +118,6 @@ mod tests {
     /// Relative agreement with scipy's quantiles: bisection stops near
     /// 1e-14 and the continued fraction converges to about 1e-15.
     const REL_TOL: f64 = 1e-9;
-
-    #[test]
-    fn t_quantiles_match_scipy() {
-        // scipy.stats.t.ppf(p, df), scipy 1.17.1.
-        let cases = [
-            (1.0, 0.975, 12.706204736174694),
-            (2.0, 0.99, 6.9645567342832715),
-            (5.0, 0.995, 4.032142983555228),
-            (10.0, 0.9, 1.372183641110336),
-            (30.0, 0.999, 3.3851848668293045),
-            (1.0, 0.9916666666666667, 38.188459297025744),
-            (100.0, 0.975, 1.9839715185235518),
-        ];
-        for (df, p, want) in cases {
-            let got = t_quantile(p, df);
-            assert!(
-                ((got - want) / want).abs() < REL_TOL,
-                "df {df} p {p}: {got} vs {want}"
-            );
-        }
-        assert!((t_quantile(0.025, 1.0) + 12.706204736174694).abs() < 1e-8);
-    }
 
     #[test]
     fn grubbs_critical_values_match_the_published_table() {

@@ -1,15 +1,15 @@
 //! `unblend batch`: plate-reader runs: plate maps, blanks, pathlengths,
 //! dilutions, replicates; per-well and per-sample results.
 
+use super::common::{ModelArgs, References, hex, parse_positive, screening_candidates};
 use super::diagnostic_args::DiagnosticArgs;
-use super::fit::{BaselineArg, QuantityArg};
-use super::{Failure, exit, library_dir, parse_pathlength_cm, parse_positive, parse_range_nm};
+use super::{Failure, exit};
 use crate::atomic::AtomicFile;
 use crate::batch::run::{self, Event, InputSummary, RunSpec};
 use crate::batch::{BatchOptions, Models, PlateResult, WaterBand};
 use crate::fit::FitOptions;
 use crate::guard::Named;
-use crate::input::platemap;
+use crate::input::platemap::{self, PlateMap};
 use crate::output::batch::{RenderedPlate, SAMPLES_HEADER, WELLS_HEADER, render_plate_with};
 use crate::reference::{Library, ReferenceSet};
 use crate::report::plates::{PlateReport, RunHead};
@@ -51,15 +51,9 @@ pub struct Args {
     /// standard, empty; optional `plate` column). Without it every well is a sample.
     #[arg(long, value_name = "MAP.csv")]
     pub plate_map: Option<PathBuf>,
-    /// Library folder of component files [default: $UNBLEND_LIBRARY or ./library].
-    #[arg(long, value_name = "DIR")]
-    pub library: Option<PathBuf>,
-    /// Components to fit, comma separated [default: every component in the library].
-    #[arg(long, value_delimiter = ',', value_name = "NAMES")]
-    pub components: Vec<String>,
-    /// Pathlength in cm for wells whose map gives none (and without --pathlength-from-water).
-    #[arg(long, default_value = "1", value_parser = parse_pathlength_cm, allow_negative_numbers = true, value_name = "CM")]
-    pub pathlength_cm: f64,
+    /// The references and the model fitted.
+    #[command(flatten)]
+    pub model: ModelArgs,
     /// Pathlength of each well from the near-infrared water band:
     /// l = (A(977 nm) − A(900 nm)) / --water-au-per-cm, from the reading before blank
     /// subtraction. The map's pathlength_cm, where given, wins.
@@ -69,15 +63,6 @@ pub struct Args {
     /// it depends on temperature).
     #[arg(long, default_value = "0.18", value_parser = parse_positive, value_name = "AU_PER_CM")]
     pub water_au_per_cm: f64,
-    /// Baseline terms fitted beside the components (free in sign): offset in AU, slope in AU/nm.
-    #[arg(long, value_enum, default_value_t = BaselineArg::Offset)]
-    pub baseline: BaselineArg,
-    /// Wavelength window LO:HI in nm [default: all wavelengths the plate and every reference cover].
-    #[arg(long, value_parser = parse_range_nm, allow_hyphen_values = true, value_name = "LO:HI")]
-    pub range_nm: Option<(f64, f64)>,
-    /// What the numbers in the inputs are.
-    #[arg(long, value_enum, default_value_t = QuantityArg::Absorbance)]
-    pub quantity: QuantityArg,
     /// Significance level of the outlier tests (Grubbs, two-sided) on replicates and blanks.
     #[arg(long, default_value = "0.05", value_parser = parse_alpha, value_name = "ALPHA")]
     pub outlier_alpha: f64,
@@ -110,28 +95,17 @@ pub struct Args {
 fn checks(args: &Args) -> Result<crate::diagnostics::Options, Failure> {
     let mut checks = args.checks.options();
     if let Some(dir) = &args.screen_with {
-        if args.checks.no_diagnostics {
-            return Err(Failure::new(
-                "--screen-with tries candidates on wells the residual tests flag: drop --no-diagnostics",
-            ));
-        }
-        let candidates =
-            Library::open(dir).map_err(|e| Failure::new(format!("--screen-with: {e}")))?;
-        for e in &candidates.broken {
-            eprintln!("unblend: warning: screening library: {e}");
-        }
-        if candidates.components.is_empty() {
-            return Err(Failure::new(format!(
-                "--screen-with {}: no readable component files (*.toml) there",
-                dir.display()
-            )));
-        }
-        checks.candidates = Some(ReferenceSet {
-            components: candidates.components,
-        });
+        checks.candidates = Some(screening_candidates(
+            dir,
+            args.checks.no_diagnostics,
+            "wells",
+        )?);
     }
     Ok(checks)
 }
+
+/// The names of the four output files in `--out-dir`.
+const OUTPUT_NAMES: [&str; 4] = ["wells.csv", "samples.csv", "run.json", "run-log.txt"];
 
 /// Refuse a run whose outputs (in `--out-dir`, and `--report`) include an
 /// input file or the plate map, before anything is read.
@@ -163,12 +137,7 @@ impl TryFrom<&Args> for BatchOptions {
     #[allow(clippy::needless_update)]
     fn try_from(a: &Args) -> Result<Self, Failure> {
         Ok(BatchOptions {
-            fit: FitOptions {
-                baseline: a.baseline.into(),
-                window_nm: a.range_nm,
-                pathlength_cm: a.pathlength_cm,
-                ..FitOptions::default()
-            },
+            fit: FitOptions::try_from(&a.model)?,
             water: a.pathlength_from_water.then(|| WaterBand {
                 au_per_cm: a.water_au_per_cm,
                 ..WaterBand::default()
@@ -192,73 +161,11 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             code: exit::USAGE,
         });
     }
-    let (map, map_info) = match &args.plate_map {
-        Some(path) => {
-            let bytes = std::fs::read(path)
-                .map_err(|e| Failure::new(format!("plate map {}: {e}", path.display())))?;
-            let map = platemap::read(&bytes)
-                .map_err(|e| Failure::new(format!("plate map {}: {e}", path.display())))?;
-            let info = format!(
-                "{}  sha256 {}  ({} entries)",
-                path.display(),
-                hex(&Sha256::digest(&bytes)),
-                map.len()
-            );
-            (Some(map), Some(info))
-        }
-        None => (None, None),
-    };
-    let dir = library_dir(args.library.clone());
-    let library = Library::open(&dir)?;
-    for w in &library.skipped {
-        eprintln!("unblend: warning: {w}");
-    }
-    let refs = library.select(&args.components)?;
+    let (map, map_info) = read_plate_map(args.plate_map.as_deref())?;
+    let References { dir, set: refs } = args.model.references()?;
     let checks = checks(&args)?;
-    // The report's temporary file first: a report path in a missing folder
-    // fails before the output folder is created.
-    let report_file = match &args.report {
-        Some(path) => Some(AtomicFile::create(path).map_err(|e| {
-            Failure::new(format!(
-                "--report {}: cannot write there ({e}); does its folder exist?",
-                path.display()
-            ))
-        })?),
-        None => None,
-    };
-    let created_dir = !args.out_dir.exists();
-    std::fs::create_dir_all(&args.out_dir)
-        .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
-    let mut out = Outputs::create(&args.out_dir)?;
-    out.report = report_file.map(|f| {
-        let names = refs.names().into_iter().map(String::from).collect();
-        (f, PlateReport::new(names))
-    });
-    out.begin(&refs, &options, &args)
-        .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
-
-    let total_bytes: Option<u64> = args
-        .inputs
-        .iter()
-        .map(|p| {
-            (p.as_os_str() != "-")
-                .then(|| std::fs::metadata(p).ok().map(|m| m.len()))
-                .flatten()
-        })
-        .sum();
-    let bar = (!args.no_progress && std::io::stderr().is_terminal()).then(|| {
-        let bar = match total_bytes {
-            Some(t) => indicatif::ProgressBar::new(t),
-            None => indicatif::ProgressBar::new_spinner(),
-        };
-        let style = indicatif::ProgressStyle::with_template(
-            "{spinner} {elapsed_precise} [{wide_bar}] {bytes}/{total_bytes} {msg}",
-        )
-        .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar());
-        bar.set_style(style);
-        bar
-    });
-
+    let (mut out, created_dir) = open_outputs(&args, &refs, &options)?;
+    let bar = progress_bar(&args);
     let mut tally = Tally::default();
     if map.is_none() {
         tally.warn("no --plate-map given: every well is a sample named after its well, and no blank is subtracted".into());
@@ -267,7 +174,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let spec = RunSpec {
         inputs: &args.inputs,
         map: map.as_ref(),
-        quantity: args.quantity.into(),
+        quantity: args.model.quantity.into(),
         options: &options,
         bytes_read: &bytes_read,
     };
@@ -323,18 +230,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             "no input could be read: nothing was written (errors above)",
         ));
     }
-    for w in models.warnings() {
-        tally.warn(w);
-    }
-    for w in tally.warnings.iter().take(SHOWN_WARNINGS) {
-        eprintln!("unblend: warning: {w}");
-    }
-    if tally.n_warnings > SHOWN_WARNINGS {
-        eprintln!(
-            "unblend: {} more warning(s) in run-log.txt and run.json",
-            tally.n_warnings - SHOWN_WARNINGS
-        );
-    }
+    print_warnings(&mut tally, &models);
     let log = LogInfo {
         started_utc,
         elapsed_s,
@@ -347,6 +243,102 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let paths = out
         .finish(&tally, &log)
         .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
+    Ok(closing(&tally, elapsed_s, &paths))
+}
+
+/// Create the output folder and the temporary outputs (the report's first:
+/// a report path in a missing folder fails before the folder is created),
+/// and write their heads. Also says whether the folder is new.
+fn open_outputs(
+    args: &Args,
+    refs: &ReferenceSet,
+    options: &BatchOptions,
+) -> Result<(Outputs, bool), Failure> {
+    let report_file = match &args.report {
+        Some(path) => Some(AtomicFile::create(path).map_err(|e| {
+            Failure::new(format!(
+                "--report {}: cannot write there ({e}); does its folder exist?",
+                path.display()
+            ))
+        })?),
+        None => None,
+    };
+    let created_dir = !args.out_dir.exists();
+    std::fs::create_dir_all(&args.out_dir)
+        .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
+    let mut out = Outputs::create(&args.out_dir)?;
+    out.report = report_file.map(|f| {
+        let names = refs.names().into_iter().map(String::from).collect();
+        (f, PlateReport::new(names))
+    });
+    out.begin(refs, options, args)
+        .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
+    Ok((out, created_dir))
+}
+
+/// Print the first warnings; the rest are counted.
+fn print_warnings(tally: &mut Tally, models: &Models) {
+    for w in models.warnings() {
+        tally.warn(w);
+    }
+    for w in tally.warnings.iter().take(SHOWN_WARNINGS) {
+        eprintln!("unblend: warning: {w}");
+    }
+    if tally.n_warnings > SHOWN_WARNINGS {
+        eprintln!(
+            "unblend: {} more warning(s) in run-log.txt and run.json",
+            tally.n_warnings - SHOWN_WARNINGS
+        );
+    }
+}
+
+/// The plate map, and its line for the run log (path, SHA-256, entries).
+fn read_plate_map(path: Option<&Path>) -> Result<(Option<PlateMap>, Option<String>), Failure> {
+    Ok(match path {
+        Some(path) => {
+            let bytes = std::fs::read(path)
+                .map_err(|e| Failure::new(format!("plate map {}: {e}", path.display())))?;
+            let map = platemap::read(&bytes)
+                .map_err(|e| Failure::new(format!("plate map {}: {e}", path.display())))?;
+            let info = format!(
+                "{}  sha256 {}  ({} entries)",
+                path.display(),
+                hex(&Sha256::digest(&bytes)),
+                map.len()
+            );
+            (Some(map), Some(info))
+        }
+        None => (None, None),
+    })
+}
+
+/// The progress bar, when asked for and stderr is a terminal.
+fn progress_bar(args: &Args) -> Option<indicatif::ProgressBar> {
+    let total_bytes: Option<u64> = args
+        .inputs
+        .iter()
+        .map(|p| {
+            (p.as_os_str() != "-")
+                .then(|| std::fs::metadata(p).ok().map(|m| m.len()))
+                .flatten()
+        })
+        .sum();
+    (!args.no_progress && std::io::stderr().is_terminal()).then(|| {
+        let bar = match total_bytes {
+            Some(t) => indicatif::ProgressBar::new(t),
+            None => indicatif::ProgressBar::new_spinner(),
+        };
+        let style = indicatif::ProgressStyle::with_template(
+            "{spinner} {elapsed_precise} [{wide_bar}] {bytes}/{total_bytes} {msg}",
+        )
+        .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar());
+        bar.set_style(style);
+        bar
+    })
+}
+
+/// Print the run's closing lines; the exit code they add up to.
+fn closing(tally: &Tally, elapsed_s: f64, paths: &[String]) -> u8 {
     let rate = tally.wells_fitted as f64 / elapsed_s.max(1e-9);
     eprintln!(
         "unblend: {} plate(s), {} well(s) fitted, {} failed, in {elapsed_s:.2} s ({rate:.0} wells/s); wrote {}",
@@ -363,13 +355,13 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             tally.wells_failed
         );
     }
-    Ok(if tally.failures() == 0 {
+    if tally.failures() == 0 {
         exit::OK
     } else if tally.wells_fitted == 0 {
         exit::FAILED
     } else {
         exit::PARTIAL
-    })
+    }
 }
 
 /// Warnings printed to stderr; the rest go to the run log.
@@ -438,9 +430,6 @@ impl Tally {
         self.inputs_failed() + self.plates_failed + self.wells_failed
     }
 }
-
-/// The names of the four output files in `--out-dir`.
-const OUTPUT_NAMES: [&str; 4] = ["wells.csv", "samples.csv", "run.json", "run-log.txt"];
 
 /// The four output files, filled as the run goes and committed together.
 struct Outputs {
@@ -595,7 +584,7 @@ fn options_json(o: &BatchOptions, a: &Args) -> serde_json::Value {
     serde_json::json!({
         "baseline": format!("{:?}", o.fit.baseline).to_lowercase(),
         "range_nm": o.fit.window_nm.map(|(lo, hi)| [lo, hi]),
-        "quantity": format!("{:?}", a.quantity).to_lowercase(),
+        "quantity": format!("{:?}", a.model.quantity).to_lowercase(),
         "pathlength_cm": o.fit.pathlength_cm,
         "water_band": o.water,
         "outlier_test": "grubbs-two-sided",
@@ -612,7 +601,6 @@ fn options_json(o: &BatchOptions, a: &Args) -> serde_json::Value {
 }
 
 fn write_log(w: &mut dyn Write, t: &Tally, l: &LogInfo) -> std::io::Result<()> {
-    let o = l.options;
     writeln!(w, "unblend batch: run log")?;
     writeln!(w, "tool:       unblend {}", env!("CARGO_PKG_VERSION"))?;
     writeln!(w, "started:    {}", l.started_utc)?;
@@ -652,6 +640,13 @@ fn write_log(w: &mut dyn Write, t: &Tally, l: &LogInfo) -> std::io::Result<()> {
             .as_deref()
             .unwrap_or("none (every well a sample, no blank)")
     )?;
+    write_log_components(w, l)?;
+    write_log_options(w, l)?;
+    write_log_results(w, t)
+}
+
+/// The run log's library and components, each with its file's SHA-256.
+fn write_log_components(w: &mut dyn Write, l: &LogInfo) -> std::io::Result<()> {
     writeln!(w, "library:    {}", l.library_dir.display())?;
     writeln!(w, "components:")?;
     for c in &l.refs.components {
@@ -667,6 +662,12 @@ fn write_log(w: &mut dyn Write, t: &Tally, l: &LogInfo) -> std::io::Result<()> {
             path.display()
         )?;
     }
+    Ok(())
+}
+
+/// The run log's options section.
+fn write_log_options(w: &mut dyn Write, l: &LogInfo) -> std::io::Result<()> {
+    let o = l.options;
     writeln!(w, "\noptions")?;
     writeln!(
         w,
@@ -684,7 +685,7 @@ fn write_log(w: &mut dyn Write, t: &Tally, l: &LogInfo) -> std::io::Result<()> {
     writeln!(
         w,
         "  quantity:    {}",
-        format!("{:?}", l.args.quantity).to_lowercase()
+        format!("{:?}", l.args.model.quantity).to_lowercase()
     )?;
     match o.water {
         Some(wb) => writeln!(
@@ -732,6 +733,11 @@ fn write_log(w: &mut dyn Write, t: &Tally, l: &LogInfo) -> std::io::Result<()> {
             .map(|d| format!("; screening with {}", d.display()))
             .unwrap_or_default()
     )?;
+    Ok(())
+}
+
+/// The run log's results, outputs and warnings.
+fn write_log_results(w: &mut dyn Write, t: &Tally) -> std::io::Result<()> {
     writeln!(w, "\nresults")?;
     writeln!(
         w,
@@ -783,11 +789,6 @@ fn shell_word(s: &str) -> String {
     }
 }
 
-fn hex(bytes: &[u8]) -> String {
-    bytes.iter().map(|b| format!("{b:02x}")).collect()
-}
-
-/// Now, UTC, as `YYYY-MM-DD HH:MM:SS UTC`.
 fn now_utc() -> String {
     let secs = std::time::SystemTime::now()
         .duration_since(std::time::UNIX_EPOCH)

@@ -1,7 +1,10 @@
 //! `unblend calibrate`: a reference component from a blank and standards.
 
-use super::fit::{QuantityArg, read_input};
-use super::{Failure, exit, library_dir, parse_pathlength_cm, parse_positive, parse_range_nm};
+use super::common::{
+    FormatArg, QuantityArg, file_name, hex, library_dir, parse_pathlength_cm, parse_positive,
+    parse_range_nm, print_stdout, read_input, shown, sig, summary_format,
+};
+use super::{Failure, exit};
 use crate::calibrate::{
     self, ABSORBANCE_CEILING_AU, CalibrationOptions, CalibrationResult, LINEARITY_TOLERANCE,
     Provenance,
@@ -10,7 +13,6 @@ use crate::guard::Named;
 use crate::input::concentrations::{self, ConcentrationUnit};
 use crate::input::spectra::{self, ReadOptions};
 use crate::reference::{Calibration, Conditions, Library};
-use clap::ValueEnum;
 use serde::Serialize;
 use sha2::{Digest, Sha256};
 use std::io::Write;
@@ -88,17 +90,8 @@ pub struct Args {
     #[arg(long, value_name = "FILE")]
     pub out: Option<PathBuf>,
     /// Format of the summary on standard output.
-    #[arg(long, value_enum, default_value_t = ReportFormat::Table)]
-    pub format: ReportFormat,
-}
-
-/// Format of a summary report (`calibrate`, `library check`).
-#[derive(Debug, Clone, Copy, ValueEnum, PartialEq, Eq)]
-pub enum ReportFormat {
-    /// Aligned text for the terminal.
-    Table,
-    /// JSON document.
-    Json,
+    #[arg(long, default_value = "table", value_parser = summary_format())]
+    pub format: FormatArg,
 }
 
 /// The JSON document printed by `calibrate --format json`.
@@ -206,7 +199,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         eprintln!("unblend: warning: {w}");
     }
     match args.format {
-        ReportFormat::Json => {
+        FormatArg::Json => {
             let summary = Summary {
                 tool: crate::output::ToolInfo {
                     name: "unblend".into(),
@@ -222,40 +215,16 @@ pub fn run(args: Args) -> Result<u8, Failure> {
                 .map_err(|e| Failure::new(format!("json: {e}")))?;
             print_stdout(&format!("{text}\n"))?;
         }
-        ReportFormat::Table => print_summary(&args, &table.unit, &result, written.as_deref())?,
+        // `summary_format` never gives csv.
+        FormatArg::Table | FormatArg::Csv => {
+            print_summary(&args, &table.unit, &result, written.as_deref())?
+        }
     }
     Ok(if result.unreadable.is_empty() {
         exit::OK
     } else {
         exit::PARTIAL
     })
-}
-
-/// Write text to standard output; a reader that went away (a closed pipe)
-/// is not an error.
-pub(crate) fn print_stdout(text: &str) -> Result<(), Failure> {
-    super::stdout::print(text)
-}
-
-fn shown(path: &Path) -> String {
-    if path.as_os_str() == "-" {
-        "standard input".into()
-    } else {
-        path.display().to_string()
-    }
-}
-
-fn file_name(path: &Path) -> String {
-    if path.as_os_str() == "-" {
-        return "standard input".into();
-    }
-    path.file_name()
-        .map(|s| s.to_string_lossy().into_owned())
-        .unwrap_or_else(|| path.display().to_string())
-}
-
-fn hex(bytes: &[u8]) -> String {
-    bytes.iter().map(|b| format!("{b:02x}")).collect()
 }
 
 /// A concentration in mol/L shown in the unit the user gave.
@@ -270,16 +239,6 @@ fn in_unit(v_mol_per_l: f64, unit: &ConcentrationUnit, molar_mass: Option<f64>) 
     match factor {
         Some(f) => format!("{} {}", sig(v_mol_per_l * f), unit.label()),
         None => format!("{v_mol_per_l:.4e} mol/L"),
-    }
-}
-
-/// Four significant figures without an exponent for everyday magnitudes.
-pub(crate) fn sig(v: f64) -> String {
-    if v.abs() < f64::MIN_POSITIVE || (1e-3..1e6).contains(&v.abs()) {
-        let digits = (3 - v.abs().log10().floor() as i32).clamp(0, 6) as usize;
-        format!("{v:.digits$}")
-    } else {
-        format!("{v:.3e}")
     }
 }
 

@@ -6,7 +6,7 @@ use crate::diagnostics::{self, DEFAULT_MAX_ABSORBANCE_AU, ResidualOptions};
 #[derive(Debug, Clone, clap::Args)]
 pub struct DiagnosticArgs {
     /// Noise of the absorbance readings, AU (one standard deviation) [default: estimated from each spectrum's residual].
-    #[arg(long, value_parser = super::parse_positive, value_name = "AU")]
+    #[arg(long, value_parser = super::common::parse_positive, value_name = "AU")]
     pub noise_au: Option<f64>,
     /// False-alarm rate of the unexplained-absorbance flag: the share of clean samples (white noise) flagged.
     #[arg(long, default_value_t = diagnostics::DEFAULT_ALARM_RATE, value_parser = parse_rate, value_name = "RATE")]
@@ -44,7 +44,7 @@ pub fn parse_ceiling(s: &str) -> Result<Ceiling, String> {
     if s.trim().eq_ignore_ascii_case("none") {
         return Ok(Ceiling(None));
     }
-    super::parse_positive(s)
+    super::common::parse_positive(s)
         .map(|v| Ceiling(Some(v)))
         .map_err(|_| format!("'{s}': expected a positive absorbance in AU, or none"))
 }

@@ -1,15 +1,13 @@
 //! `unblend discover`: recover the spectrum of an unknown absorber that the
 //! flagged samples of a batch share.
 
+use super::common::{FormatArg, ModelArgs, parse_positive, read_input, shown, summary_format};
 use super::diagnostic_args::DiagnosticArgs;
-use super::fit::{BaselineArg, QuantityArg, read_input};
-use super::{Failure, exit, library_dir, parse_pathlength_cm, parse_positive, parse_range_nm};
+use super::{Failure, exit};
 use crate::discover::{self, DiscoverOptions, Discovery};
 use crate::fit::FitOptions;
 use crate::guard::Named;
-use crate::input::spectra::{self, ReadOptions};
-use crate::reference::Library;
-use clap::ValueEnum;
+use crate::input::spectra;
 use std::io::Write;
 use std::path::PathBuf;
 
@@ -23,24 +21,9 @@ pub struct Args {
     /// Where to write the recovered spectrum: CSV `wavelength_nm,epsilon`, ready for `library add`.
     #[arg(long, value_name = "FILE.csv")]
     pub out: PathBuf,
-    /// Library folder of component files [default: $UNBLEND_LIBRARY or ./library].
-    #[arg(long, value_name = "DIR")]
-    pub library: Option<PathBuf>,
-    /// Components to fit, comma separated [default: every component in the library].
-    #[arg(long, value_delimiter = ',', value_name = "NAMES")]
-    pub components: Vec<String>,
-    /// Optical pathlength in cm.
-    #[arg(long, default_value = "1", value_parser = parse_pathlength_cm, allow_negative_numbers = true, value_name = "CM")]
-    pub pathlength_cm: f64,
-    /// Baseline terms fitted beside the components (free in sign).
-    #[arg(long, value_enum, default_value_t = BaselineArg::Offset)]
-    pub baseline: BaselineArg,
-    /// Wavelength window LO:HI in nm [default: all wavelengths the sample and every reference cover].
-    #[arg(long, value_parser = parse_range_nm, allow_hyphen_values = true, value_name = "LO:HI")]
-    pub range_nm: Option<(f64, f64)>,
-    /// What the numbers in INPUT are.
-    #[arg(long, value_enum, default_value_t = QuantityArg::Absorbance)]
-    pub quantity: QuantityArg,
+    /// The references and the model fitted.
+    #[command(flatten)]
+    pub model: ModelArgs,
     /// Peak ε given to the recovered spectrum, L/(mol·cm) (the true scale cannot be known from mixtures).
     #[arg(long, default_value_t = discover::DEFAULT_PEAK_EPSILON, value_parser = parse_positive, value_name = "L_PER_MOL_CM")]
     pub peak_epsilon: f64,
@@ -48,20 +31,11 @@ pub struct Args {
     #[arg(long, default_value_t = discover::DEFAULT_MAX_ITERATIONS, value_name = "N")]
     pub max_iterations: usize,
     /// Report format on standard output.
-    #[arg(long, value_enum, default_value_t = ReportFormat::Table)]
-    pub format: ReportFormat,
+    #[arg(long, default_value = "table", value_parser = summary_format())]
+    pub format: FormatArg,
     /// Residual tests and saturation masking (as for `fit`).
     #[command(flatten)]
     pub checks: DiagnosticArgs,
-}
-
-/// `--format` values of `discover`.
-#[derive(Debug, Clone, Copy, ValueEnum)]
-pub enum ReportFormat {
-    /// Summary and per-sample table.
-    Table,
-    /// JSON document.
-    Json,
 }
 
 /// Run `unblend discover`.
@@ -78,27 +52,12 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     if args.max_iterations == 0 {
         return Err(Failure::new("--max-iterations 0: expected at least 1"));
     }
-    let options = FitOptions {
-        baseline: args.baseline.into(),
-        window_nm: args.range_nm,
-        pathlength_cm: args.pathlength_cm,
-    };
-    let shown = if args.input.as_os_str() == "-" {
-        "standard input".to_string()
-    } else {
-        args.input.display().to_string()
-    };
+    let options = FitOptions::try_from(&args.model)?;
+    let shown = shown(&args.input);
     let bytes = read_input(&args.input)?;
-    let file = spectra::read(
-        &bytes,
-        ReadOptions {
-            quantity: args.quantity.into(),
-            ..Default::default()
-        },
-    )
-    .map_err(|e| Failure::new(format!("{shown}: {e}")))?;
-    let library = Library::open(&library_dir(args.library.clone()))?;
-    let refs = library.select(&args.components)?;
+    let file = spectra::read(&bytes, args.model.read_options())
+        .map_err(|e| Failure::new(format!("{shown}: {e}")))?;
+    let refs = args.model.references()?.set;
     let found = discover::discover(
         &file,
         &refs,
@@ -123,10 +82,11 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     }
     let mut out = std::io::stdout().lock();
     let written = match args.format {
-        ReportFormat::Json => serde_json::to_writer_pretty(&mut out, &found)
+        FormatArg::Json => serde_json::to_writer_pretty(&mut out, &found)
             .map_err(std::io::Error::other)
             .and_then(|_| writeln!(out)),
-        ReportFormat::Table => write_table(&found, &args.out, &mut out),
+        // `summary_format` never gives csv.
+        FormatArg::Table | FormatArg::Csv => write_table(&found, &args.out, &mut out),
     };
     written.map_err(|e| Failure::new(format!("standard output: {e}")))?;
     Ok(if found.n_failed > 0 {

@@ -1,18 +1,19 @@
 //! `unblend fit`: fit spectra against reference components.
 
+use super::Failure;
+use super::common::{
+    FormatArg, ModelArgs, References, code_for, emit, exit_code, read_input, screening_candidates,
+    shown, summary,
+};
 use super::diagnostic_args::DiagnosticArgs;
-use super::{Failure, exit, library_dir, parse_pathlength_cm, parse_range_nm};
 use crate::atomic::{AtomicFile, stage_with};
 use crate::fit::{FitOptions, FitReport, Outcome, StreamError, fit_stream_with};
 use crate::guard::Named;
-use crate::input::spectra::{self, Opened, Quantity, ReadOptions, WideStream};
+use crate::input::spectra::{self, Opened, WideStream};
 use crate::limits::Capped;
 use crate::output::{self, Format};
-use crate::preprocess::Baseline;
-use crate::reference::{Library, ReferenceSet};
-use clap::ValueEnum;
 use std::io::{Read, Write};
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 
 /// Fit each spectrum as A(λ) = l·Σ εᵢ(λ)·cᵢ + baseline(λ) with cᵢ ≥ 0.
 #[derive(Debug, clap::Args)]
@@ -21,24 +22,9 @@ pub struct Args {
     /// Spectra CSV (wide `sample,<nm>,<nm>,...` or long
     /// `sample,wavelength_nm,absorbance`); `-` reads standard input.
     pub input: PathBuf,
-    /// Library folder of component files [default: $UNBLEND_LIBRARY or ./library].
-    #[arg(long, value_name = "DIR")]
-    pub library: Option<PathBuf>,
-    /// Components to fit, comma separated [default: every component in the library].
-    #[arg(long, value_delimiter = ',', value_name = "NAMES")]
-    pub components: Vec<String>,
-    /// Optical pathlength in cm.
-    #[arg(long, default_value = "1", value_parser = parse_pathlength_cm, allow_negative_numbers = true, value_name = "CM")]
-    pub pathlength_cm: f64,
-    /// Baseline terms fitted beside the components (free in sign): offset in AU, slope in AU/nm.
-    #[arg(long, value_enum, default_value_t = BaselineArg::Offset)]
-    pub baseline: BaselineArg,
-    /// Wavelength window LO:HI in nm [default: all wavelengths the sample and every reference cover].
-    #[arg(long, value_parser = parse_range_nm, allow_hyphen_values = true, value_name = "LO:HI")]
-    pub range_nm: Option<(f64, f64)>,
-    /// What the numbers in INPUT are.
-    #[arg(long, value_enum, default_value_t = QuantityArg::Absorbance)]
-    pub quantity: QuantityArg,
+    /// The references and the model fitted.
+    #[command(flatten)]
+    pub model: ModelArgs,
     /// Output format.
     #[arg(long, value_enum, default_value_t = FormatArg::Table)]
     pub format: FormatArg,
@@ -65,83 +51,6 @@ pub struct Args {
     pub with_curves: bool,
 }
 
-/// `--baseline` values.
-#[derive(Debug, Clone, Copy, ValueEnum)]
-pub enum BaselineArg {
-    /// No baseline term.
-    None,
-    /// Constant offset (AU).
-    Offset,
-    /// Offset (AU) and slope (AU/nm).
-    Linear,
-}
-
-/// `--quantity` values.
-#[derive(Debug, Clone, Copy, ValueEnum)]
-pub enum QuantityArg {
-    /// Decadic absorbance, AU (−log10 T).
-    Absorbance,
-    /// Napierian absorbance (−ln T), converted to decadic.
-    AbsorbanceLn,
-    /// Transmittance as a fraction 0–1.
-    Transmittance,
-    /// Transmittance in percent 0–100.
-    TransmittancePercent,
-}
-
-/// `--format` values.
-#[derive(Debug, Clone, Copy, ValueEnum)]
-pub enum FormatArg {
-    /// Aligned table for the terminal.
-    Table,
-    /// Tidy CSV, one row per sample and component.
-    Csv,
-    /// JSON document.
-    Json,
-}
-
-impl From<BaselineArg> for Baseline {
-    fn from(b: BaselineArg) -> Self {
-        match b {
-            BaselineArg::None => Baseline::None,
-            BaselineArg::Offset => Baseline::Offset,
-            BaselineArg::Linear => Baseline::Linear,
-        }
-    }
-}
-
-impl From<QuantityArg> for Quantity {
-    fn from(q: QuantityArg) -> Self {
-        match q {
-            QuantityArg::Absorbance => Quantity::Absorbance,
-            QuantityArg::AbsorbanceLn => Quantity::AbsorbanceNatural,
-            QuantityArg::Transmittance => Quantity::Transmittance,
-            QuantityArg::TransmittancePercent => Quantity::TransmittancePercent,
-        }
-    }
-}
-
-impl From<FormatArg> for Format {
-    fn from(f: FormatArg) -> Self {
-        match f {
-            FormatArg::Table => Format::Table,
-            FormatArg::Csv => Format::Csv,
-            FormatArg::Json => Format::Json,
-        }
-    }
-}
-
-impl TryFrom<&Args> for FitOptions {
-    type Error = Failure;
-    fn try_from(a: &Args) -> Result<Self, Failure> {
-        Ok(FitOptions {
-            baseline: a.baseline.into(),
-            window_nm: a.range_nm,
-            pathlength_cm: a.pathlength_cm,
-        })
-    }
-}
-
 /// Run `unblend fit`.
 pub fn run(mut args: Args) -> Result<u8, Failure> {
     // `--out -` is standard output, as `-` is standard input.
@@ -152,41 +61,77 @@ pub fn run(mut args: Args) -> Result<u8, Failure> {
         ("--plot", args.plot.as_deref()),
     ]);
     crate::guard::refuse_overwriting(&[Named::new("input", &args.input)], &outputs)?;
-    let options = FitOptions::try_from(&args)?;
+    let options = FitOptions::try_from(&args.model)?;
     let format: Format = args.format.into();
-    let shown = if args.input.as_os_str() == "-" {
-        "standard input".to_string()
-    } else {
-        args.input.display().to_string()
+    let refs = args.model.references()?;
+    let checks = checks(&args)?;
+    check_outputs(&args, format)?;
+    let run = FitRun {
+        args: &args,
+        refs: &refs,
+        options,
+        checks,
+        format,
+        shown: shown(&args.input),
     };
-    let dir = library_dir(args.library.clone());
-    let library_dir_shown = dir.clone();
-    let library = Library::open(&dir)?;
-    for w in &library.skipped {
-        eprintln!("unblend: warning: {w}");
+    if args.report.is_some() || args.plot.is_some() || args.with_curves {
+        return run_with_curves(&run);
     }
-    let refs = library.select(&args.components)?;
+    // Every line is capped, so an input without line breaks (/dev/zero)
+    // fails with its line number instead of filling memory.
+    let reader: Box<dyn Read + Send> = if args.input.as_os_str() == "-" {
+        Box::new(Capped::new(std::io::stdin()))
+    } else {
+        Box::new(Capped::new(
+            std::fs::File::open(&args.input)
+                .map_err(|e| Failure::new(format!("{}: {e}", run.shown)))?,
+        ))
+    };
+    match spectra::open(reader, args.model.read_options()).map_err(|e| run.context(e))? {
+        Opened::Long(file) => {
+            let report = crate::fit::fit_file_with(&file, &refs.set, &run.options, &run.checks)
+                .map_err(|e| run.context(e))?;
+            emit(&report, format, args.out.as_deref())?;
+            Ok(exit_code(&report))
+        }
+        Opened::Wide(mut stream) if format == Format::Csv => stream_csv(&mut stream, &run),
+        Opened::Wide(mut stream) => fit_wide(&mut stream, &run),
+    }
+}
+
+/// One `fit` run: its flags, references, options and the input's name.
+struct FitRun<'a> {
+    args: &'a Args,
+    refs: &'a References,
+    options: FitOptions,
+    checks: crate::diagnostics::Options,
+    format: Format,
+    /// The input as messages show it.
+    shown: String,
+}
+
+impl FitRun<'_> {
+    /// An engine error about the input, with the input's name.
+    fn context(&self, e: crate::Error) -> Failure {
+        Failure::new(format!("{}: {e}", self.shown))
+    }
+}
+
+/// The residual checks the flags ask for, with `--screen-with` candidates.
+fn checks(args: &Args) -> Result<crate::diagnostics::Options, Failure> {
     let mut checks = args.checks.options();
     if let Some(dir) = &args.screen_with {
-        if args.checks.no_diagnostics {
-            return Err(Failure::new(
-                "--screen-with tries candidates on samples the residual tests flag: drop --no-diagnostics",
-            ));
-        }
-        let candidates = Library::open(dir)?;
-        for e in &candidates.broken {
-            eprintln!("unblend: warning: screening library: {e}");
-        }
-        if candidates.components.is_empty() {
-            return Err(Failure::new(format!(
-                "--screen-with {}: no readable component files (*.toml) there",
-                dir.display()
-            )));
-        }
-        checks.candidates = Some(ReferenceSet {
-            components: candidates.components,
-        });
+        checks.candidates = Some(screening_candidates(
+            dir,
+            args.checks.no_diagnostics,
+            "samples",
+        )?);
     }
+    Ok(checks)
+}
+
+/// Reject output flags that do not go together.
+fn check_outputs(args: &Args, format: Format) -> Result<(), Failure> {
     if args.with_curves && format != Format::Json {
         return Err(Failure::usage(
             "--with-curves adds the fit curves to the JSON results: use it with --format json",
@@ -200,68 +145,32 @@ pub fn run(mut args: Args) -> Result<u8, Failure> {
             p.display()
         )));
     }
-    if args.report.is_some() || args.plot.is_some() || args.with_curves {
-        return run_with_curves(
-            &args,
-            &refs,
-            &options,
-            &checks,
-            format,
-            &shown,
-            &library_dir_shown,
-        );
-    }
-    // Every line is capped, so an input without line breaks (/dev/zero)
-    // fails with its line number instead of filling memory.
-    let reader: Box<dyn Read + Send> = if args.input.as_os_str() == "-" {
-        Box::new(Capped::new(std::io::stdin()))
-    } else {
-        Box::new(Capped::new(
-            std::fs::File::open(&args.input).map_err(|e| Failure::new(format!("{shown}: {e}")))?,
-        ))
+    Ok(())
+}
+
+/// Fit a wide file chunk by chunk, keeping the results for the table or JSON.
+fn fit_wide<R: Read + Send>(stream: &mut WideStream<R>, run: &FitRun) -> Result<u8, Failure> {
+    let mut outcomes = Vec::new();
+    let warnings = fit_stream_with(stream, &run.refs.set, &run.options, &run.checks, |chunk| {
+        outcomes.extend(chunk);
+        Ok::<(), ()>(())
+    })
+    .map_err(|e| match e {
+        StreamError::Engine(e) => run.context(e),
+        StreamError::Sink(()) => Failure::new("internal: result collection failed"),
+    })?;
+    let report = FitReport {
+        outcomes,
+        warnings,
+        component_names: run.refs.set.names().iter().map(|s| s.to_string()).collect(),
     };
-    let ctx = |e: crate::Error| Failure::new(format!("{shown}: {e}"));
-    let read_options = ReadOptions {
-        quantity: args.quantity.into(),
-        ..Default::default()
-    };
-    match spectra::open(reader, read_options).map_err(ctx)? {
-        Opened::Long(file) => {
-            let report = crate::fit::fit_file_with(&file, &refs, &options, &checks).map_err(ctx)?;
-            emit(&report, format, args.out.as_deref())?;
-            Ok(exit_code(&report))
-        }
-        Opened::Wide(mut stream) if format == Format::Csv => stream_csv(
-            &mut stream,
-            &refs,
-            &options,
-            &checks,
-            args.out.as_deref(),
-            &shown,
-        ),
-        Opened::Wide(mut stream) => {
-            let mut outcomes = Vec::new();
-            let warnings = fit_stream_with(&mut stream, &refs, &options, &checks, |chunk| {
-                outcomes.extend(chunk);
-                Ok::<(), ()>(())
-            })
-            .map_err(|e| match e {
-                StreamError::Engine(e) => ctx(e),
-                StreamError::Sink(()) => Failure::new("internal: result collection failed"),
-            })?;
-            let report = FitReport {
-                outcomes,
-                warnings,
-                component_names: refs.names().iter().map(|s| s.to_string()).collect(),
-            };
-            emit(&report, format, args.out.as_deref())?;
-            Ok(exit_code(&report))
-        }
-    }
+    emit(&report, run.format, run.args.out.as_deref())?;
+    Ok(exit_code(&report))
 }
 
 /// Pixels per SVG pixel in a PNG figure (sharp on high-density screens and
 /// in print: the 760 × 430 px figure becomes 1520 × 860).
+#[cfg(feature = "png")]
 const PNG_SCALE: f32 = 2.0;
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -283,48 +192,37 @@ fn plot_kind(path: &std::path::Path) -> Option<PlotKind> {
 }
 
 /// Fit the whole input in memory and keep each sample's curves for the
-/// report, the figure or the JSON.
-fn run_with_curves(
-    args: &Args,
-    refs: &ReferenceSet,
-    options: &FitOptions,
-    checks: &crate::diagnostics::Options,
-    format: Format,
-    shown: &str,
-    library: &std::path::Path,
-) -> Result<u8, Failure> {
-    let ctx = |e: crate::Error| Failure::new(format!("{shown}: {e}"));
+/// report, the figure or the JSON. Every file output is staged first and
+/// replaced as one set (all old or all new); what was written is said only
+/// once it is in place.
+fn run_with_curves(run: &FitRun) -> Result<u8, Failure> {
+    let args = run.args;
     let bytes = read_input(&args.input)?;
-    let read_options = ReadOptions {
-        quantity: args.quantity.into(),
-        ..Default::default()
-    };
-    let file = spectra::read(&bytes, read_options).map_err(ctx)?;
-    let report = crate::fit::fit_file_with(&file, refs, options, checks).map_err(ctx)?;
-    let curves = crate::curves::for_file(&file, refs, options, &report);
+    let file = spectra::read(&bytes, args.model.read_options()).map_err(|e| run.context(e))?;
+    let report = crate::fit::fit_file_with(&file, &run.refs.set, &run.options, &run.checks)
+        .map_err(|e| run.context(e))?;
+    let curves = crate::curves::for_file(&file, &run.refs.set, &run.options, &report);
     let mut doc = output::JsonReport::from_report(&report);
-    doc.run = Some(run_info(args, shown, library));
+    doc.run = Some(run_info(args, &run.shown, &run.refs.dir));
     doc.curves = Some(curves);
-    // Every file output is staged first and replaced as one set (all old
-    // or all new); what was written is said only once it is in place.
     let mut staged = Vec::new();
     let mut said = Vec::new();
     if let Some(path) = &args.plot {
-        let (file, line) = stage_plot(args, &doc, path, shown)?;
+        let (file, line) = plot(&doc, path, run)?;
         staged.push(file);
         said.push(line);
     }
     if let Some(path) = &args.report {
-        let html = crate::report::render_html(&doc, &format!("unblend fit: {shown}"));
+        let html = crate::report::render_html(&doc, &format!("unblend fit: {}", run.shown));
         staged.push(stage_with(path, |w| w.write_all(html.as_bytes()))?);
         said.push(format!("unblend: wrote the report to {}", path.display()));
     }
-    let json_doc = format == Format::Json && (args.with_curves || args.report.is_some());
+    let json_doc = run.format == Format::Json && (args.with_curves || args.report.is_some());
     let write = |w: &mut (dyn Write + Send)| {
         if json_doc {
             output::write_json(&doc, w)
         } else {
-            output::write(&report, format, w)
+            output::write(&report, run.format, w)
         }
     };
     if let Some(path) = args.out.as_deref() {
@@ -344,15 +242,15 @@ fn run_with_curves(
     Ok(exit_code(&report))
 }
 
-/// The `--plot` figure, staged (not yet in place), and the line that says
-/// so once it is.
-fn stage_plot(
-    args: &Args,
+/// The `--plot` figure of the chosen (or first fitted) sample, staged (not
+/// yet in place), and the line that says so once it is.
+fn plot(
     doc: &output::JsonReport,
-    path: &std::path::Path,
-    shown: &str,
+    path: &Path,
+    run: &FitRun,
 ) -> Result<(AtomicFile, String), Failure> {
-    let curve = match &args.plot_sample {
+    let shown = &run.shown;
+    let curve = match &run.args.plot_sample {
         Some(name) => doc
             .curves
             .iter()
@@ -374,21 +272,7 @@ fn stage_plot(
         })?,
     };
     let svg = crate::report::sample_figure(curve);
-    let file = if plot_kind(path) == Some(PlotKind::Png) {
-        let png = crate::report::png::render(&svg, PNG_SCALE).map_err(Failure::new)?;
-        if !png.has_font {
-            eprintln!(
-                "unblend: warning: no system font found: the PNG's text labels are missing (install a sans-serif font, or write the figure as .svg)"
-            );
-        }
-        stage_with(path, |w| w.write_all(&png.bytes))?
-    } else {
-        stage_with(path, |w| {
-            w.write_all(b"<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n")?;
-            w.write_all(svg.as_bytes())?;
-            w.write_all(b"\n")
-        })?
-    };
+    let file = stage_figure(path, &svg)?;
     let line = format!(
         "unblend: wrote the fit of {} to {}",
         curve.sample,
@@ -397,27 +281,58 @@ fn stage_plot(
     Ok((file, line))
 }
 
+/// Stage a figure as SVG, or as PNG when the file name says so.
+fn stage_figure(path: &std::path::Path, svg: &str) -> Result<AtomicFile, Failure> {
+    if plot_kind(path) == Some(PlotKind::Png) {
+        return stage_png(path, svg);
+    }
+    Ok(stage_with(path, |w| {
+        w.write_all(b"<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n")?;
+        w.write_all(svg.as_bytes())?;
+        w.write_all(b"\n")
+    })?)
+}
+
+#[cfg(feature = "png")]
+fn stage_png(path: &std::path::Path, svg: &str) -> Result<AtomicFile, Failure> {
+    let png = crate::report::png::render(svg, PNG_SCALE).map_err(Failure::new)?;
+    if !png.has_font {
+        eprintln!(
+            "unblend: warning: no system font found: the PNG's text labels are missing (install a sans-serif font, or write the figure as .svg)"
+        );
+    }
+    Ok(stage_with(path, |w| w.write_all(&png.bytes))?)
+}
+
+#[cfg(not(feature = "png"))]
+fn stage_png(path: &std::path::Path, _svg: &str) -> Result<AtomicFile, Failure> {
+    Err(Failure::usage(format!(
+        "--plot {}: this build has no PNG support (built without the `png` feature): write the figure as .svg",
+        path.display()
+    )))
+}
+
 /// The run's inputs and options for the report's summary.
 fn run_info(args: &Args, shown: &str, library: &std::path::Path) -> output::RunInfo {
     let mut options = vec![
         [
             "pathlength".to_string(),
-            format!("{} cm", args.pathlength_cm),
+            format!("{} cm", args.model.pathlength_cm),
         ],
         [
             "baseline".to_string(),
-            format!("{:?}", args.baseline).to_lowercase(),
+            format!("{:?}", args.model.baseline).to_lowercase(),
         ],
         [
             "range".to_string(),
-            args.range_nm.map_or(
+            args.model.range_nm.map_or(
                 "common range of sample and references".into(),
                 |(lo, hi)| format!("{lo}–{hi} nm"),
             ),
         ],
         [
             "input quantity".to_string(),
-            format!("{:?}", args.quantity).to_lowercase(),
+            format!("{:?}", args.model.quantity).to_lowercase(),
         ],
     ];
     let checks = args.checks.options();
@@ -452,14 +367,9 @@ fn run_info(args: &Args, shown: &str, library: &std::path::Path) -> output::RunI
 
 /// Fit a wide file chunk by chunk and write tidy CSV as it goes, so memory
 /// stays bounded for any number of spectra.
-fn stream_csv<R: Read + Send>(
-    stream: &mut WideStream<R>,
-    refs: &ReferenceSet,
-    options: &FitOptions,
-    checks: &crate::diagnostics::Options,
-    out: Option<&std::path::Path>,
-    shown: &str,
-) -> Result<u8, Failure> {
+fn stream_csv<R: Read + Send>(stream: &mut WideStream<R>, run: &FitRun) -> Result<u8, Failure> {
+    let out = run.args.out.as_deref();
+    let (refs, options, checks) = (&run.refs.set, &run.options, &run.checks);
     let mut total = 0usize;
     let mut failed = 0usize;
     let mut engine_error: Option<crate::Error> = None;
@@ -514,7 +424,7 @@ fn stream_csv<R: Read + Send>(
         None => super::stdout::write_with(|w| body(w)),
     };
     if let Some(e) = engine_error {
-        return Err(Failure::new(format!("{shown}: {e}")));
+        return Err(run.context(e));
     }
     result?;
     for w in &warnings {
@@ -524,64 +434,4 @@ fn stream_csv<R: Read + Send>(
         eprintln!("{}", summary(total, failed, path));
     }
     Ok(code_for(total, failed))
-}
-
-fn summary(total: usize, failed: usize, path: &std::path::Path) -> String {
-    format!(
-        "unblend: wrote {} of {total} samples to {}{}",
-        total - failed,
-        path.display(),
-        if failed > 0 {
-            format!(" ({failed} not fitted, listed in the file)")
-        } else {
-            String::new()
-        }
-    )
-}
-
-fn code_for(total: usize, failed: usize) -> u8 {
-    if failed == 0 {
-        exit::OK
-    } else if failed == total {
-        exit::FAILED
-    } else {
-        exit::PARTIAL
-    }
-}
-
-/// Read a file, or standard input for `-`, with every line capped (see
-/// [`crate::limits`]).
-pub fn read_input(path: &std::path::Path) -> Result<Vec<u8>, Failure> {
-    crate::limits::read_text(path).map_err(|e| match e {
-        crate::Error::Io { .. } => Failure::from(e),
-        e if path.as_os_str() == "-" => Failure::new(format!("standard input: {e}")),
-        e => Failure::new(format!("{}: {e}", path.display())),
-    })
-}
-
-/// Print warnings to stderr and write the report to a file or stdout.
-pub fn emit(
-    report: &FitReport,
-    format: Format,
-    out: Option<&std::path::Path>,
-) -> Result<(), Failure> {
-    for w in &report.warnings {
-        eprintln!("unblend: warning: {w}");
-    }
-    match out {
-        Some(path) => {
-            crate::atomic::write_with(path, false, |w| output::write(report, format, w))?;
-            eprintln!(
-                "{}",
-                summary(report.outcomes.len(), report.n_failed(), path)
-            );
-        }
-        None => super::stdout::write_with(|w| output::write(report, format, w))?,
-    }
-    Ok(())
-}
-
-/// The exit code a report deserves.
-pub fn exit_code(report: &FitReport) -> u8 {
-    code_for(report.outcomes.len(), report.n_failed())
 }

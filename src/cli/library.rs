@@ -1,9 +1,11 @@
 //! `unblend library add|list|show|check`: manage reference components and
 //! check that a set of them can be told apart.
 
-use super::calibrate::{ReportFormat, print_stdout, sig};
-use super::fit::BaselineArg;
-use super::{Failure, exit, library_dir, parse_pathlength_cm, parse_positive, parse_range_nm};
+use super::common::{
+    BaselineArg, FormatArg, hex, library_dir, parse_pathlength_cm, parse_positive, parse_range_nm,
+    print_stdout, sig, summary_format,
+};
+use super::{Failure, exit};
 use crate::guard::Named;
 use crate::reference::{Component, Conditions, Library, Source};
 use crate::separability::{self, CheckOptions, CheckReport, DEFAULT_NOISE_AU};
@@ -111,8 +113,8 @@ pub struct CheckArgs {
     #[arg(long, default_value = "1", value_parser = parse_positive, value_name = "NM")]
     pub step_nm: f64,
     /// Output format.
-    #[arg(long, value_enum, default_value_t = ReportFormat::Table)]
-    pub format: ReportFormat,
+    #[arg(long, default_value = "table", value_parser = summary_format())]
+    pub format: FormatArg,
     /// Also write a self-contained HTML page: the reference spectra overlaid and the separability tables.
     #[arg(long, value_name = "FILE.html")]
     pub report: Option<PathBuf>,
@@ -403,12 +405,13 @@ fn check(a: CheckArgs) -> Result<u8, Failure> {
         eprintln!("unblend: warning: {w}");
     }
     match a.format {
-        ReportFormat::Json => {
+        FormatArg::Json => {
             let text = serde_json::to_string_pretty(&report)
                 .map_err(|e| Failure::new(format!("json: {e}")))?;
             print_stdout(&format!("{text}\n"))?;
         }
-        ReportFormat::Table => print_check(&report)?,
+        // `summary_format` never gives csv.
+        FormatArg::Table | FormatArg::Csv => print_check(&report)?,
     }
     if let Some(path) = &a.report {
         let html = crate::report::render_check_html(&refs, &report, &dir.display().to_string());
@@ -561,10 +564,6 @@ fn peak(c: &Component) -> (f64, f64) {
         }
     }
     best
-}
-
-fn hex(bytes: &[u8]) -> String {
-    bytes.iter().map(|b| format!("{b:02x}")).collect()
 }
 
 /// Format rows as a left-aligned table (first row is the header, then a

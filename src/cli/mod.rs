@@ -6,6 +6,7 @@
 
 pub mod batch;
 pub mod calibrate;
+pub mod common;
 pub mod demo;
 pub mod diagnostic_args;
 pub mod discover;
@@ -107,10 +108,17 @@ impl From<crate::Error> for Failure {
 pub fn main() -> ExitCode {
     // An interrupted run removes its temporary files; the outputs it was
     // writing keep their previous content, or, past the commit point, the
-    // run finishes (see `atomic::on_interrupt`). If the handler
-    // cannot be installed the default applies: the process stops at once and
-    // temporaries stay behind, but no output is ever half written.
-    let _ = ctrlc::set_handler(|| crate::atomic::on_interrupt(i32::from(exit::INTERRUPTED)));
+    // run finishes (see `atomic::on_interrupt`). If the handler cannot be
+    // installed the default applies: the process stops at once and
+    // temporaries stay behind (the next run removes them), but no output is
+    // ever half written.
+    let _ = ctrlc::set_handler(|| match crate::atomic::on_interrupt() {
+        crate::atomic::Interrupt::Finish(message) => eprintln!("unblend: {message}"),
+        crate::atomic::Interrupt::Exit(message) => {
+            eprintln!("unblend: {message}");
+            std::process::exit(i32::from(exit::INTERRUPTED))
+        }
+    });
     let cli = match Cli::try_parse() {
         Ok(c) => c,
         Err(e) => {
@@ -144,45 +152,85 @@ pub fn run(cli: Cli) -> Result<u8, Failure> {
     }
 }
 
-/// The library folder: `--library`, else `UNBLEND_LIBRARY`, else `./library`.
-pub fn library_dir(flag: Option<std::path::PathBuf>) -> std::path::PathBuf {
-    flag.or_else(|| std::env::var_os("UNBLEND_LIBRARY").map(Into::into))
-        .unwrap_or_else(|| "library".into())
-}
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use clap::CommandFactory;
 
-/// Parse `LO:HI` in nm.
-pub fn parse_range_nm(s: &str) -> Result<(f64, f64), String> {
-    let (lo, hi) = s
-        .split_once(':')
-        .ok_or_else(|| format!("'{s}': expected LO:HI in nm, e.g. 400:700"))?;
-    let lo: f64 = lo
-        .trim()
-        .parse()
-        .map_err(|_| format!("'{lo}': expected a wavelength in nm"))?;
-    let hi: f64 = hi
-        .trim()
-        .parse()
-        .map_err(|_| format!("'{hi}': expected a wavelength in nm"))?;
-    for v in [lo, hi] {
-        crate::ranges::WAVELENGTH_NM
-            .check(v)
-            .map_err(|e| format!("'{s}': {e}"))?;
+    fn parse(args: &[&str]) -> Result<Cli, clap::Error> {
+        Cli::try_parse_from(std::iter::once("unblend").chain(args.iter().copied()))
     }
-    if hi <= lo {
-        return Err(format!("'{s}': expected 0 < LO < HI in nm"));
+
+    #[test]
+    fn the_command_definition_is_consistent() {
+        // clap's own check of the whole definition: duplicate flags, bad
+        // defaults, conflicting groups.
+        Cli::command().debug_assert();
     }
-    Ok((lo, hi))
-}
 
-/// Parse a pathlength in cm inside its plausible range (1 µm to 10 m).
-pub fn parse_pathlength_cm(s: &str) -> Result<f64, String> {
-    crate::ranges::PATHLENGTH_CM.parse(s)
-}
+    #[test]
+    fn model_flags_parse_the_same_in_fit_batch_and_discover() {
+        let flags = [
+            "--pathlength-cm",
+            "0.5",
+            "--baseline",
+            "linear",
+            "--range-nm",
+            "400:700",
+            "--quantity",
+            "transmittance",
+            "--components",
+            "a,b",
+        ];
+        let mut fit = vec!["fit", "in.csv"];
+        let mut batch = vec!["batch", "in.csv"];
+        let mut discover = vec!["discover", "in.csv", "--out", "x.csv"];
+        for v in [&mut fit, &mut batch, &mut discover] {
+            v.extend(flags);
+        }
+        for args in [fit, batch, discover] {
+            let model = match parse(&args).expect("valid command line").command {
+                Command::Fit(a) => a.model,
+                Command::Batch(a) => a.model,
+                Command::Discover(a) => a.model,
+                _ => unreachable!("only fitting subcommands are parsed here"),
+            };
+            let options = crate::fit::FitOptions::try_from(&model).expect("valid options");
+            assert!((options.pathlength_cm - 0.5).abs() < 1e-15, "{args:?}");
+            assert_eq!(options.window_nm.map(|w| w.0.round()), Some(400.0));
+            assert!(matches!(
+                options.baseline,
+                crate::preprocess::Baseline::Linear
+            ));
+            assert_eq!(model.components, ["a", "b"]);
+            assert!(matches!(model.quantity, common::QuantityArg::Transmittance));
+        }
+    }
 
-/// Parse a positive finite number (pathlength, molar mass).
-pub fn parse_positive(s: &str) -> Result<f64, String> {
-    match s.trim().parse::<f64>() {
-        Ok(v) if v.is_finite() && v > 0.0 => Ok(v),
-        _ => Err(format!("'{s}': expected a positive number")),
+    #[test]
+    fn bad_values_are_usage_errors() {
+        for args in [
+            ["fit", "in.csv", "--pathlength-cm", "-1"],
+            ["fit", "in.csv", "--pathlength-cm", "abc"],
+            ["fit", "in.csv", "--range-nm", "700:400"],
+            ["fit", "in.csv", "--range-nm", "400-700"],
+            ["fit", "in.csv", "--baseline", "cubic"],
+            ["fit", "in.csv", "--format", "xml"],
+        ] {
+            let e = parse(&args).expect_err("rejected");
+            assert!(e.use_stderr(), "{args:?}");
+        }
+    }
+
+    #[test]
+    fn summary_commands_accept_table_and_json_only() {
+        let ok = parse(&["library", "check", "--format", "json"]).expect("json accepted");
+        assert!(matches!(ok.command, Command::Library(_)));
+        assert!(parse(&["library", "check", "--format", "csv"]).is_err());
+        assert!(parse(&["discover", "in.csv", "--out", "x.csv", "--format", "csv"]).is_err());
+        match parse(&["discover", "in.csv", "--out", "x.csv"]).map(|c| c.command) {
+            Ok(Command::Discover(a)) => assert_eq!(a.format, common::FormatArg::Table),
+            _ => panic!("discover parses with the default format"),
+        }
     }
 }

@@ -29,7 +29,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         &[crate::guard::Named::new("results", &args.results)],
         &[crate::guard::Named::new("--out", &out)],
     )?;
-    let bytes = super::fit::read_input(&args.results)?;
+    let bytes = super::common::read_input(&args.results)?;
     if is_batch_run(&bytes) {
         return batch_report(&bytes, &shown, &out);
     }

@@ -280,10 +280,97 @@ pub fn validate_name(name: &str) -> Result<()> {
     }
 }
 
+impl RawFile {
+    /// Check format, version, name, ε unit and molar mass; the name.
+    fn checked_head(&self) -> std::result::Result<String, String> {
+        if self.format.as_deref() != Some(FORMAT_NAME) {
+            return Err(format!("expected `format = \"{FORMAT_NAME}\"` at the top"));
+        }
+        match self.format_version {
+            Some(v) if v >= 1 && v <= FORMAT_VERSION => {}
+            Some(v) => {
+                return Err(format!(
+                    "format_version {v} is newer than this unblend reads ({FORMAT_VERSION}): upgrade unblend"
+                ));
+            }
+            None => return Err("missing `format_version`".into()),
+        }
+        let name = self.name.clone().ok_or("missing `name`")?;
+        validate_name(&name).map_err(|e| e.to_string())?;
+        if let Some(u) = self.epsilon_unit.as_deref()
+            && u != "L/(mol*cm)"
+        {
+            return Err(format!("epsilon_unit '{u}': expected \"L/(mol*cm)\""));
+        }
+        if let Some(m) = self.molar_mass_g_per_mol
+            && !(m.is_finite() && m > 0.0)
+        {
+            return Err(format!(
+                "molar_mass_g_per_mol {m}: expected a positive number of g/mol"
+            ));
+        }
+        Ok(name)
+    }
+}
+
+/// The columns of an `[absorptivity]` table.
+struct Points {
+    wavelengths_nm: Vec<f64>,
+    epsilon: Vec<f64>,
+    /// Present when every point has a third number.
+    std_error: Option<Vec<f64>>,
+}
+
+impl RawAbsorptivity {
+    /// The points as columns: at least 2, all of 2 or all of 3 finite
+    /// numbers, ε and its standard error ≥ 0.
+    fn columns(&self) -> std::result::Result<Points, String> {
+        let width = self.points.first().map_or(0, Vec::len);
+        if self.points.len() < 2 {
+            return Err("[absorptivity] points: expected at least 2 points".into());
+        }
+        if !(width == 2 || width == 3) {
+            return Err(format!(
+                "[absorptivity] point 1 has {width} numbers: expected [wavelength_nm, epsilon] or [wavelength_nm, epsilon, std_error]"
+            ));
+        }
+        let mut w = Vec::with_capacity(self.points.len());
+        let mut e = Vec::with_capacity(self.points.len());
+        let mut se = Vec::new();
+        for (i, p) in self.points.iter().enumerate() {
+            if p.len() != width {
+                return Err(format!(
+                    "[absorptivity] point {} has {} numbers, the first has {width}",
+                    i + 1,
+                    p.len()
+                ));
+            }
+            if p.iter().any(|x| !x.is_finite()) || p[1] < 0.0 || (width == 3 && p[2] < 0.0) {
+                return Err(format!(
+                    "[absorptivity] point {} ({:?}): expected finite values and ε ≥ 0",
+                    i + 1,
+                    p
+                ));
+            }
+            w.push(p[0]);
+            e.push(p[1]);
+            if width == 3 {
+                se.push(p[2]);
+            }
+        }
+        Ok(Points {
+            wavelengths_nm: w,
+            epsilon: e,
+            std_error: (width == 3).then_some(se),
+        })
+    }
+}
+
 impl Component {
     /// A component from a curve alone (no provenance beyond `source_kind`),
     /// validated like a file: name, ascending finite wavelengths, ε ≥ 0 and
-    /// not all zero.
+    /// not all zero. Its creation date is empty: the engine never reads the
+    /// clock, the caller gives the date with [`Component::created_on`].
     pub fn from_curve(
         name: &str,
         wavelengths_nm: Vec<f64>,
@@ -316,7 +403,7 @@ impl Component {
             name: name.to_string(),
             molar_mass_g_per_mol: None,
             note: None,
-            created: crate::dates::today_utc(),
+            created: String::new(),
             conditions: Conditions::default(),
             source: Source {
                 kind: source_kind.to_string(),
@@ -330,6 +417,12 @@ impl Component {
         })
     }
 
+    /// The same component with its creation date (`YYYY-MM-DD`) set.
+    pub fn created_on(mut self, date: &str) -> Self {
+        self.created = date.to_string();
+        self
+    }
+
     /// Read a component from the text of its file. `path` is used in messages.
     pub fn from_toml(text: &str, path: &str) -> Result<Self> {
         let bad = |message: String| Error::ComponentFile {
@@ -338,76 +431,16 @@ impl Component {
         };
         let raw: RawFile =
             toml::from_str(text).map_err(|e| bad(e.to_string().trim_end().to_string()))?;
-        if raw.format.as_deref() != Some(FORMAT_NAME) {
-            return Err(bad(format!(
-                "expected `format = \"{FORMAT_NAME}\"` at the top"
-            )));
-        }
-        match raw.format_version {
-            Some(v) if v >= 1 && v <= FORMAT_VERSION => {}
-            Some(v) => {
-                return Err(bad(format!(
-                    "format_version {v} is newer than this unblend reads ({FORMAT_VERSION}): upgrade unblend"
-                )));
-            }
-            None => return Err(bad("missing `format_version`".into())),
-        }
-        let name = raw.name.ok_or_else(|| bad("missing `name`".into()))?;
-        validate_name(&name).map_err(|e| bad(e.to_string()))?;
-        if let Some(u) = raw.epsilon_unit.as_deref()
-            && u != "L/(mol*cm)"
-        {
-            return Err(bad(format!("epsilon_unit '{u}': expected \"L/(mol*cm)\"")));
-        }
-        if let Some(m) = raw.molar_mass_g_per_mol
-            && !(m.is_finite() && m > 0.0)
-        {
-            return Err(bad(format!(
-                "molar_mass_g_per_mol {m}: expected a positive number of g/mol"
-            )));
-        }
+        let name = raw.checked_head().map_err(bad)?;
         let source = raw
             .source
             .ok_or_else(|| bad("missing [source] table".into()))?;
         let abs = raw
             .absorptivity
             .ok_or_else(|| bad("missing [absorptivity] table with `points`".into()))?;
-        let width = abs.points.first().map_or(0, Vec::len);
-        if abs.points.len() < 2 {
-            return Err(bad(
-                "[absorptivity] points: expected at least 2 points".into()
-            ));
-        }
-        if !(width == 2 || width == 3) {
-            return Err(bad(format!(
-                "[absorptivity] point 1 has {width} numbers: expected [wavelength_nm, epsilon] or [wavelength_nm, epsilon, std_error]"
-            )));
-        }
-        let mut w = Vec::with_capacity(abs.points.len());
-        let mut e = Vec::with_capacity(abs.points.len());
-        let mut se = Vec::new();
-        for (i, p) in abs.points.iter().enumerate() {
-            if p.len() != width {
-                return Err(bad(format!(
-                    "[absorptivity] point {} has {} numbers, the first has {width}",
-                    i + 1,
-                    p.len()
-                )));
-            }
-            if p.iter().any(|x| !x.is_finite()) || p[1] < 0.0 || (width == 3 && p[2] < 0.0) {
-                return Err(bad(format!(
-                    "[absorptivity] point {} ({:?}): expected finite values and ε ≥ 0",
-                    i + 1,
-                    p
-                )));
-            }
-            w.push(p[0]);
-            e.push(p[1]);
-            if width == 3 {
-                se.push(p[2]);
-            }
-        }
-        let grid = Grid::new(w).map_err(|x| bad(format!("[absorptivity]: {x}")))?;
+        let points = abs.columns().map_err(bad)?;
+        let grid =
+            Grid::new(points.wavelengths_nm).map_err(|x| bad(format!("[absorptivity]: {x}")))?;
         if let Some(v) = raw.extra.get(CALIBRATION_TABLE) {
             let cal: Calibration = v
                 .clone()
@@ -416,7 +449,7 @@ impl Component {
             cal.validate()
                 .map_err(|e| bad(format!("[calibration]: {e}")))?;
         }
-        if e.iter().all(|&x| x <= 0.0) {
+        if points.epsilon.iter().all(|&x| x <= 0.0) {
             return Err(bad(
                 "every ε value is zero: a reference must absorb somewhere".into(),
             ));
@@ -429,8 +462,8 @@ impl Component {
             conditions: raw.conditions,
             source,
             grid,
-            epsilon_l_per_mol_cm: e,
-            epsilon_std_error_l_per_mol_cm: (width == 3).then_some(se),
+            epsilon_l_per_mol_cm: points.epsilon,
+            epsilon_std_error_l_per_mol_cm: points.std_error,
             extra: raw.extra,
         })
     }
@@ -544,22 +577,8 @@ impl Component {
     }
 }
 
-/// Linear interpolation of `ys` over ascending `xs` at `x`; `None` outside.
-pub fn interpolate(xs: &[f64], ys: &[f64], x: f64) -> Option<f64> {
-    let n = xs.len();
-    if n == 0 || x < xs[0] || x > xs[n - 1] {
-        return None;
-    }
-    let j = xs.partition_point(|&v| v < x);
-    if j < n && (xs[j] - x).abs() <= f64::EPSILON * x.abs() {
-        return Some(ys[j]);
-    }
-    if j == 0 {
-        return Some(ys[0]);
-    }
-    let (x0, x1, y0, y1) = (xs[j - 1], xs[j], ys[j - 1], ys[j]);
-    Some(y0 + (y1 - y0) * (x - x0) / (x1 - x0))
-}
+// The interpolation lives in `preprocess`; re-exported for existing imports.
+pub use crate::preprocess::interpolate;
 
 /// Format a float so TOML reads it back exactly: shortest round-trip form,
 /// always with a decimal point or exponent.
@@ -714,15 +733,6 @@ mod tests {
             e.to_string().contains("[calibration]: missing field"),
             "{e}"
         );
-    }
-
-    #[test]
-    fn interpolation_is_linear_and_bounded() {
-        let xs = [400.0, 500.0];
-        let ys = [0.0, 10.0];
-        assert!((interpolate(&xs, &ys, 450.0).unwrap() - 5.0).abs() < 1e-12);
-        assert!(interpolate(&xs, &ys, 399.0).is_none());
-        assert!((interpolate(&xs, &ys, 500.0).unwrap() - 10.0).abs() < 1e-12);
     }
 
     #[test]

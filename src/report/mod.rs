@@ -13,6 +13,7 @@
 
 pub mod check;
 pub mod plates;
+#[cfg(feature = "png")]
 pub mod png;
 pub mod svg;
 
@@ -20,7 +21,7 @@ use crate::curves::Curves;
 use crate::fit::SampleResult;
 use crate::output::JsonReport;
 use std::fmt::Write;
-use svg::{DASHES, PALETTE, Panel, escape};
+use svg::{DASHES, PALETTE, Panel, Series, escape};
 
 /// Most points per plotted curve (min/max per bucket above this): about
 /// three pixels per point across the 520 px plot area, plenty for UV-vis bands.
@@ -31,7 +32,9 @@ const FIG_W: f64 = 760.0;
 /// Height of a sample figure, px.
 const FIG_H: f64 = 430.0;
 
-/// The fit figure of one sample, as a standalone SVG element.
+/// The fit figure of one sample, as a standalone SVG element: the fit panel
+/// (stacked contributions, measured and fitted), its legend, and the
+/// residual panel.
 pub fn sample_figure(c: &Curves) -> String {
     let mut out = String::with_capacity(24 * 1024);
     let _ = write!(
@@ -41,21 +44,42 @@ pub fn sample_figure(c: &Curves) -> String {
         escape(&c.sample)
     );
     out.push_str(r##"<rect width="100%" height="100%" fill="#fff"/>"##);
-    let w = &c.wavelengths_nm;
-    let n = w.len();
-    if n == 0 {
+    if c.wavelengths_nm.is_empty() {
         out.push_str("</svg>");
         return out;
     }
+    let masked: Vec<usize> = (0..c.wavelengths_nm.len())
+        .filter(|i| c.masked[*i])
+        .collect();
+    fit_panel(&mut out, c, &masked);
+    fit_legend(&mut out, c, masked.len());
+    residual_panel(&mut out, c, &masked);
+    out.push_str("</svg>");
+    out
+}
+
+/// Legend column of the sample figure, px from the left.
+const LEGEND_X: f64 = 600.0;
+
+/// The wavelength range of a figure, nm.
+fn x_range(c: &Curves) -> (f64, f64) {
+    let w = &c.wavelengths_nm;
+    (w[0], w[w.len() - 1])
+}
+
+/// The upper panel: baseline and each component stacked on the ones before
+/// it, measured and fitted curves, masked points as crosses.
+fn fit_panel(out: &mut String, c: &Curves, masked: &[usize]) {
+    let w = &c.wavelengths_nm;
+    let n = w.len();
     let idx = svg::decimate(&c.measured_au, MAX_PLOT_POINTS);
-    // Stack: baseline, then each component on top of the ones before it.
+    let sampled = Series { x: w, idx: &idx };
     let mut layers: Vec<Vec<f64>> = vec![c.baseline_au.clone()];
     for comp in &c.contributions_au {
         let below = layers.last().cloned().unwrap_or_else(|| vec![0.0; n]);
         layers.push(below.iter().zip(&comp.au).map(|(b, a)| b + a).collect());
     }
     let zero = vec![0.0; n];
-    let xr = (w[0], w[n - 1]);
     let yr = svg::range_of(
         c.measured_au
             .iter()
@@ -69,20 +93,18 @@ pub fn sample_figure(c: &Curves) -> String {
         top: 14.0,
         width: 520.0,
         height: 250.0,
-        x: xr,
+        x: x_range(c),
         y: yr,
     };
-    top.axes(&mut out, "", "absorbance (AU)", false);
+    top.axes(out, "", "absorbance (AU)", false);
     // Each layer is one polygon, its outline in the component's dash
     // pattern (the lower edge is the previous layer's top).
     for k in 0..c.contributions_au.len() {
         let colour = PALETTE[k % PALETTE.len()];
         top.band(
-            &mut out,
-            w,
-            &layers[k],
-            &layers[k + 1],
-            &idx,
+            out,
+            &sampled,
+            (&layers[k], &layers[k + 1]),
             &format!(
                 r#"fill="{colour}" fill-opacity="0.35" stroke="{colour}" stroke-width="1" stroke-dasharray="{}""#,
                 DASHES[k % DASHES.len()]
@@ -90,30 +112,26 @@ pub fn sample_figure(c: &Curves) -> String {
         );
     }
     top.line(
-        &mut out,
-        w,
+        out,
+        &sampled,
         &c.measured_au,
-        &idx,
         r##"stroke="#000" stroke-width="1.6""##,
     );
     top.line(
-        &mut out,
-        w,
+        out,
+        &sampled,
         &c.fitted_au,
-        &idx,
         r##"stroke="#D55E00" stroke-width="1.4" stroke-dasharray="5 3""##,
     );
-    let masked: Vec<usize> = (0..n).filter(|i| c.masked[*i]).collect();
-    for &i in &masked {
-        top.cross(
-            &mut out,
-            w[i],
-            c.measured_au[i].clamp(yr.0, yr.1),
-            "#CC79A7",
-        );
+    for &i in masked {
+        top.cross(out, w[i], c.measured_au[i].clamp(yr.0, yr.1), "#CC79A7");
     }
-    // Legend.
-    let lx = 600.0;
+}
+
+/// The legend beside the fit panel: measured, fitted, each component, and
+/// the masked points when there are any.
+fn fit_legend(out: &mut String, c: &Curves, n_masked: usize) {
+    let lx = LEGEND_X;
     let mut ly = 24.0;
     let swatch_line = |y: f64, style: &str| {
         format!(
@@ -146,10 +164,10 @@ pub fn sample_figure(c: &Curves) -> String {
             ),
         ));
     }
-    if !masked.is_empty() {
+    if n_masked > 0 {
         let y = ly + 16.0 * entries.len() as f64;
         entries.push((
-            format!("masked ({})", masked.len()),
+            format!("masked ({n_masked})"),
             format!(
                 r##"<path d="M{} {}l6 6m0 -6l-6 6" stroke="#CC79A7" stroke-width="1.4"/>"##,
                 lx + 8.0,
@@ -167,7 +185,13 @@ pub fn sample_figure(c: &Curves) -> String {
         );
         ly += 16.0;
     }
-    // Residual panel.
+}
+
+/// The lower panel: residuals with the ±2σ noise band.
+fn residual_panel(out: &mut String, c: &Curves, masked: &[usize]) {
+    let w = &c.wavelengths_nm;
+    let n = w.len();
+    let lx = LEGEND_X;
     let sigma = c.noise_au.filter(|s| s.is_finite() && *s > 0.0);
     let band = sigma.map(|s| 2.0 * s).unwrap_or(0.0);
     // Masked points were not fitted: their residual does not set the scale
@@ -182,19 +206,22 @@ pub fn sample_figure(c: &Curves) -> String {
         top: 290.0,
         width: 520.0,
         height: 100.0,
-        x: xr,
+        x: x_range(c),
         y: rr,
     };
-    bottom.axes(&mut out, "wavelength (nm)", "residual (AU)", true);
+    bottom.axes(out, "wavelength (nm)", "residual (AU)", true);
+    let end_points = [0, n - 1];
+    let ends = Series {
+        x: w,
+        idx: &end_points,
+    };
     if let Some(s) = sigma {
         let lo = vec![-2.0 * s; n];
         let hi = vec![2.0 * s; n];
         bottom.band(
-            &mut out,
-            w,
-            &lo,
-            &hi,
-            &[0, n - 1],
+            out,
+            &ends,
+            (&lo, &hi),
             r##"fill="#56B4E9" fill-opacity="0.3" stroke="none""##,
         );
         let _ = write!(
@@ -214,31 +241,18 @@ pub fn sample_figure(c: &Curves) -> String {
             bottom.top + 12.0
         );
     }
-    bottom.line(
-        &mut out,
-        w,
-        &zero,
-        &[0, n - 1],
-        r##"stroke="#444" stroke-width="0.8""##,
-    );
+    let zero = vec![0.0; n];
+    bottom.line(out, &ends, &zero, r##"stroke="#444" stroke-width="0.8""##);
     let ridx = svg::decimate(&c.residual_au, MAX_PLOT_POINTS);
     bottom.line(
-        &mut out,
-        w,
+        out,
+        &Series { x: w, idx: &ridx },
         &c.residual_au,
-        &ridx,
         r##"stroke="#000" stroke-width="1""##,
     );
-    for &i in &masked {
-        bottom.cross(
-            &mut out,
-            w[i],
-            c.residual_au[i].clamp(rr.0, rr.1),
-            "#CC79A7",
-        );
+    for &i in masked {
+        bottom.cross(out, w[i], c.residual_au[i].clamp(rr.0, rr.1), "#CC79A7");
     }
-    out.push_str("</svg>");
-    out
 }
 
 /// A concentration display unit: label and factor from mol/L.
@@ -519,9 +533,8 @@ pub fn references_figure(refs: &crate::reference::ReferenceSet, range_nm: [f64; 
         let idx = svg::decimate(&c.epsilon_l_per_mol_cm, MAX_PLOT_POINTS);
         p.line(
             &mut out,
-            w,
+            &Series { x: w, idx: &idx },
             &c.epsilon_l_per_mol_cm,
-            &idx,
             &format!(
                 r#"stroke="{}" stroke-width="1.6" stroke-dasharray="{}""#,
                 PALETTE[k % PALETTE.len()],

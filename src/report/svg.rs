@@ -121,6 +121,15 @@ pub struct Panel {
     pub y: (f64, f64),
 }
 
+/// The points a curve is drawn through: x values and the indices kept
+/// (see [`decimate`]).
+pub struct Series<'a> {
+    /// x of every point (wavelengths, nm).
+    pub x: &'a [f64],
+    /// Indices of the points drawn, ascending.
+    pub idx: &'a [usize],
+}
+
 impl Panel {
     /// Pixel x of data x.
     pub fn px(&self, x: f64) -> f64 {
@@ -196,31 +205,23 @@ impl Panel {
         );
     }
 
-    /// A polyline through the points `idx` of (x, y).
-    pub fn line(&self, out: &mut String, x: &[f64], y: &[f64], idx: &[usize], style: &str) {
+    /// A polyline through the points `at.idx` of (x, y).
+    pub fn line(&self, out: &mut String, at: &Series, y: &[f64], style: &str) {
         out.push_str(r#"<polyline fill="none" points=""#);
-        for &i in idx {
-            point(out, self.px(x[i]), self.py(y[i]));
+        for &i in at.idx {
+            point(out, self.px(at.x[i]), self.py(y[i]));
         }
         let _ = write!(out, r#"" {style}/>"#);
     }
 
-    /// A filled band between `lo` and `hi` over the points `idx`.
-    pub fn band(
-        &self,
-        out: &mut String,
-        x: &[f64],
-        lo: &[f64],
-        hi: &[f64],
-        idx: &[usize],
-        style: &str,
-    ) {
+    /// A filled band between `lo` and `hi` over the points `at.idx`.
+    pub fn band(&self, out: &mut String, at: &Series, (lo, hi): (&[f64], &[f64]), style: &str) {
         out.push_str(r#"<polygon points=""#);
-        for &i in idx {
-            point(out, self.px(x[i]), self.py(hi[i]));
+        for &i in at.idx {
+            point(out, self.px(at.x[i]), self.py(hi[i]));
         }
-        for &i in idx.iter().rev() {
-            point(out, self.px(x[i]), self.py(lo[i]));
+        for &i in at.idx.iter().rev() {
+            point(out, self.px(at.x[i]), self.py(lo[i]));
         }
         let _ = write!(out, r#"" {style}/>"#);
     }
