@@ -5,18 +5,16 @@
 //!
 //! Every input here is invented or taken from the invented demo data.
 
+mod common;
+
+use common::{BIN, ROOT, Scratch};
 use std::path::{Path, PathBuf};
 use std::process::{Command, Output, Stdio};
 use std::time::{Duration, Instant};
 
-const BIN: &str = env!("CARGO_BIN_EXE_unblend");
-const ROOT: &str = env!("CARGO_MANIFEST_DIR");
-
-fn scratch(tag: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("unblend-harden-{tag}-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).expect("scratch folder");
-    d
+/// A scratch folder for one test, removed when the test ends.
+fn scratch(tag: &str) -> Scratch {
+    Scratch::new(&format!("harden-{tag}"))
 }
 
 fn demo(name: &str) -> PathBuf {
