@@ -41,7 +41,7 @@ pub struct Curves {
     /// (absent when the residual checks were off).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub noise_au: Option<f64>,
-    /// Whether each point was left out of the fit (saturation masking).
+    /// Whether each point was left out of the fit (saturation masking, spikes).
     pub masked: Vec<bool>,
 }
 
@@ -95,6 +95,10 @@ pub fn compute(design: &Design, result: &SampleResult, full_row: &[f64]) -> Opti
                 .masking
                 .as_ref()
                 .is_some_and(|m| m.masked_nm.iter().any(|[lo, hi]| *x >= *lo && *x <= *hi))
+                || result
+                    .spikes_nm
+                    .as_ref()
+                    .is_some_and(|s| s.iter().any(|v| (v - x).abs() <= 1e-9 * x.abs().max(1.0)))
         })
         .collect();
     Some(Curves {

@@ -22,6 +22,7 @@ pub mod batch;
 pub mod calibrate;
 #[cfg(feature = "cli")]
 pub mod cli;
+pub mod colour;
 pub mod curves;
 pub mod dates;
 pub mod diagnostics;
@@ -40,5 +41,6 @@ pub mod separability;
 pub mod solver;
 pub mod spectrum;
 pub mod stats;
+pub mod target;
 
 pub use error::{Error, Result};

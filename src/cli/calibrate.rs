@@ -215,8 +215,8 @@ pub fn run(args: Args) -> Result<u8, Failure> {
                 .map_err(|e| Failure::new(format!("json: {e}")))?;
             print_stdout(&format!("{text}\n"))?;
         }
-        // `summary_format` never gives csv.
-        FormatArg::Table | FormatArg::Csv => {
+        // `summary_format` never gives csv or jsonl.
+        FormatArg::Table | FormatArg::Csv | FormatArg::Jsonl => {
             print_summary(&args, &table.unit, &result, written.as_deref())?
         }
     }

@@ -139,6 +139,8 @@ pub enum FormatArg {
     Csv,
     /// JSON document.
     Json,
+    /// JSON Lines: one JSON object per sample, streamed in input order.
+    Jsonl,
 }
 
 impl From<BaselineArg> for Baseline {
@@ -168,6 +170,7 @@ impl From<FormatArg> for Format {
             FormatArg::Table => Format::Table,
             FormatArg::Csv => Format::Csv,
             FormatArg::Json => Format::Json,
+            FormatArg::Jsonl => Format::JsonLines,
         }
     }
 }

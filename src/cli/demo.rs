@@ -10,6 +10,7 @@ use crate::fit::{FitOptions, fit_file};
 use crate::input::spectra::{self, ReadOptions};
 use crate::output::{self, Format};
 use crate::reference::{Component, ReferenceSet};
+use crate::target::{ColourOptions, QcContext, Target, Tolerances, recipe};
 use std::path::PathBuf;
 
 /// Run the fit on the built-in demo data and write its results.
@@ -40,6 +41,54 @@ pub const DEMO_LIBRARY: &[(&str, &str)] = &[
     ),
 ];
 
+/// The demo's target recipes (invented), as (shade, lot prefix, file text):
+/// copies of `demo-data/targets/*.csv`.
+pub const DEMO_TARGETS: &[(&str, &str, &str)] = &[
+    (
+        "harbour-teal",
+        "lot-2611",
+        include_str!("../../demo-data/targets/harbour-teal.csv"),
+    ),
+    (
+        "autumn-rust",
+        "lot-2612",
+        include_str!("../../demo-data/targets/autumn-rust.csv"),
+    ),
+    (
+        "heather",
+        "lot-2613",
+        include_str!("../../demo-data/targets/heather.csv"),
+    ),
+    (
+        "heather",
+        "lot-2614",
+        include_str!("../../demo-data/targets/heather.csv"),
+    ),
+    (
+        "strong-shade",
+        "lot-2615",
+        include_str!("../../demo-data/targets/strong-shade.csv"),
+    ),
+];
+
+/// The demo's targets resolved against its references, with the lot prefix
+/// each applies to.
+pub fn demo_targets(refs: &ReferenceSet) -> Result<Vec<(&'static str, Target)>, Failure> {
+    DEMO_TARGETS
+        .iter()
+        .map(|(shade, prefix, text)| {
+            let in_file = |e: crate::Error| {
+                Failure::new(format!("(built-in) demo-data/targets/{shade}.csv: {e}"))
+            };
+            let recipe = recipe::read(text.as_bytes()).map_err(in_file)?;
+            let target = recipe
+                .resolve(shade, refs, Tolerances::default())
+                .map_err(in_file)?;
+            Ok((*prefix, target))
+        })
+        .collect()
+}
+
 /// The demo's reference set, parsed from the embedded files.
 pub fn demo_references() -> Result<ReferenceSet, Failure> {
     let mut components = Vec::new();
@@ -64,6 +113,7 @@ pub fn demo_references() -> Result<ReferenceSet, Failure> {
 const DEMO_NOTES: &str = "
 The lot-2614 replicates carry an impurity none of the three references describes: their residual is flagged unexplained-absorbance (see the notes); `unblend fit ... --screen-with DIR` tries candidate spectra on it, `unblend discover` estimates its spectrum.
 The lot-2615 replicates read above 2 AU in the blue band: those points are masked out of the fit (saturation-masked); dilute and re-measure for a confident number.
+Against their targets (demo-data/targets/): lots 2611, 2613 and 2615 pass; lot 2612 carries 9 % too much saffron-yellow and fails on strength (the correction above dilutes it and tops up the other dyes); lot 2614 fails on colour (ΔE00 above 1) and on strength, its impurity biasing the fit.
 At the default alarm rate 1 % of clean samples are flagged by chance: a lone flag with a band of a few tenths of a mAU may be one of them.
 ";
 
@@ -73,7 +123,18 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let file = spectra::read(DEMO_SPECTRA.as_bytes(), ReadOptions::default())
         .map_err(|e| Failure::new(format!("(built-in) demo-data/lot-check.csv: {e}")))?;
     let options = FitOptions::default();
-    let report = fit_file(&file, &refs, &options)?;
+    let mut report = fit_file(&file, &refs, &options)?;
+    let targets = demo_targets(&refs)?;
+    crate::target::apply_to_file(&file, &mut report, |sample| {
+        let (_, target) = targets.iter().find(|(p, _)| sample.starts_with(p))?;
+        Some(QcContext {
+            refs: &refs,
+            target: Some(target),
+            colour: Some(ColourOptions::default()),
+            stock_mol_per_l: &[],
+            batch_volume_l: None,
+        })
+    });
     for w in &report.warnings {
         eprintln!("unblend: warning: {w}");
     }
@@ -81,7 +142,6 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
     let csv = args.out_dir.join("results.csv");
     let json = args.out_dir.join("results.json");
-    let html_path = args.out_dir.join("report.html");
     let mut doc = output::JsonReport::from_report(&report);
     doc.run = Some(output::RunInfo {
         command: "demo".into(),
@@ -91,9 +151,14 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             ["pathlength".into(), format!("{} cm", options.pathlength_cm)],
             ["baseline".into(), "offset".into()],
             ["residual checks".into(), "on (defaults)".into()],
+            [
+                "targets".into(),
+                "(built-in) demo-data/targets/*.csv, one per shade".into(),
+            ],
         ],
     });
     doc.curves = Some(crate::curves::for_file(&file, &refs, &options, &report));
+    let html_path = args.out_dir.join("report.html");
     let html =
         crate::report::render_html(&doc, "unblend demo: lot check of an invented ink workshop");
     // The three files are replaced together: all old or all new.

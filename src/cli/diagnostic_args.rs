@@ -5,7 +5,7 @@ use crate::diagnostics::{self, DEFAULT_MAX_ABSORBANCE_AU, ResidualOptions};
 /// Residual tests and saturation masking.
 #[derive(Debug, Clone, clap::Args)]
 pub struct DiagnosticArgs {
-    /// Noise of the absorbance readings, AU (one standard deviation) [default: estimated from each spectrum's residual].
+    /// Noise of the absorbance readings, AU (one standard deviation) [default: estimated from each spectrum's residual, which also follows smoothing and growth with absorbance]. Give it only when you know it: an underestimate inflates false alarms (5 % low gives about 11 % flagged at a stated 1 %).
     #[arg(long, value_parser = super::common::parse_positive, value_name = "AU")]
     pub noise_au: Option<f64>,
     /// False-alarm rate of the unexplained-absorbance flag: the share of clean samples (white noise) flagged.
@@ -14,6 +14,9 @@ pub struct DiagnosticArgs {
     /// Ceiling in AU: points above it are masked out of the fit (stray light); `none` keeps every point.
     #[arg(long, default_value = "2", value_parser = parse_ceiling, value_name = "AU|none")]
     pub max_absorbance: Ceiling,
+    /// Weights of the readings in the fit: `estimated` (each spectrum's noise growth with absorbance, weighted when it grows) or `none` (every reading the same).
+    #[arg(long, default_value = "estimated", value_parser = parse_weights, value_name = "none|estimated")]
+    pub weights: diagnostics::Weights,
     /// Skip the residual tests (no noise estimate, no unexplained-absorbance flag, no screening).
     #[arg(long)]
     pub no_diagnostics: bool,
@@ -39,6 +42,15 @@ pub fn parse_rate(s: &str) -> Result<f64, String> {
     }
 }
 
+/// Parse `--weights`: `none` or `estimated`.
+pub fn parse_weights(s: &str) -> Result<diagnostics::Weights, String> {
+    match s.trim().to_ascii_lowercase().as_str() {
+        "none" => Ok(diagnostics::Weights::None),
+        "estimated" => Ok(diagnostics::Weights::Estimated),
+        _ => Err(format!("'{s}': expected none or estimated")),
+    }
+}
+
 /// Parse `--max-absorbance`: a positive number of AU, or `none`.
 pub fn parse_ceiling(s: &str) -> Result<Ceiling, String> {
     if s.trim().eq_ignore_ascii_case("none") {
@@ -59,6 +71,7 @@ impl DiagnosticArgs {
             }),
             max_absorbance_au: self.max_absorbance.0,
             candidates: None,
+            weights: self.weights,
         }
     }
 }

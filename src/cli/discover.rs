@@ -86,7 +86,9 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             .map_err(std::io::Error::other)
             .and_then(|_| writeln!(out)),
         // `summary_format` never gives csv.
-        FormatArg::Table | FormatArg::Csv => write_table(&found, &args.out, &mut out),
+        FormatArg::Table | FormatArg::Csv | FormatArg::Jsonl => {
+            write_table(&found, &args.out, &mut out)
+        }
     };
     written.map_err(|e| Failure::new(format!("standard output: {e}")))?;
     Ok(if found.n_failed > 0 {

@@ -6,6 +6,7 @@ use super::common::{
     shown, summary,
 };
 use super::diagnostic_args::DiagnosticArgs;
+use super::qc_args::QcArgs;
 use crate::atomic::{AtomicFile, stage_with};
 use crate::fit::{FitOptions, FitReport, Outcome, StreamError, fit_stream_with};
 use crate::guard::Named;
@@ -37,6 +38,9 @@ pub struct Args {
     /// Residual tests and saturation masking.
     #[command(flatten)]
     pub checks: DiagnosticArgs,
+    /// Lot QC against a target recipe; colour of the solution.
+    #[command(flatten)]
+    pub qc: QcArgs,
     /// Also write a self-contained HTML report (summary, one figure per sample: measured, fitted, stacked component contributions, residual with the ±2σ noise band).
     #[arg(long, value_name = "FILE.html")]
     pub report: Option<PathBuf>,
@@ -74,7 +78,7 @@ pub fn run(mut args: Args) -> Result<u8, Failure> {
         format,
         shown: shown(&args.input),
     };
-    if args.report.is_some() || args.plot.is_some() || args.with_curves {
+    if args.report.is_some() || args.plot.is_some() || args.with_curves || args.qc.active() {
         return run_with_curves(&run);
     }
     // Every line is capped, so an input without line breaks (/dev/zero)
@@ -94,7 +98,9 @@ pub fn run(mut args: Args) -> Result<u8, Failure> {
             emit(&report, format, args.out.as_deref())?;
             Ok(exit_code(&report))
         }
-        Opened::Wide(mut stream) if format == Format::Csv => stream_csv(&mut stream, &run),
+        Opened::Wide(mut stream) if matches!(format, Format::Csv | Format::JsonLines) => {
+            stream_rows(&mut stream, &run)
+        }
         Opened::Wide(mut stream) => fit_wide(&mut stream, &run),
     }
 }
@@ -199,8 +205,15 @@ fn run_with_curves(run: &FitRun) -> Result<u8, Failure> {
     let args = run.args;
     let bytes = read_input(&args.input)?;
     let file = spectra::read(&bytes, args.model.read_options()).map_err(|e| run.context(e))?;
-    let report = crate::fit::fit_file_with(&file, &run.refs.set, &run.options, &run.checks)
+    let mut report = crate::fit::fit_file_with(&file, &run.refs.set, &run.options, &run.checks)
         .map_err(|e| run.context(e))?;
+    if let Some(qc) = args.qc.setup(&run.refs.set)? {
+        let context = |_: &str| Some(qc.context(&run.refs.set));
+        crate::target::apply_to_file(&file, &mut report, context);
+    }
+    if let Some(path) = &args.qc.qc_csv {
+        crate::atomic::write_with(path, false, |w| output::qc::write_qc_csv(&report, w))?;
+    }
     let curves = crate::curves::for_file(&file, &run.refs.set, &run.options, &report);
     let mut doc = output::JsonReport::from_report(&report);
     doc.run = Some(run_info(args, &run.shown, &run.refs.dir));
@@ -357,6 +370,7 @@ fn run_info(args: &Args, shown: &str, library: &std::path::Path) -> output::RunI
     if let Some(d) = &args.screen_with {
         options.push(["screening library".to_string(), d.display().to_string()]);
     }
+    options.extend(args.qc.run_info());
     output::RunInfo {
         command: "fit".into(),
         input: shown.to_string(),
@@ -365,9 +379,9 @@ fn run_info(args: &Args, shown: &str, library: &std::path::Path) -> output::RunI
     }
 }
 
-/// Fit a wide file chunk by chunk and write tidy CSV as it goes, so memory
-/// stays bounded for any number of spectra.
-fn stream_csv<R: Read + Send>(stream: &mut WideStream<R>, run: &FitRun) -> Result<u8, Failure> {
+/// Fit a wide file chunk by chunk and write tidy CSV or JSON Lines as it
+/// goes, so memory stays bounded for any number of spectra.
+fn stream_rows<R: Read + Send>(stream: &mut WideStream<R>, run: &FitRun) -> Result<u8, Failure> {
     let out = run.args.out.as_deref();
     let (refs, options, checks) = (&run.refs.set, &run.options, &run.checks);
     let mut total = 0usize;
@@ -375,7 +389,9 @@ fn stream_csv<R: Read + Send>(stream: &mut WideStream<R>, run: &FitRun) -> Resul
     let mut engine_error: Option<crate::Error> = None;
     let mut warnings = Vec::new();
     let mut body = |w: &mut (dyn Write + Send)| -> std::io::Result<()> {
-        writeln!(w, "{}", output::CSV_HEADER)?;
+        if run.format == Format::Csv {
+            writeln!(w, "{}", output::CSV_HEADER)?;
+        }
         // Formatting runs here (in parallel); a writer thread does the I/O
         // so the next chunk's fit overlaps this chunk's write.
         std::thread::scope(|scope| {
@@ -397,7 +413,10 @@ fn stream_csv<R: Read + Send>(stream: &mut WideStream<R>, run: &FitRun) -> Resul
                     .iter()
                     .filter(|o| matches!(o, Outcome::Failed(_)))
                     .count();
-                let parts = output::csv_row_parts(&chunk);
+                let parts = match run.format {
+                    Format::JsonLines => output::jsonl::line_parts(&chunk),
+                    _ => output::csv_row_parts(&chunk),
+                };
                 tx.send((parts, chunk))
                     .map_err(|_| std::io::Error::other("the output writer stopped"))
             });

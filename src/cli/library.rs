@@ -411,7 +411,7 @@ fn check(a: CheckArgs) -> Result<u8, Failure> {
             print_stdout(&format!("{text}\n"))?;
         }
         // `summary_format` never gives csv.
-        FormatArg::Table | FormatArg::Csv => print_check(&report)?,
+        FormatArg::Table | FormatArg::Csv | FormatArg::Jsonl => print_check(&report)?,
     }
     if let Some(path) = &a.report {
         let html = crate::report::render_check_html(&refs, &report, &dir.display().to_string());

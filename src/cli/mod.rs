@@ -12,6 +12,7 @@ pub mod diagnostic_args;
 pub mod discover;
 pub mod fit;
 pub mod library;
+pub mod qc_args;
 pub mod report;
 pub mod stdout;
 
@@ -106,12 +107,16 @@ impl From<crate::Error> for Failure {
 
 /// Parse the command line, run it, and return the exit code.
 pub fn main() -> ExitCode {
-    // An interrupted run removes its temporary files; the outputs it was
-    // writing keep their previous content, or, past the commit point, the
-    // run finishes (see `atomic::on_interrupt`). If the handler cannot be
-    // installed the default applies: the process stops at once and
-    // temporaries stay behind (the next run removes them), but no output is
-    // ever half written.
+    interrupt_removes_temporaries();
+    ExitCode::from(main_from(std::env::args_os()))
+}
+
+/// Make Ctrl-C (SIGINT, SIGTERM) end the process removing its temporary
+/// files. An interrupted run's outputs keep their previous content, or,
+/// past the commit point, the run finishes (see `atomic::on_interrupt`). If the handler cannot be installed the default applies: the
+/// process stops at once and temporaries stay behind, but no output is ever
+/// half written. For a process that is only this command (not a notebook).
+pub fn interrupt_removes_temporaries() {
     let _ = ctrlc::set_handler(|| match crate::atomic::on_interrupt() {
         crate::atomic::Interrupt::Finish(message) => eprintln!("unblend: {message}"),
         crate::atomic::Interrupt::Exit(message) => {
@@ -119,22 +124,32 @@ pub fn main() -> ExitCode {
             std::process::exit(i32::from(exit::INTERRUPTED))
         }
     });
-    let cli = match Cli::try_parse() {
+}
+
+/// Parse a command line (its first item is the program name), run it,
+/// print any error, and return the exit code: [`main`] without the
+/// interrupt handler, for callers such as the Python package's `unblend`.
+pub fn main_from<I, T>(args: I) -> u8
+where
+    I: IntoIterator<Item = T>,
+    T: Into<std::ffi::OsString> + Clone,
+{
+    let cli = match Cli::try_parse_from(args) {
         Ok(c) => c,
         Err(e) => {
             let _ = e.print();
-            return ExitCode::from(if e.use_stderr() {
+            return if e.use_stderr() {
                 exit::USAGE
             } else {
                 exit::OK
-            });
+            };
         }
     };
     match run(cli) {
-        Ok(code) => ExitCode::from(code),
+        Ok(code) => code,
         Err(f) => {
             eprintln!("unblend: error: {}", f.message);
-            ExitCode::from(f.code)
+            f.code
         }
     }
 }

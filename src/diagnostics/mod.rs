@@ -43,14 +43,21 @@
 //! Either way a clean sample with white Gaussian noise is flagged with
 //! probability α.
 
+pub mod band;
 pub mod mask;
+pub mod noise;
 pub mod screen;
+pub mod serial;
 pub mod stats;
 
 use crate::error::{Error, Result};
 use crate::reference::ReferenceSet;
 use serde::{Deserialize, Serialize};
 use std::borrow::Cow;
+
+pub use band::{BAND_SMOOTH_HALF_WIDTH, Band, largest_bands};
+use serial::durbin_watson_of;
+pub use serial::{RunsTest, SerialMoments, durbin_watson, runs_test, square_sums};
 
 /// Default false-alarm rate of the unexplained-absorbance flag.
 pub const DEFAULT_ALARM_RATE: f64 = 0.01;
@@ -63,10 +70,6 @@ pub const DEFAULT_MAX_ABSORBANCE_AU: f64 = 2.0;
 /// 1/Φ⁻¹(3/4): turns a median absolute deviation into a Gaussian σ
 /// (Hampel 1974; Φ⁻¹(0.75) = 0.6744897501960817 from scipy.stats.norm.ppf).
 pub const MAD_TO_SIGMA: f64 = 1.482_602_218_505_602;
-
-/// Half-width, in points, of the moving average used to read a band's
-/// peak and width (9 points in all: 9 nm on a 1 nm grid).
-pub const BAND_SMOOTH_HALF_WIDTH: usize = 4;
 
 /// Flag: the residual is more than noise at the alarm rate.
 pub const FLAG_UNEXPLAINED: &str = "unexplained-absorbance";
@@ -99,6 +102,20 @@ pub struct Options {
     pub max_absorbance_au: Option<f64>,
     /// Candidate components tried on flagged samples (`--screen-with`).
     pub candidates: Option<ReferenceSet>,
+    /// How the readings are weighted in the fit.
+    pub weights: Weights,
+}
+
+/// How the readings are weighted in the fit.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum Weights {
+    /// Every reading counts the same (ordinary least squares).
+    None,
+    /// Each spectrum's noise growth with absorbance is estimated
+    /// ([`noise::growth`]); when it grows measurably the spectrum is refitted
+    /// with weights 1/σᵢ² (generalised least squares, Aitken 1935).
+    #[default]
+    Estimated,
 }
 
 impl Default for Options {
@@ -107,6 +124,7 @@ impl Default for Options {
             residual: Some(ResidualOptions::default()),
             max_absorbance_au: Some(DEFAULT_MAX_ABSORBANCE_AU),
             candidates: None,
+            weights: Weights::Estimated,
         }
     }
 }
@@ -118,6 +136,7 @@ impl Options {
             residual: None,
             max_absorbance_au: None,
             candidates: None,
+            weights: Weights::None,
         }
     }
 
@@ -147,43 +166,6 @@ impl Options {
         }
         Ok(())
     }
-}
-
-/// The runs test on the signs of the residual.
-#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
-pub struct RunsTest {
-    /// Number of runs of equal sign.
-    pub runs: usize,
-    /// Runs expected under random signs.
-    pub expected_runs: f64,
-    /// One-sided p-value for too few runs (normal approximation with
-    /// continuity correction).
-    pub p_value: f64,
-}
-
-/// The largest coherent band in the residual.
-#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
-pub struct Band {
-    /// Centroid of the band, nm.
-    pub centre_nm: f64,
-    /// Wavelength of the band's extreme (smoothed residual), nm.
-    pub peak_nm: f64,
-    /// Smoothed residual at the extreme, AU: positive when the spectrum
-    /// absorbs more than the fit (an unexplained absorber), negative when less
-    /// (smoothed over about half the band's standard deviation, at least 9 points).
-    pub peak_au: f64,
-    /// Full width at half the extreme, nm.
-    pub fwhm_nm: f64,
-    /// First wavelength of the segment where the residual keeps its sign on average, nm.
-    pub low_nm: f64,
-    /// Last wavelength of that segment, nm.
-    pub high_nm: f64,
-    /// Integrated residual over the segment, AU·nm.
-    pub area_au_nm: f64,
-    /// |area| over (fitted component absorbance area + |area|): the share of
-    /// the absorbance this band carries (a lower bound for an impurity, since
-    /// the references take up part of it).
-    pub signal_fraction: f64,
 }
 
 /// The residual diagnostics of one sample.
@@ -224,6 +206,28 @@ pub struct Residual {
     /// fit); present when the sample is flagged.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub negative_band: Option<Band>,
+    /// Readings that share noise (instrument smoothing), when the noise is
+    /// correlated between neighbours; absent for white noise.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub noise_span_readings: Option<f64>,
+    /// Correlation between neighbouring readings' noise (moving-average
+    /// model), when correlated.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub lag1_correlation: Option<f64>,
+    /// Readings summed per block for the serial test (correlated noise).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub block_readings: Option<usize>,
+    /// Factor applied to the standard errors for correlated noise, √(f₀/σ̂²).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub std_error_factor: Option<f64>,
+    /// Share of the noise variance at 0 AU that is constant in transmittance
+    /// (σ² ∝ 1 + h·10^(2A), share h/(1 + h)); present when the noise grows
+    /// with absorbance and the fit was weighted.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub noise_transmittance_share: Option<f64>,
+    /// The fit is exact (residual at rounding level): not tested.
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub exact_fit: bool,
 }
 
 impl Residual {
@@ -300,242 +304,17 @@ pub fn noise_au_with(wavelengths_nm: &[f64], r: &[f64], uniform: bool) -> Option
     if n < 3 {
         return None;
     }
-    thread_local! {
-        // One buffer per thread: a fit examines every sample, and a fresh
-        // vector per sample costs as much as the selection.
-        static BITS: std::cell::RefCell<Vec<u64>> = const { std::cell::RefCell::new(Vec::new()) };
-    }
-    BITS.with_borrow_mut(|bits| {
-        bits.clear();
-        if uniform {
-            let even = 1.0 / 1.5f64.sqrt();
-            bits.extend(
-                r[..n]
-                    .windows(3)
-                    .map(|t| ((0.5 * (t[0] + t[2]) - t[1]) * even).abs().to_bits()),
-            );
-        } else {
-            bits.extend(
-                pseudo_residuals(wavelengths_nm, r)
-                    .iter()
-                    .map(|v| v.abs().to_bits()),
-            );
-        }
-        let mid = bits.len() / 2;
-        let (_, med, _) = bits.select_nth_unstable(mid);
-        Some(MAD_TO_SIGMA * f64::from_bits(*med))
-    })
-}
-
-/// Durbin–Watson statistic Σ(rᵢ − rᵢ₋₁)² / Σrᵢ²; `None` for a zero residual.
-pub fn durbin_watson(r: &[f64]) -> Option<f64> {
-    let (ss, num) = square_sums(r);
-    durbin_watson_of(ss, num, r.len())
-}
-
-/// [`durbin_watson`] from the sums of [`square_sums`] over `n` points.
-fn durbin_watson_of(ss: f64, num: f64, n: usize) -> Option<f64> {
-    (ss > 0.0 && ss.is_finite() && n >= 2).then(|| num / ss)
-}
-
-/// Σrᵢ² and Σ(rᵢ − rᵢ₋₁)², each kept in four partial sums taken in turn, so
-/// that consecutive additions do not wait for each other (one running sum
-/// makes the pass as slow as the adder's latency). Fixed order: the same
-/// bits on every run and thread count.
-pub fn square_sums(r: &[f64]) -> (f64, f64) {
-    let mut ss = [0.0f64; 4];
-    let mut dd = [0.0f64; 4];
-    let sq = r.chunks_exact(4);
-    let tail = sq.remainder();
-    for c in sq {
-        for l in 0..4 {
-            ss[l] += c[l] * c[l];
-        }
-    }
-    let mut ss_sum = (ss[0] + ss[1]) + (ss[2] + ss[3]);
-    for v in tail {
-        ss_sum += v * v;
-    }
-    if r.len() < 2 {
-        return (ss_sum, 0.0);
-    }
-    let (later, earlier) = (&r[1..], &r[..r.len() - 1]);
-    let pairs = later.chunks_exact(4).zip(earlier.chunks_exact(4));
-    for (a, b) in pairs {
-        for l in 0..4 {
-            let d = a[l] - b[l];
-            dd[l] += d * d;
-        }
-    }
-    let done = later.len() / 4 * 4;
-    let mut dd_sum = (dd[0] + dd[1]) + (dd[2] + dd[3]);
-    for (a, b) in later[done..].iter().zip(&earlier[done..]) {
-        dd_sum += (a - b) * (a - b);
-    }
-    (ss_sum, dd_sum)
-}
-
-/// Wald–Wolfowitz runs test for too few runs of residual signs.
-pub fn runs_test(r: &[f64]) -> Option<RunsTest> {
-    // Signs of a noisy residual are random, so count without branches; exact
-    // zeros (no sign) are rare and take the filtered path.
-    let (n1, n2, runs) = match sign_runs(r) {
-        Some(counts) => counts,
-        None => {
-            let kept: Vec<f64> = r.iter().copied().filter(|v| *v != 0.0).collect();
-            sign_runs(&kept).unwrap_or((0.0, 0.0, 0))
-        }
-    };
-    if n1 < 1.0 || n2 < 1.0 {
-        return None;
-    }
-    let n = n1 + n2;
-    let mu = 1.0 + 2.0 * n1 * n2 / n;
-    let var = 2.0 * n1 * n2 * (2.0 * n1 * n2 - n) / (n * n * (n - 1.0));
-    if var.is_nan() || var <= 0.0 {
-        return None;
-    }
-    let z = (runs as f64 - mu + 0.5) / var.sqrt();
-    Some(RunsTest {
-        runs,
-        expected_runs: mu,
-        p_value: stats::normal_cdf(z),
-    })
-}
-
-/// (positive count, negative count, runs) of a residual; `None` when it
-/// holds exact zeros (no sign), which the caller leaves out first. One pass
-/// that counts the zeros as it goes.
-fn sign_runs(r: &[f64]) -> Option<(f64, f64, usize)> {
-    let Some(first) = r.first() else {
-        return Some((0.0, 0.0, 0));
-    };
-    let mut prev = usize::from(*first > 0.0);
-    let (mut pos, mut changes) = (prev, 0usize);
-    let mut zeros = usize::from(*first == 0.0);
-    for v in &r[1..] {
-        let s = usize::from(*v > 0.0);
-        zeros += usize::from(*v == 0.0);
-        pos += s;
-        changes += s ^ prev;
-        prev = s;
-    }
-    (zeros == 0).then(|| (pos as f64, (r.len() - pos) as f64, changes + 1))
-}
-
-/// The pieces of the Durbin–Watson moments that depend only on the design:
-/// G = XᵀX, B = (DX)ᵀ(DX) = XᵀAX and C = (AX)ᵀ(AX) = XᵀA²X, for the
-/// (column-scaled) design X and the first-difference matrix D (A = DᵀD).
-#[derive(Debug, Clone)]
-pub struct SerialMoments {
-    n: usize,
-    p: usize,
-    gram: Vec<f64>,
-    b: Vec<f64>,
-    c: Vec<f64>,
-    /// The moments with every column free (the usual case), computed once.
-    all_free: Option<(f64, f64, usize)>,
-    /// The moments per passive set (bitmask), computed on first use and
-    /// shared by every thread (designs of up to [`MOMENT_CACHE_BITS`] columns).
-    by_mask: Vec<std::sync::OnceLock<Option<(f64, f64, usize)>>>,
-}
-
-/// Designs with at most this many columns cache their Durbin–Watson moments
-/// per passive set (2¹⁴ slots at most).
-const MOMENT_CACHE_BITS: usize = 14;
-
-impl SerialMoments {
-    /// From column-major columns (`p` columns of `n` points).
-    pub fn new(columns: &[f64], n: usize, p: usize) -> Self {
-        let mut dx = vec![0.0; (n.saturating_sub(1)) * p];
-        let mut ax = vec![0.0; n * p];
-        for j in 0..p {
-            let x = &columns[j * n..(j + 1) * n];
-            for i in 0..n.saturating_sub(1) {
-                dx[j * (n - 1) + i] = x[i + 1] - x[i];
-            }
-            // A·x = Dᵀ(D·x).
-            for i in 0..n {
-                let left = if i > 0 { dx[j * (n - 1) + i - 1] } else { 0.0 };
-                let right = if i + 1 < n { dx[j * (n - 1) + i] } else { 0.0 };
-                ax[j * n + i] = left - right;
-            }
-        }
-        let dot = |u: &[f64], v: &[f64]| u.iter().zip(v).map(|(a, b)| a * b).sum::<f64>();
-        let m = n.saturating_sub(1);
-        let mut gram = vec![0.0; p * p];
-        let mut b = vec![0.0; p * p];
-        let mut c = vec![0.0; p * p];
-        for i in 0..p {
-            for k in i..p {
-                let g = dot(&columns[i * n..(i + 1) * n], &columns[k * n..(k + 1) * n]);
-                let bb = dot(&dx[i * m..(i + 1) * m], &dx[k * m..(k + 1) * m]);
-                let cc = dot(&ax[i * n..(i + 1) * n], &ax[k * n..(k + 1) * n]);
-                for (mat, v) in [(&mut gram, g), (&mut b, bb), (&mut c, cc)] {
-                    mat[i * p + k] = v;
-                    mat[k * p + i] = v;
-                }
-            }
-        }
-        let mut m = SerialMoments {
-            n,
-            p,
-            gram,
-            b,
-            c,
-            all_free: None,
-            by_mask: if p <= MOMENT_CACHE_BITS {
-                (0..1usize << p)
-                    .map(|_| std::sync::OnceLock::new())
-                    .collect()
-            } else {
-                Vec::new()
-            },
-        };
-        m.all_free = m.compute(&vec![true; p]);
-        m
-    }
-
-    /// Exact mean and variance of d under white noise for the columns in
-    /// `passive` (the free parameters), and the residual degrees of freedom.
-    pub fn durbin_watson(&self, passive: &[bool]) -> Option<(f64, f64, usize)> {
-        if passive.iter().all(|b| *b) {
-            return self.all_free;
-        }
-        if self.by_mask.is_empty() || passive.len() != self.p {
-            return self.compute(passive);
-        }
-        let mask = passive
-            .iter()
-            .enumerate()
-            .fold(0usize, |m, (j, &b)| if b { m | (1 << j) } else { m });
-        *self.by_mask[mask].get_or_init(|| self.compute(passive))
-    }
-
-    fn compute(&self, passive: &[bool]) -> Option<(f64, f64, usize)> {
-        let idx: Vec<usize> = (0..self.p).filter(|&j| passive[j]).collect();
-        let m = idx.len();
-        let n = self.n;
-        if n < m + 3 {
-            return None;
-        }
-        let nu = (n - m) as f64;
-        let tr_a = 2.0 * (n as f64 - 1.0);
-        let tr_a2 = 6.0 * n as f64 - 8.0;
-        let (mut p_tr, mut q_tr) = (tr_a, tr_a2);
-        if m > 0 {
-            let sub = |mat: &[f64]| {
-                nalgebra::DMatrix::from_fn(m, m, |r, c| mat[idx[r] * self.p + idx[c]])
-            };
-            let g = sub(&self.gram).cholesky()?;
-            let gb = g.solve(&sub(&self.b));
-            let gc = g.solve(&sub(&self.c));
-            p_tr -= gb.trace();
-            q_tr += -2.0 * gc.trace() + (&gb * &gb).trace();
-        }
-        let mean = p_tr / nu;
-        let var = 2.0 * (q_tr - p_tr * mean) / (nu * (nu + 2.0));
-        (mean.is_finite() && var > 0.0).then_some((mean, var, n - m))
+    // One selection buffer per thread (noise::mad_sigma): a fit examines
+    // every sample, and a fresh vector per sample costs as much as the selection.
+    if uniform {
+        let even = 1.0 / 1.5f64.sqrt();
+        noise::mad_sigma(
+            r[..n]
+                .windows(3)
+                .map(|t| (0.5 * (t[0] + t[2]) - t[1]) * even),
+        )
+    } else {
+        noise::mad_sigma(pseudo_residuals(wavelengths_nm, r).into_iter())
     }
 }
 
@@ -555,6 +334,11 @@ pub struct View<'a> {
     pub uniform_step: bool,
 }
 
+/// Below this ratio of residual to signal RMS a fit is exact: what is left
+/// is the rounding of the arithmetic (about 1e-16 relative) or of an export
+/// with at least nine significant digits, not noise, and is not tested.
+pub const EXACT_FIT_RELATIVE: f64 = 1e-9;
+
 /// Test one fitted spectrum `a` with solution `x` (unscaled) against noise.
 pub fn examine(view: View<'_>, a: &[f64], x: &[f64], opts: &ResidualOptions) -> Residual {
     let r = residual(a, view.columns, x);
@@ -566,33 +350,40 @@ pub fn examine(view: View<'_>, a: &[f64], x: &[f64], opts: &ResidualOptions) -> 
         .collect();
     let n_free = passive.iter().filter(|b| **b).count();
     let (rss, diff_ss) = square_sums(&r);
-    let (noise, source) = match opts.noise_au {
-        Some(s) => (Some(s), "given"),
-        None => (
-            noise_au_with(view.wavelengths_nm, &r, view.uniform_step),
-            "estimated",
-        ),
+    let near = noise_au_with(view.wavelengths_nm, &r, view.uniform_step);
+    let model = near.map(|s| noise::estimate(&r, s));
+    let (noise, source) = match (opts.noise_au, model) {
+        (Some(s), _) => (Some(s), "given"),
+        (None, m) => (m.map(|m| m.sigma_au), "estimated"),
     };
     let sigma = noise.unwrap_or(0.0);
+    let correlated = model.is_some_and(|m| m.correlated());
     let nu = n.saturating_sub(n_free);
     let chi2 = (sigma > 0.0 && nu > 0).then(|| rss / (sigma * sigma));
     let reduced = chi2.map(|c| c / nu as f64);
+    // The χ² test needs white noise of the given σ: under correlated noise
+    // RSS/σ² is no longer χ²(ν), so only the serial test decides.
     let chi_p = match (opts.noise_au, chi2) {
-        (Some(_), Some(c)) => Some(stats::chi_squared_sf(c, nu as f64)),
+        (Some(_), Some(c)) if !correlated => Some(stats::chi_squared_sf(c, nu as f64)),
         _ => None,
     };
     let d = durbin_watson_of(rss, diff_ss, n);
     let moments = view.moments.durbin_watson(&passive);
-    let d_p = match (d, moments) {
-        (Some(d), Some((mean, var, _))) => stats::beta_cdf_matched(d, 0.0, 4.0, mean, var),
-        _ => None,
+    let serial = match model.filter(|m| m.correlated()) {
+        Some(m) => blocked_test(view.moments, &r, &passive, m),
+        None => Serial::plain(d, moments),
     };
-    let alarm_p_value = match (d_p, chi_p) {
+    let exact = rss.sqrt() <= EXACT_FIT_RELATIVE * square_sums(a).0.sqrt();
+    let alarm_p_value = match (serial.p_value, chi_p) {
+        _ if exact => None,
         (Some(pd), Some(pc)) => Some(1.0 - (1.0 - pd.min(pc)).powi(2)),
         (Some(pd), None) => Some(pd),
         (None, Some(pc)) => Some(pc),
         (None, None) => None,
     };
+    let factor = model
+        .filter(|m| m.correlated())
+        .and_then(|m| std_error_factor(&r, m, serial.block, n_free, rss));
     let mut out = Residual {
         noise_au: sigma,
         noise_source: Cow::Borrowed(source),
@@ -600,12 +391,20 @@ pub fn examine(view: View<'_>, a: &[f64], x: &[f64], opts: &ResidualOptions) -> 
         chi_squared_p_value: chi_p,
         durbin_watson: d,
         durbin_watson_expected: moments.map(|m| m.0),
-        durbin_watson_p_value: d_p,
+        durbin_watson_p_value: serial.p_value,
         runs: runs_test(&r),
         alarm_rate: opts.alarm_rate,
         alarm_p_value,
         band: None,
         negative_band: None,
+        noise_span_readings: model.filter(|m| m.correlated()).map(|m| m.span_readings),
+        lag1_correlation: model
+            .filter(|m| m.correlated())
+            .map(|m| m.lag1_correlation()),
+        block_readings: (serial.block > 1).then_some(serial.block),
+        std_error_factor: factor,
+        noise_transmittance_share: None,
+        exact_fit: exact,
     };
     if out.flagged() {
         let k = view.n_components.min(x.len());
@@ -617,132 +416,62 @@ pub fn examine(view: View<'_>, a: &[f64], x: &[f64], opts: &ResidualOptions) -> 
     out
 }
 
-/// Integration weights (trapezoid) for a grid, nm.
-fn weights_nm(w: &[f64]) -> Vec<f64> {
-    let n = w.len();
-    if n < 2 {
-        return vec![1.0; n];
-    }
-    (0..n)
-        .map(|i| {
-            let lo = if i == 0 {
-                w[0]
-            } else {
-                0.5 * (w[i - 1] + w[i])
-            };
-            let hi = if i + 1 == n {
-                w[n - 1]
-            } else {
-                0.5 * (w[i] + w[i + 1])
-            };
-            hi - lo
-        })
-        .collect()
+/// The serial-correlation test's outcome: its p-value and the block length
+/// it ran on (1: the readings themselves).
+struct Serial {
+    p_value: Option<f64>,
+    block: usize,
 }
 
-/// The largest coherent bands of a residual, positive (the spectrum absorbs
-/// more than the fit: unexplained absorbance) and negative (it reads below
-/// the fit: over-fitted references, stray light). Each is the contiguous
-/// segment with the largest Σ rᵢ·Δλᵢ of that sign (Kadane's maximum
-/// subarray). `explained` is the fitted component absorbance, for the
-/// band's share of the signal.
-pub fn largest_bands(w: &[f64], r: &[f64], explained: &[f64]) -> (Option<Band>, Option<Band>) {
-    let n = r.len();
-    if n < 3 || w.len() != n || explained.len() != n {
-        return (None, None);
+impl Serial {
+    /// Durbin–Watson on the readings, with the design's exact moments.
+    fn plain(d: Option<f64>, moments: Option<(f64, f64, usize)>) -> Self {
+        let p_value = match (d, moments) {
+            (Some(d), Some((mean, var, _))) => stats::beta_cdf_matched(d, 0.0, 4.0, mean, var),
+            _ => None,
+        };
+        Serial { p_value, block: 1 }
     }
-    let wt = weights_nm(w);
-    let explained_area: f64 = explained.iter().zip(&wt).map(|(e, q)| e * q).sum();
-    let band = |sign: f64| {
-        let (mut best, mut lo, mut hi) = (0.0, 0, 0);
-        let (mut run, mut run_lo) = (0.0, 0);
-        for i in 0..n {
-            let v = sign * r[i] * wt[i];
-            if run <= 0.0 {
-                run = v;
-                run_lo = i;
-            } else {
-                run += v;
-            }
-            if run > best {
-                best = run;
-                lo = run_lo;
-                hi = i;
-            }
-        }
-        (best > 0.0).then(|| describe_band(w, r, &wt, sign, lo, hi, best, explained_area))
-    };
-    (band(1.0), band(-1.0))
 }
 
-/// Describe the residual segment `lo..=hi` of sign `sign` and area `area_abs`.
-#[allow(clippy::too_many_arguments)]
-fn describe_band(
-    w: &[f64],
+/// Durbin–Watson on block sums of the residual (correlated noise, see
+/// [`noise`]), its moments those of the block-summed design with mean and
+/// SD scaled by (1 − ρ_B).
+fn blocked_test(
+    moments: &SerialMoments,
     r: &[f64],
-    wt: &[f64],
-    sign: f64,
-    lo: usize,
-    hi: usize,
-    area_abs: f64,
-    explained_area: f64,
-) -> Band {
-    let n = r.len();
-    // Smooth over about half the band's standard deviation (its second
-    // moment over the segment; at least 9 points) so the peak and the
-    // half-height crossings follow the band, not the noise. A box of width
-    // σ/2 widens a Gaussian by about 1 %.
-    let mass: f64 = (lo..=hi).map(|i| sign * r[i] * wt[i]).sum();
-    let centre: f64 = (lo..=hi).map(|i| w[i] * sign * r[i] * wt[i]).sum::<f64>() / mass;
-    let spread = ((lo..=hi)
-        .map(|i| (w[i] - centre).powi(2) * (sign * r[i]).max(0.0) * wt[i])
-        .sum::<f64>()
-        / mass)
-        .max(0.0)
-        .sqrt();
-    let step_nm = (w[n - 1] - w[0]) / (n - 1) as f64;
-    let h = BAND_SMOOTH_HALF_WIDTH.max((0.25 * spread / step_nm) as usize);
-    let smooth: Vec<f64> = (0..n)
-        .map(|i| {
-            let (a, b) = (i.saturating_sub(h), (i + h).min(n - 1));
-            r[a..=b].iter().sum::<f64>() / (b - a + 1) as f64
-        })
-        .collect();
-    let peak = (lo..=hi).fold(lo, |m, i| {
-        if sign * smooth[i] > sign * smooth[m] {
-            i
-        } else {
-            m
-        }
-    });
-    let top = sign * smooth[peak];
-    let crossing = |step: isize| -> f64 {
-        let mut i = peak as isize;
-        loop {
-            let j = i + step;
-            if j < 0 || j >= n as isize {
-                return w[i as usize];
-            }
-            let (vi, vj) = (sign * smooth[i as usize], sign * smooth[j as usize]);
-            if vj < 0.5 * top {
-                let t = (vi - 0.5 * top) / (vi - vj);
-                return w[i as usize] + t * (w[j as usize] - w[i as usize]);
-            }
-            i = j;
-        }
+    passive: &[bool],
+    model: noise::NoiseEstimate,
+) -> Serial {
+    let m = model.block_readings(r.len());
+    let Some(blocked) = moments.blocked(m) else {
+        return Serial::plain(durbin_watson(r), moments.durbin_watson(passive));
     };
-    let weighted: f64 = (lo..=hi).map(|i| w[i] * sign * r[i] * wt[i]).sum();
-    let total = explained_area.max(0.0) + area_abs;
-    Band {
-        centre_nm: (weighted / area_abs).clamp(w[lo], w[hi]),
-        peak_nm: w[peak],
-        peak_au: smooth[peak],
-        fwhm_nm: (crossing(1) - crossing(-1)).max(0.0),
-        low_nm: w[lo],
-        high_nm: w[hi],
-        area_au_nm: sign * area_abs,
-        signal_fraction: if total > 0.0 { area_abs / total } else { 0.0 },
-    }
+    let sums = noise::block_sums(r, m);
+    let shrink = 1.0 - model.block_correlation(m);
+    let p_value = match (durbin_watson(&sums), blocked.durbin_watson(passive)) {
+        (Some(d), Some((mean, var, _))) => {
+            stats::beta_cdf_matched(d, 0.0, 4.0, mean * shrink, var * shrink * shrink)
+        }
+        _ => None,
+    };
+    Serial { p_value, block: m }
+}
+
+/// √(f₀/σ̂²): how much larger the standard errors are under correlated
+/// noise than the solver's white-noise ones (σ̂² = RSS/(n − n_free)).
+fn std_error_factor(
+    r: &[f64],
+    model: noise::NoiseEstimate,
+    block: usize,
+    n_free: usize,
+    rss: f64,
+) -> Option<f64> {
+    let dof = r.len().checked_sub(n_free).filter(|d| *d > 0)?;
+    let white = rss / dof as f64;
+    let m = block.max((noise::BLOCKS_PER_SPAN * model.span_readings).ceil() as usize);
+    let f0 = model.long_run_variance(r, m, n_free)?;
+    (white > 0.0 && f0 > 0.0).then(|| (f0 / white).sqrt())
 }
 
 #[cfg(test)]
@@ -753,22 +482,6 @@ mod tests {
 
     fn grid(n: usize) -> Vec<f64> {
         (0..n).map(|i| 350.0 + i as f64).collect()
-    }
-
-    #[test]
-    fn square_sums_match_the_plain_sums() {
-        // Four partial sums change only the rounding, at every length
-        // (remainders of 0–3 after the groups of four).
-        for n in [0usize, 1, 2, 3, 4, 5, 7, 8, 9, 401] {
-            let r: Vec<f64> = (0..n)
-                .map(|i| ((i * 37 % 11) as f64 - 5.0) * 1e-3)
-                .collect();
-            let ss: f64 = r.iter().map(|v| v * v).sum();
-            let dd: f64 = r.windows(2).map(|p| (p[1] - p[0]).powi(2)).sum();
-            let (got_ss, got_dd) = square_sums(&r);
-            assert!((got_ss - ss).abs() <= 1e-14 * ss.max(1e-300), "{n}");
-            assert!((got_dd - dd).abs() <= 1e-14 * dd.max(1e-300), "{n}");
-        }
     }
 
     #[test]
@@ -823,76 +536,5 @@ mod tests {
         r[100] += 0.5;
         let s = noise_au(&w, &r).unwrap();
         assert!((s / 0.001 - 1.0).abs() < 0.12, "{s}");
-    }
-
-    #[test]
-    fn durbin_watson_moments_match_the_textbook_case_without_regressors() {
-        // With no columns, M = I: E[d] = tr(A)/n = 2(n−1)/n (Durbin & Watson 1950).
-        let m = SerialMoments::new(&[], 50, 0);
-        let (mean, var, nu) = m.durbin_watson(&[]).unwrap();
-        assert_eq!(nu, 50);
-        assert!((mean - 2.0 * 49.0 / 50.0).abs() < 1e-12);
-        // Var = 2(Q − P·E)/(n(n+2)) with Q = tr(A²) = 6n − 8.
-        let want = 2.0 * ((6.0 * 50.0 - 8.0) - 98.0 * mean) / (50.0 * 52.0);
-        assert!((var - want).abs() < 1e-12);
-    }
-
-    #[test]
-    fn durbin_watson_moments_agree_with_a_dense_computation() {
-        // Dense M·A for a small design, computed with nalgebra directly.
-        let n = 12;
-        let cols: Vec<f64> = (0..n)
-            .map(|i| (i as f64 / 3.0).sin() + 1.5)
-            .chain(std::iter::repeat_n(1.0, n))
-            .collect();
-        let m = SerialMoments::new(&cols, n, 2);
-        let (mean, var, _) = m.durbin_watson(&[true, true]).unwrap();
-        let x = nalgebra::DMatrix::from_column_slice(n, 2, &cols);
-        let h = &x * (x.transpose() * &x).try_inverse().unwrap() * x.transpose();
-        let mm = nalgebra::DMatrix::identity(n, n) - h;
-        let mut a = nalgebra::DMatrix::zeros(n, n);
-        for i in 0..n - 1 {
-            a[(i, i)] += 1.0;
-            a[(i + 1, i + 1)] += 1.0;
-            a[(i, i + 1)] -= 1.0;
-            a[(i + 1, i)] -= 1.0;
-        }
-        let ma = &mm * &a;
-        let nu = (n - 2) as f64;
-        let p = ma.trace();
-        let q = (&ma * &ma).trace();
-        assert!((mean - p / nu).abs() < 1e-10);
-        assert!((var - 2.0 * (q - p * p / nu) / (nu * (nu + 2.0))).abs() < 1e-10);
-    }
-
-    #[test]
-    fn runs_test_counts_runs() {
-        let r = [1.0, 2.0, -1.0, -1.0, 3.0, -2.0];
-        let t = runs_test(&r).unwrap();
-        assert_eq!(t.runs, 4);
-        // μ = 1 + 2·3·3/6 = 4 (Wald & Wolfowitz 1940).
-        assert!((t.expected_runs - 4.0).abs() < 1e-12);
-        // An exact zero has no sign and is left out.
-        let z = runs_test(&[1.0, 2.0, 0.0, -1.0, -1.0, 3.0, -2.0]).unwrap();
-        assert_eq!(z, t);
-    }
-
-    #[test]
-    fn band_is_found_at_its_place() {
-        let w = grid(401);
-        let r: Vec<f64> = w
-            .iter()
-            .map(|x| 0.01 * (-0.5 * ((x - 480.0) / 15.0f64).powi(2)).exp())
-            .collect();
-        let explained = vec![0.0; 401];
-        let (b, neg) = largest_bands(&w, &r, &explained);
-        let b = b.unwrap();
-        assert!(neg.is_none());
-        assert!((b.centre_nm - 480.0).abs() < 0.5, "{b:?}");
-        assert!((b.peak_nm - 480.0).abs() < 0.5);
-        // Gaussian FWHM = 2√(2 ln 2)·σ ≈ 35.3 nm; the 9-point average widens it a little.
-        assert!((b.fwhm_nm - 35.3).abs() < 1.5, "{}", b.fwhm_nm);
-        assert!(b.peak_au > 0.0095 && b.peak_au <= 0.01);
-        assert!((b.signal_fraction - 1.0).abs() < 1e-12);
     }
 }

@@ -3,7 +3,9 @@
 //! always mol/L (mg/L beside them where the molar mass is known).
 
 pub mod batch;
+pub mod jsonl;
 pub mod notes;
+pub mod qc;
 
 use crate::fit::{FailedSample, FitReport, Outcome, SampleResult};
 use rayon::prelude::*;
@@ -20,6 +22,8 @@ pub enum Format {
     Csv,
     /// JSON document.
     Json,
+    /// JSON Lines: one object per sample ([`jsonl`]).
+    JsonLines,
 }
 
 /// The JSON document written by `fit --format json`.
@@ -103,6 +107,7 @@ pub fn write(report: &FitReport, format: Format, w: &mut dyn Write) -> io::Resul
         Format::Table => write_table(report, w),
         Format::Csv => write_csv(report, w),
         Format::Json => write_json(&JsonReport::from_report(report), w),
+        Format::JsonLines => jsonl::write(report, w),
     }
 }
 
@@ -384,6 +389,7 @@ pub fn write_table(report: &FitReport, w: &mut dyn Write) -> io::Result<()> {
         )?;
     }
     notes::write_notes(report, &unit, w)?;
+    qc::write_qc(report, &unit, w)?;
     if !errors.is_empty() {
         writeln!(w, "\nnot fitted:")?;
         for e in errors {

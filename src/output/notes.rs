@@ -8,12 +8,12 @@ use std::io::{self, Write};
 /// Number of residual-check columns at the end of [`super::CSV_HEADER`].
 pub const CSV_EXTRA_COLUMNS: usize = 12;
 
-/// Append the extra columns of one fitted sample, each preceded by a comma.
-pub fn csv_extra(s: &SampleResult, out: &mut String) {
+/// The numbers of the residual-check columns from `noise_au` to
+/// `band_signal_fraction`, in column order (`None`: empty).
+pub fn check_numbers(s: &SampleResult) -> [Option<f64>; 8] {
     let d = s.diagnostics.as_ref();
     let band = d.and_then(|d| d.band.as_ref());
-    let best = s.screening.as_ref().and_then(|x| x.best.as_ref());
-    let values = [
+    [
         d.map(|d| d.noise_au),
         d.and_then(|d| d.reduced_chi_squared),
         d.and_then(|d| d.durbin_watson),
@@ -22,8 +22,13 @@ pub fn csv_extra(s: &SampleResult, out: &mut String) {
         band.map(|b| b.fwhm_nm),
         band.map(|b| b.peak_au),
         band.map(|b| b.signal_fraction),
-    ];
-    for v in values {
+    ]
+}
+
+/// Append the extra columns of one fitted sample, each preceded by a comma.
+pub fn csv_extra(s: &SampleResult, out: &mut String) {
+    let best = s.screening.as_ref().and_then(|x| x.best.as_ref());
+    for v in check_numbers(s) {
         out.push(',');
         num(out, v);
     }
@@ -50,6 +55,14 @@ fn p_text(p: f64) -> String {
 /// One line per remark: unexplained bands, masking, screening results.
 pub fn notes(s: &SampleResult, unit: &super::DisplayUnit) -> Vec<String> {
     let mut out = Vec::new();
+    if let Some(spikes) = &s.spikes_nm {
+        let at: Vec<String> = spikes.iter().map(|w| format!("{w}")).collect();
+        out.push(format!(
+            "{} spike(s) left out of the fit (single readings far outside the noise at {} nm)",
+            spikes.len(),
+            at.join(", ")
+        ));
+    }
     if let Some(m) = &s.masking {
         let spans: Vec<String> = m
             .masked_nm

@@ -15,6 +15,7 @@ pub mod check;
 pub mod plates;
 #[cfg(feature = "png")]
 pub mod png;
+pub mod qc;
 pub mod svg;
 
 use crate::curves::Curves;
@@ -306,6 +307,7 @@ pub fn render_html(doc: &JsonReport, title: &str) -> String {
     summary(&mut h, doc);
     let (unit, factor) = display_unit(&doc.samples);
     sample_table(&mut h, doc, unit, factor);
+    qc::qc_section(&mut h, doc);
     h.push_str("<h2 id=\"fits\">Fits</h2>\n");
     if doc.curves.is_none() {
         h.push_str("<p class=\"note\">These results carry no fit curves, so no figures are drawn: write them with <code>unblend fit ... --format json --with-curves</code> (or <code>--report</code>) to get the plots.</p>\n");
