@@ -1,51 +1,116 @@
 //! Whole-or-nothing file writes, shared by the library store and the outputs.
 //!
 //! Content goes to a temporary file beside the target (same folder, so the
-//! rename stays on one file system), is flushed to disk, and is renamed over
-//! the target only when complete. A failed or interrupted run leaves either
-//! the old file or the new one, never half of one.
+//! rename stays on one file system), created exclusively under a name nobody
+//! can predict (see `temps`), given the target's permissions, flushed to disk,
+//! and renamed over the target only when complete; the folder is then synced.
+//! A failed or interrupted run leaves either the old file or the new one,
+//! never half of one. Several outputs of one run are replaced as a set (see
+//! [`commit_all`]): all old or all new.
 //!
-//! Temporaries still open are recorded, so that an interrupted run (Ctrl-C,
-//! SIGINT or SIGTERM; see [`remove_temporaries_for_exit`]) removes them before
-//! the program exits instead of leaving `.NAME.tmp-…` files beside the outputs.
+//! Interrupts (Ctrl-C, SIGINT, SIGTERM; see [`on_interrupt`]) before the
+//! commit point remove the temporaries and the program exits, leaving every
+//! output as it was. From the commit point on (the first rename over an output) the run
+//! finishes and says what it wrote; a second interrupt after the renames
+//! ends it at once. Temporaries of a run that was killed outright are
+//! removed by the next run on the same output.
+
+mod set;
+pub mod temps;
+
+pub use set::commit_all;
 
 use crate::error::{Error, Result};
 use std::fs::{self, File};
 use std::io::{BufWriter, Write};
 use std::path::{Path, PathBuf};
-use std::sync::Mutex;
-use std::sync::atomic::{AtomicU64, Ordering};
+use std::sync::atomic::{AtomicBool, AtomicU8, Ordering};
+use tempfile::TempPath;
 
-static COUNTER: AtomicU64 = AtomicU64::new(0);
+/// Nothing has been renamed over an output yet.
+const IDLE: u8 = 0;
+/// Outputs are being renamed into place: interrupts wait.
+const COMMITTING: u8 = 1;
+/// At least one output has been replaced.
+const COMMITTED: u8 = 2;
 
-/// Temporary files created and not yet renamed or removed.
-static OPEN: Mutex<Vec<PathBuf>> = Mutex::new(Vec::new());
+static PHASE: AtomicU8 = AtomicU8::new(IDLE);
+/// An interrupt arrived after the commit point and was deferred.
+static DEFERRED: AtomicBool = AtomicBool::new(false);
 
-fn open_temp(tmp: &Path) {
-    if let Ok(mut open) = OPEN.lock() {
-        open.push(tmp.to_path_buf());
-    }
+/// What the program should do about an interrupt.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Interrupt {
+    /// Exit now (the temporaries are already removed), saying this.
+    Exit(&'static str),
+    /// Let the run finish, saying this: outputs are being or have been
+    /// replaced.
+    Finish(&'static str),
 }
 
-fn close_temp(tmp: &Path) {
-    if let Ok(mut open) = OPEN.lock() {
-        open.retain(|p| p != tmp);
-    }
-}
-
-/// Remove every temporary file this process has open, for a run that is
-/// being interrupted; the caller (the program, never the library) then exits.
-/// The targets are untouched: they keep their previous content (or stay
-/// absent). The list stays locked from here on, so no writer can record a
-/// new temporary before the process ends.
-pub fn remove_temporaries_for_exit() {
-    // A poisoned lock still holds the list; the paths are what matters.
-    let open = OPEN.lock().unwrap_or_else(|p| p.into_inner());
+/// Decide what an interrupt (Ctrl-C, SIGINT or SIGTERM) does, from the
+/// signal-handling thread; the caller (the program, never the library)
+/// prints the message and exits on [`Interrupt::Exit`]. Before the commit
+/// point: every temporary is removed and the outputs keep their previous
+/// content. Inside or after it: the run finishes, unless an interrupt was
+/// already deferred and the renames are over.
+pub fn on_interrupt() -> Interrupt {
+    let open = temps::lock_open();
+    let phase = PHASE.load(Ordering::SeqCst);
+    let again = DEFERRED.swap(true, Ordering::SeqCst);
+    let message = match phase {
+        IDLE => "interrupted: outputs left as they were",
+        COMMITTING => {
+            return Interrupt::Finish(
+                "interrupt received while outputs are being replaced: finishing",
+            );
+        }
+        _ if !again => {
+            return Interrupt::Finish("interrupt received after outputs were replaced: finishing");
+        }
+        _ => "interrupted: outputs already replaced are kept, later ones were not written",
+    };
     for p in open.iter() {
         let _ = fs::remove_file(p);
     }
-    // Keep the lock held until the process exits.
+    // Keep the list locked until the process exits, so no writer can record
+    // a new temporary or start renaming meanwhile.
     std::mem::forget(open);
+    Interrupt::Exit(message)
+}
+
+/// The commit point of a run: while one lives, interrupts are deferred.
+/// Beginning one waits for an interrupt being handled (which then exits).
+struct CommitPhase;
+
+impl CommitPhase {
+    fn begin() -> Self {
+        let _open = temps::lock_open();
+        PHASE.store(COMMITTING, Ordering::SeqCst);
+        CommitPhase
+    }
+}
+
+impl Drop for CommitPhase {
+    fn drop(&mut self) {
+        let _open = temps::lock_open();
+        PHASE.store(COMMITTED, Ordering::SeqCst);
+    }
+}
+
+/// A test hook: with `UNBLEND_TEST_PAUSE=POINT:MS` in the environment, sleep
+/// MS milliseconds at `POINT` (`before-commit`, or `inside-commit` after the
+/// first rename), so tests can deliver a signal there.
+fn test_pause(point: &str) {
+    let Ok(v) = std::env::var("UNBLEND_TEST_PAUSE") else {
+        return;
+    };
+    if let Some((p, ms)) = v.split_once(':')
+        && p == point
+        && let Ok(ms) = ms.parse::<u64>()
+    {
+        std::thread::sleep(std::time::Duration::from_millis(ms));
+    }
 }
 
 /// Where a write to `target` goes.
@@ -73,26 +138,10 @@ fn placement(target: &Path) -> Placement {
     }
 }
 
-/// Write to a device or pipe in place (no temporary, no rename, no sync).
-fn write_direct<F>(target: &Path, fill: F) -> std::io::Result<()>
-where
-    F: FnOnce(&mut (dyn Write + Send)) -> std::io::Result<()>,
-{
-    let file = fs::OpenOptions::new().write(true).open(target)?;
-    let mut w = BufWriter::with_capacity(1 << 16, file);
-    fill(&mut w)?;
-    w.flush()
-}
-
-/// A temporary name beside `target`, unique to this process and call.
-pub fn temp_path(target: &Path) -> PathBuf {
-    let n = COUNTER.fetch_add(1, Ordering::Relaxed);
-    let name = target
-        .file_name()
-        .map(|s| s.to_string_lossy().into_owned())
-        .unwrap_or_else(|| "output".into());
-    let tmp = format!(".{name}.tmp-{}-{n}", std::process::id());
-    target.with_file_name(tmp)
+fn exists_error(shown: &str) -> Error {
+    Error::Invalid(format!(
+        "{shown} already exists: choose another name or pass --replace"
+    ))
 }
 
 /// Write a file atomically: `fill` writes the content; on success the file is
@@ -103,46 +152,27 @@ where
     F: FnOnce(&mut (dyn Write + Send)) -> std::io::Result<()>,
 {
     let shown = target.display().to_string();
-    let target = match placement(target) {
-        Placement::Direct if no_clobber => {
-            return Err(Error::Invalid(format!(
-                "{shown} already exists: choose another name or pass --replace"
-            )));
-        }
-        Placement::Direct => return write_direct(target, fill).map_err(|e| Error::io(shown, e)),
-        Placement::Replace(path) => path,
-    };
-    let target = target.as_path();
-    let tmp = temp_path(target);
-    open_temp(&tmp);
-    let result = (|| -> std::io::Result<()> {
-        let file = File::create(&tmp)?;
-        let mut w = BufWriter::with_capacity(1 << 16, file);
-        fill(&mut w)?;
-        let file = w.into_inner().map_err(|e| e.into_error())?;
-        file.sync_all()?;
-        if no_clobber {
-            // hard_link fails if the target exists: an atomic "create new".
-            fs::hard_link(&tmp, target)?;
-            fs::remove_file(&tmp)?;
-        } else {
-            fs::rename(&tmp, target)?;
-        }
-        Ok(())
-    })();
-    if result.is_err() {
-        let _ = fs::remove_file(&tmp);
+    if no_clobber && matches!(placement(target), Placement::Direct) {
+        return Err(exists_error(&shown));
     }
-    close_temp(&tmp);
-    if let Err(e) = result {
-        if no_clobber && e.kind() == std::io::ErrorKind::AlreadyExists {
-            return Err(Error::Invalid(format!(
-                "{shown} already exists: choose another name or pass --replace"
-            )));
-        }
-        return Err(Error::io(shown, e));
+    let file = stage_with(target, fill)?;
+    if no_clobber {
+        file.commit_new()
+    } else {
+        file.commit()
     }
-    Ok(())
+}
+
+/// Write `target`'s content under a temporary name and return it, not yet
+/// in place: commit it alone or with others through [`commit_all`].
+pub fn stage_with<F>(target: &Path, fill: F) -> Result<AtomicFile>
+where
+    F: FnOnce(&mut (dyn Write + Send)) -> std::io::Result<()>,
+{
+    let mut file = AtomicFile::create(target)?;
+    let shown = target.display().to_string();
+    fill(&mut file).map_err(|e| Error::io(shown, e))?;
+    Ok(file)
 }
 
 /// Write bytes atomically.
@@ -153,48 +183,48 @@ pub fn write_bytes(target: &Path, bytes: &[u8]) -> Result<()> {
 /// A file being written under a temporary name beside its target, for
 /// outputs that are filled bit by bit (streamed) rather than in one call.
 ///
-/// Nothing appears at the target until [`AtomicFile::commit`]; dropping an
-/// uncommitted file removes the temporary. A run that writes several files
-/// can fill them all and commit them only once every one is complete.
+/// Nothing appears at the target until [`AtomicFile::commit`] (or
+/// [`commit_all`] for a set); dropping an uncommitted file removes the
+/// temporary. Devices and pipes are written in place as the content comes.
 pub struct AtomicFile {
+    /// Where the content goes (a link's target, so the link stays).
     target: PathBuf,
-    tmp: PathBuf,
+    /// The path as the user gave it, for messages.
+    shown: String,
     writer: Option<BufWriter<File>>,
-    /// Writing straight to a device or pipe: `tmp` is the target itself.
+    /// The temporary's name; `None` when writing straight to a device or
+    /// pipe, or once renamed into place.
+    temp: Option<TempPath>,
     direct: bool,
 }
 
 impl AtomicFile {
     /// Create the temporary file for `target`.
     pub fn create(target: &Path) -> Result<Self> {
+        let shown = target.display().to_string();
+        let io = |e| Error::io(shown.clone(), e);
         let real = match placement(target) {
             Placement::Direct => {
                 let file = fs::OpenOptions::new()
                     .write(true)
                     .open(target)
-                    .map_err(|e| Error::io(target.display().to_string(), e))?;
+                    .map_err(io)?;
                 return Ok(AtomicFile {
                     target: target.to_path_buf(),
-                    tmp: target.to_path_buf(),
+                    shown,
                     writer: Some(BufWriter::with_capacity(1 << 16, file)),
+                    temp: None,
                     direct: true,
                 });
             }
             Placement::Replace(path) => path,
         };
-        let tmp = temp_path(&real);
-        open_temp(&tmp);
-        let file = match File::create(&tmp) {
-            Ok(f) => f,
-            Err(e) => {
-                close_temp(&tmp);
-                return Err(Error::io(target.display().to_string(), e));
-            }
-        };
+        let (file, temp) = temps::create(&real).map_err(io)?.into_parts();
         Ok(AtomicFile {
             target: real,
-            tmp,
+            shown,
             writer: Some(BufWriter::with_capacity(1 << 16, file)),
+            temp: Some(temp),
             direct: false,
         })
     }
@@ -204,41 +234,86 @@ impl AtomicFile {
         &self.target
     }
 
-    /// Flush, sync and rename the file into place.
-    pub fn commit(mut self) -> Result<()> {
-        let shown = self.target.display().to_string();
-        let result = (|| -> std::io::Result<()> {
-            let w = self
-                .writer
-                .take()
-                .ok_or_else(|| std::io::Error::other("file already committed"))?;
-            let file = w.into_inner().map_err(|e| e.into_error())?;
-            if self.direct {
-                return Ok(());
-            }
-            file.sync_all()?;
-            fs::rename(&self.tmp, &self.target)
-        })();
-        if result.is_ok() {
-            close_temp(&self.tmp);
+    /// Flush the content, give it the target's permissions and sync it to
+    /// disk: everything short of the rename, so a failure here leaves the
+    /// target untouched.
+    fn finish_writing(&mut self) -> std::io::Result<()> {
+        let Some(w) = self.writer.take() else {
+            return Ok(());
+        };
+        let file = w.into_inner().map_err(|e| e.into_error())?;
+        if self.direct {
+            return Ok(());
         }
-        result.map_err(|e| Error::io(shown, e))
+        temps::match_permissions(&file, &self.target)?;
+        file.sync_all()
     }
+
+    /// Rename the finished temporary over the target (the commit point of
+    /// this file). With `no_clobber`, fail if the target exists.
+    fn rename_into_place(&mut self, no_clobber: bool) -> std::io::Result<()> {
+        let Some(temp) = self.temp.take() else {
+            return Ok(());
+        };
+        let path = temp.to_path_buf();
+        let renamed = if no_clobber {
+            temp.persist_noclobber(&self.target)
+        } else {
+            temp.persist(&self.target)
+        };
+        match renamed {
+            Ok(()) => {
+                temps::forget(&path);
+                Ok(())
+            }
+            Err(e) => {
+                self.temp = Some(e.path);
+                Err(e.error)
+            }
+        }
+    }
+
+    fn commit_as(mut self, no_clobber: bool) -> Result<()> {
+        let shown = self.shown.clone();
+        self.finish_writing()
+            .map_err(|e| Error::io(shown.clone(), e))?;
+        test_pause("before-commit");
+        let _phase = (!self.direct).then(CommitPhase::begin);
+        match self.rename_into_place(no_clobber) {
+            Err(e) if no_clobber && e.kind() == std::io::ErrorKind::AlreadyExists => {
+                Err(exists_error(&shown))
+            }
+            Err(e) => Err(Error::io(shown, e)),
+            Ok(()) => {
+                temps::sync_folder(&self.target);
+                Ok(())
+            }
+        }
+    }
+
+    /// Flush, sync and rename the file into place.
+    pub fn commit(self) -> Result<()> {
+        self.commit_as(false)
+    }
+
+    /// Like [`AtomicFile::commit`], but an existing target is an error and
+    /// stays as it was.
+    pub fn commit_new(self) -> Result<()> {
+        self.commit_as(true)
+    }
+}
+
+fn committed() -> std::io::Error {
+    std::io::Error::other("file already committed")
 }
 
 impl Write for AtomicFile {
     fn write(&mut self, buf: &[u8]) -> std::io::Result<usize> {
-        match &mut self.writer {
-            Some(w) => w.write(buf),
-            None => Err(std::io::Error::other("file already committed")),
-        }
+        self.writer.as_mut().ok_or_else(committed)?.write(buf)
     }
 
     fn write_all(&mut self, buf: &[u8]) -> std::io::Result<()> {
-        match &mut self.writer {
-            Some(w) => w.write_all(buf),
-            None => Err(std::io::Error::other("file already committed")),
-        }
+        self.writer.as_mut().ok_or_else(committed)?.write_all(buf)
     }
 
     fn flush(&mut self) -> std::io::Result<()> {
@@ -251,13 +326,12 @@ impl Write for AtomicFile {
 
 impl Drop for AtomicFile {
     fn drop(&mut self) {
-        if self.direct {
-            return;
+        // The temporary's handle removes the file as it drops.
+        if let Some(temp) = self.temp.take() {
+            let path = temp.to_path_buf();
+            drop(temp);
+            temps::forget(&path);
         }
-        if self.writer.take().is_some() || self.tmp.exists() {
-            let _ = fs::remove_file(&self.tmp);
-        }
-        close_temp(&self.tmp);
     }
 }
 

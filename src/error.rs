@@ -75,8 +75,26 @@ pub enum Error {
         /// What is wrong with it.
         message: String,
     },
+    /// An output is the same file as an input (or as another output).
+    #[error("{output} is the same file as {other}: {why}; choose another output name")]
+    SameFile {
+        /// The output: its role (an option name such as `--out`) and path.
+        output: String,
+        /// The other file: its role (`input`, `--report`) and path.
+        other: String,
+        /// What writing would do.
+        why: &'static str,
+    },
+    /// A line of a text input is longer than any reading has a reason to be.
+    #[error("line {line} is longer than {limit_mib} MiB: expected a text file with line breaks")]
+    LineTooLong {
+        /// The 1-based line number.
+        line: usize,
+        /// The limit in MiB.
+        limit_mib: usize,
+    },
     /// An option's value is outside what it accepts.
-    #[error("{option} {value}{unit}: expected {expected}")]
+    #[error("{option} {}{unit}: expected {expected}", crate::ranges::shown(.value))]
     OutOfRange {
         /// The option, in words ("pathlength", "linearity tolerance").
         option: &'static str,

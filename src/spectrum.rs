@@ -14,8 +14,9 @@ pub struct Grid {
 }
 
 impl Grid {
-    /// Validate a wavelength list. It must hold at least one finite,
-    /// positive value and be strictly ascending.
+    /// Validate a wavelength list. It must hold at least one value, every
+    /// one inside the plausible range ([`crate::ranges::WAVELENGTH_NM`]), and
+    /// be strictly ascending.
     pub fn new(wavelengths_nm: Vec<f64>) -> Result<Self> {
         if wavelengths_nm.is_empty() {
             return Err(Error::Invalid("no wavelengths given".into()));
@@ -27,6 +28,7 @@ impl Grid {
                     value: w,
                 });
             }
+            crate::ranges::WAVELENGTH_NM.check(w)?;
         }
         for (i, pair) in wavelengths_nm.windows(2).enumerate() {
             if pair[1] <= pair[0] {
@@ -161,5 +163,17 @@ mod tests {
         assert!(Spectrum::new("s", g.clone(), vec![0.1, f64::NAN]).is_err());
         assert!(Spectrum::new("s", g.clone(), vec![0.1]).is_err());
         assert!(Spectrum::new("s", g, vec![0.1, 0.2]).is_ok());
+    }
+
+    #[test]
+    fn wavelengths_outside_the_plausible_range_are_rejected() {
+        // 1e308 nm was accepted before the range check (issue 19).
+        let e = Grid::new(vec![400.0, 1e308]).unwrap_err().to_string();
+        assert!(
+            e.starts_with("wavelength 1e308 nm: expected 100 to 25,000 nm"),
+            "{e}"
+        );
+        assert!(Grid::new(vec![50.0, 400.0]).is_err());
+        assert!(Grid::new(vec![100.0, 25_000.0]).is_ok());
     }
 }

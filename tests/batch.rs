@@ -589,7 +589,8 @@ fn wide_384_well_plates_with_a_per_plate_map() {
         &dir,
     );
     let stderr = String::from_utf8_lossy(&o.stderr);
-    assert_eq!(o.status.code(), Some(0), "{stderr}");
+    // Mapped wells without a reading make the run partial (issue 19).
+    assert_eq!(o.status.code(), Some(3), "{stderr}");
     assert!(
         stderr.contains("plate 'Q2' has no entries in the plate map"),
         "{stderr}"
@@ -604,6 +605,18 @@ fn wide_384_well_plates_with_a_per_plate_map() {
     let q1 = &json.plates[0];
     assert_eq!(q1.format.as_deref(), Some("384-well"));
     assert_eq!(q1.blank.used.len(), 16);
+    // The 16 mapped wells of column 24 are error rows that say why.
+    let unread: Vec<&WellJson> = q1
+        .wells
+        .iter()
+        .filter(|w| {
+            w.error
+                .as_deref()
+                .is_some_and(|e| e.contains("no reading for this well"))
+        })
+        .collect();
+    assert_eq!(unread.len(), 16);
+    assert!(unread.iter().all(|w| w.well.ends_with("24")));
     // Q2 has no map: every well is its own sample, no blank subtracted.
     let q2 = &json.plates[1];
     assert!(!q2.mapped);

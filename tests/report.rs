@@ -230,8 +230,9 @@ fn fit_writes_report_plot_and_curves_and_rejects_bad_requests() {
     assert_eq!(u32::from_be_bytes(png[16..20].try_into().unwrap()), 1520);
     assert_eq!(u32::from_be_bytes(png[20..24].try_into().unwrap()), 860);
     // Bad requests say what was expected.
+    // Options that do not go together are usage errors: exit 2 (issue 19).
     let (code, _, stderr) = run(&dir, &["fit", &input, "--library", &lib, "--plot", "x.jpg"]);
-    assert_eq!(code, 1);
+    assert_eq!(code, 2);
     assert!(stderr.contains(".svg or .png"), "{stderr}");
     assert!(!dir.join("x.jpg").exists());
     // Nothing fitted: the message says why, with the sample's own error.
@@ -248,7 +249,7 @@ fn fit_writes_report_plot_and_curves_and_rejects_bad_requests() {
     assert!(stderr.contains("line 2, column 3 ('abc')"), "{stderr}");
     assert!(!dir.join("b.png").exists());
     let (code, _, stderr) = run(&dir, &["fit", &input, "--library", &lib, "--with-curves"]);
-    assert_eq!(code, 1);
+    assert_eq!(code, 2);
     assert!(stderr.contains("--format json"), "{stderr}");
     let (code, _, stderr) = run(
         &dir,

@@ -139,20 +139,9 @@ fn wells_to_analyse(
         ));
     }
     if let Some(m) = entries {
-        let read: HashSet<Well> = spectra
-            .wells
-            .iter()
-            .copied()
-            .chain(spectra.failures.iter().filter_map(|f| f.well))
-            .collect();
-        let mut missing: Vec<Well> = m
-            .iter()
-            .filter(|(w, e)| e.role != Role::Empty && !read.contains(w))
-            .map(|(w, _)| *w)
-            .collect();
-        missing.sort();
+        let missing = unread_mapped_wells(spectra, m);
         if !missing.is_empty() {
-            let names: Vec<String> = missing.iter().map(Well::to_string).collect();
+            let names: Vec<String> = missing.iter().map(|r| r.well.clone()).collect();
             warnings.push(format!(
                 "plate '{}': {} mapped well(s) have no reading: {}",
                 spectra.name,
@@ -164,9 +153,40 @@ fn wells_to_analyse(
     used
 }
 
-/// Wells that could not be read, unless they are not analysed anyway.
+/// Mapped wells (any role but `empty`) the plate has no reading for, in
+/// well order, as error rows: the run is then partial (exit 3) and
+/// `wells.csv` says why, instead of the wells quietly going missing (a row
+/// lost to a wrong delimiter, a truncated file).
+fn unread_mapped_wells(spectra: &PlateSpectra, m: &HashMap<Well, MapEntry>) -> Vec<WellResult> {
+    let read: HashSet<Well> = spectra
+        .wells
+        .iter()
+        .copied()
+        .chain(spectra.failures.iter().filter_map(|f| f.well))
+        .collect();
+    let mut missing: Vec<(&Well, &MapEntry)> = m
+        .iter()
+        .filter(|(w, e)| e.role != Role::Empty && !read.contains(w))
+        .collect();
+    missing.sort_by_key(|(w, _)| **w);
+    missing
+        .into_iter()
+        .map(|(w, e)| {
+            let mut r = WellResult::new(&w.to_string(), e);
+            r.error = Some(format!(
+                "mapped as {} (plate map line {}) but the plate has no reading for this well: a lost or misread row of the input?",
+                e.role.name(),
+                e.line
+            ));
+            r
+        })
+        .collect()
+}
+
+/// Wells that could not be read, unless they are not analysed anyway; first
+/// the mapped wells the plate has no reading for at all.
 fn failed_reads(spectra: &PlateSpectra, entries: Entries) -> Vec<WellResult> {
-    let mut out = Vec::new();
+    let mut out = entries.map_or_else(Vec::new, |m| unread_mapped_wells(spectra, m));
     for f in &spectra.failures {
         let entry = match f.well {
             Some(w) => match entry_of(entries, w) {

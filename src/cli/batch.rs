@@ -8,6 +8,7 @@ use crate::atomic::AtomicFile;
 use crate::batch::run::{self, Event, InputSummary, RunSpec};
 use crate::batch::{BatchOptions, Models, PlateResult, WaterBand};
 use crate::fit::FitOptions;
+use crate::guard::Named;
 use crate::input::platemap::{self, PlateMap};
 use crate::output::batch::{RenderedPlate, SAMPLES_HEADER, WELLS_HEADER, render_plate_with};
 use crate::reference::{Library, ReferenceSet};
@@ -106,6 +107,23 @@ fn checks(args: &Args) -> Result<crate::diagnostics::Options, Failure> {
     Ok(checks)
 }
 
+/// The names of the four output files in `--out-dir`.
+const OUTPUT_NAMES: [&str; 4] = ["wells.csv", "samples.csv", "run.json", "run-log.txt"];
+
+/// Refuse a run whose outputs (in `--out-dir`, and `--report`) include an
+/// input file or the plate map, before anything is read.
+fn refuse_overwriting_inputs(args: &Args) -> Result<(), Failure> {
+    let paths: Vec<PathBuf> = OUTPUT_NAMES.iter().map(|n| args.out_dir.join(n)).collect();
+    let mut outputs: Vec<Named> = paths.iter().map(|p| Named::new("output", p)).collect();
+    outputs.extend(crate::guard::given(&[("--report", args.report.as_deref())]));
+    let mut inputs: Vec<Named> = args.inputs.iter().map(|p| Named::new("input", p)).collect();
+    inputs.extend(crate::guard::given(&[(
+        "--plate-map",
+        args.plate_map.as_deref(),
+    )]));
+    Ok(crate::guard::refuse_overwriting(&inputs, &outputs)?)
+}
+
 fn parse_alpha(s: &str) -> Result<f64, String> {
     match s.trim().parse::<f64>() {
         Ok(v) if v > 0.0 && v < 0.5 => Ok(v),
@@ -139,6 +157,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let started = Instant::now();
     let started_utc = now_utc();
     let options = BatchOptions::try_from(&args)?;
+    refuse_overwriting_inputs(&args)?;
     if args.inputs.iter().filter(|p| p.as_os_str() == "-").count() > 1 {
         return Err(Failure {
             message: "standard input ('-') can be given only once".into(),
@@ -476,10 +495,10 @@ struct LogInfo<'a> {
 impl Outputs {
     fn create(dir: &Path) -> Result<Self, Failure> {
         Ok(Outputs {
-            wells: AtomicFile::create(&dir.join("wells.csv"))?,
-            samples: AtomicFile::create(&dir.join("samples.csv"))?,
-            json: AtomicFile::create(&dir.join("run.json"))?,
-            log: AtomicFile::create(&dir.join("run-log.txt"))?,
+            wells: AtomicFile::create(&dir.join(OUTPUT_NAMES[0]))?,
+            samples: AtomicFile::create(&dir.join(OUTPUT_NAMES[1]))?,
+            json: AtomicFile::create(&dir.join(OUTPUT_NAMES[2]))?,
+            log: AtomicFile::create(&dir.join(OUTPUT_NAMES[3]))?,
             first_plate: true,
             report: None,
         })
@@ -544,11 +563,12 @@ impl Outputs {
             file.write_all(html.as_bytes()).map_err(io)?;
             files.push(file);
         }
-        let mut paths = Vec::new();
-        for f in files {
-            paths.push(f.target().display().to_string());
-            f.commit()?;
-        }
+        let paths = files
+            .iter()
+            .map(|f| f.target().display().to_string())
+            .collect();
+        // All old or all new: a failure part way puts the old set back.
+        crate::atomic::commit_all(files)?;
         Ok(paths)
     }
 }

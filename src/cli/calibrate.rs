@@ -1,8 +1,8 @@
 //! `unblend calibrate`: a reference component from a blank and standards.
 
 use super::common::{
-    FormatArg, QuantityArg, file_name, hex, library_dir, parse_positive, parse_range_nm,
-    print_stdout, sig, summary_format,
+    FormatArg, QuantityArg, file_name, hex, library_dir, parse_pathlength_cm, parse_positive,
+    parse_range_nm, print_stdout, sig, summary_format,
 };
 use super::inputs;
 use super::{Failure, exit};
@@ -10,6 +10,7 @@ use crate::calibrate::{
     self, ABSORBANCE_CEILING_AU, CalibrationOptions, CalibrationResult, LINEARITY_TOLERANCE,
     Provenance,
 };
+use crate::guard::Named;
 use crate::input::concentrations::{self, ConcentrationUnit};
 use crate::reference::{Calibration, Conditions, Library};
 use serde::Serialize;
@@ -48,7 +49,7 @@ pub struct Args {
     #[arg(long, value_name = "DIR")]
     pub library: Option<PathBuf>,
     /// Optical pathlength of the standards' cell, cm.
-    #[arg(long, default_value = "1", value_parser = parse_positive, value_name = "CM")]
+    #[arg(long, default_value = "1", value_parser = parse_pathlength_cm, allow_negative_numbers = true, value_name = "CM")]
     pub pathlength_cm: f64,
     /// Molar mass in g/mol (needed for mg/L and g/L; enables mg/L results).
     #[arg(long, value_parser = parse_positive, value_name = "G_PER_MOL")]
@@ -60,7 +61,7 @@ pub struct Args {
     #[arg(long, value_enum)]
     pub quantity: Option<QuantityArg>,
     /// Use only wavelengths in LO:HI nm [default: every wavelength in INPUT].
-    #[arg(long, value_parser = parse_range_nm, value_name = "LO:HI")]
+    #[arg(long, value_parser = parse_range_nm, allow_hyphen_values = true, value_name = "LO:HI")]
     pub range_nm: Option<(f64, f64)>,
     /// Relative deviation from the line of the lower standards that counts as non-linear (fraction).
     #[arg(long, default_value_t = LINEARITY_TOLERANCE, value_parser = parse_positive, value_name = "FRACTION")]
@@ -141,6 +142,14 @@ impl TryFrom<&Args> for CalibrationOptions {
 /// Run `unblend calibrate`.
 pub fn run(args: Args) -> Result<u8, Failure> {
     crate::reference::component::validate_name(&args.name)?;
+    let component_file = Library::path_for(&library_dir(args.library.clone()), &args.name);
+    let outputs = crate::guard::given(&[
+        ("--out", args.out.as_deref()),
+        ("component file", Some(&component_file)),
+    ]);
+    let mut named_inputs: Vec<Named> = args.inputs.iter().map(|p| Named::new("input", p)).collect();
+    named_inputs.push(Named::new("--concentrations", &args.concentrations));
+    crate::guard::refuse_overwriting(&named_inputs, &outputs)?;
     let options = CalibrationOptions::try_from(&args)?;
     let read = inputs::read_all_with_provenance(&args.inputs, args.quantity.map(Into::into))?;
     for w in &read.file.warnings {

@@ -11,7 +11,7 @@ use crate::preprocess::Baseline;
 use crate::reference::{Library, ReferenceSet};
 use clap::ValueEnum;
 use clap::builder::{PossibleValue, PossibleValuesParser, TypedValueParser};
-use std::io::{Read, Write};
+
 use std::path::{Path, PathBuf};
 
 /// The model every fitting subcommand (`fit`, `batch`, `discover`) builds:
@@ -26,13 +26,13 @@ pub struct ModelArgs {
     #[arg(long, value_delimiter = ',', value_name = "NAMES")]
     pub components: Vec<String>,
     /// Optical pathlength in cm (in `batch`: for wells whose plate map gives none).
-    #[arg(long, default_value = "1", value_parser = parse_positive, value_name = "CM")]
+    #[arg(long, default_value = "1", value_parser = parse_pathlength_cm, allow_negative_numbers = true, value_name = "CM")]
     pub pathlength_cm: f64,
     /// Baseline terms fitted beside the components (free in sign): offset in AU, slope in AU/nm.
     #[arg(long, value_enum, default_value_t = BaselineArg::Offset)]
     pub baseline: BaselineArg,
     /// Wavelength window LO:HI in nm [default: all wavelengths the input and every reference cover].
-    #[arg(long, value_parser = parse_range_nm, value_name = "LO:HI")]
+    #[arg(long, value_parser = parse_range_nm, allow_hyphen_values = true, value_name = "LO:HI")]
     pub range_nm: Option<(f64, f64)>,
     /// What the numbers in the input are [default: what each file says (a value heading, a units/mode metadata line, ##YUNITS), else absorbance]. Given, it wins over the file, with a warning when they differ.
     #[arg(long, value_enum)]
@@ -62,7 +62,11 @@ impl ModelArgs {
     /// Open the library and select the `--components` (all by default).
     pub fn references(&self) -> Result<References, Failure> {
         let dir = library_dir(self.library.clone());
-        let set = Library::open(&dir)?.select(&self.components)?;
+        let library = Library::open(&dir)?;
+        for w in &library.skipped {
+            eprintln!("unblend: warning: {w}");
+        }
+        let set = library.select(&self.components)?;
         Ok(References { dir, set })
     }
 
@@ -209,7 +213,17 @@ pub fn parse_range_nm(s: &str) -> Result<(f64, f64), String> {
     if !(lo.is_finite() && hi.is_finite() && lo > 0.0 && hi > lo) {
         return Err(format!("'{s}': expected 0 < LO < HI in nm"));
     }
+    for v in [lo, hi] {
+        crate::ranges::WAVELENGTH_NM
+            .check(v)
+            .map_err(|e| format!("'{s}': {e}"))?;
+    }
     Ok((lo, hi))
+}
+
+/// Parse a pathlength in cm inside its plausible range (1 µm to 10 m).
+pub fn parse_pathlength_cm(s: &str) -> Result<f64, String> {
+    crate::ranges::PATHLENGTH_CM.parse(s)
 }
 
 /// Parse a positive finite number (pathlength, molar mass).
@@ -245,18 +259,13 @@ pub fn code_for(total: usize, failed: usize) -> u8 {
     }
 }
 
-/// Read a file, or standard input for `-`.
+/// Read a file, or standard input for `-`, with every line capped (see
+/// [`crate::limits`]).
 pub fn read_input(path: &std::path::Path) -> Result<Vec<u8>, Failure> {
-    let mut bytes = Vec::new();
-    if path.as_os_str() == "-" {
-        std::io::stdin()
-            .read_to_end(&mut bytes)
-            .map_err(|e| Failure::new(format!("standard input: {e}")))?;
-    } else {
-        bytes =
-            std::fs::read(path).map_err(|e| Failure::new(format!("{}: {e}", path.display())))?;
-    }
-    Ok(bytes)
+    crate::limits::read_text(path).map_err(|e| match e {
+        crate::Error::Io { .. } => Failure::from(e),
+        e => Failure::new(format!("{}: {e}", shown(path))),
+    })
 }
 
 /// Print warnings to stderr and write the report to a file or stdout.
@@ -276,16 +285,7 @@ pub fn emit(
                 summary(report.outcomes.len(), report.n_failed(), path)
             );
         }
-        None => {
-            let stdout = std::io::stdout();
-            let mut lock = std::io::BufWriter::new(stdout.lock());
-            let r = output::write(report, format, &mut lock).and_then(|_| lock.flush());
-            if let Err(e) = r
-                && e.kind() != std::io::ErrorKind::BrokenPipe
-            {
-                return Err(Failure::new(format!("standard output: {e}")));
-            }
-        }
+        None => super::stdout::write_with(|w| output::write(report, format, w))?,
     }
     Ok(())
 }
@@ -296,15 +296,9 @@ pub fn exit_code(report: &FitReport) -> u8 {
 }
 
 /// Write text to standard output; a reader that went away (a closed pipe)
-/// is not an error.
+/// is not an error, a full device is (see [`super::stdout`]).
 pub fn print_stdout(text: &str) -> Result<(), Failure> {
-    let mut lock = std::io::stdout().lock();
-    match lock.write_all(text.as_bytes()).and_then(|_| lock.flush()) {
-        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => {
-            Err(Failure::new(format!("standard output: {e}")))
-        }
-        _ => Ok(()),
-    }
+    super::stdout::print(text)
 }
 
 /// An input path as messages show it (`-` is standard input).

@@ -5,6 +5,7 @@
 //! runs from any folder after `cargo install`.
 
 use super::{Failure, exit};
+use crate::atomic::stage_with;
 use crate::fit::{FitOptions, fit_file};
 use crate::input::spectra::{self, ReadOptions};
 use crate::output::{self, Format};
@@ -108,6 +109,14 @@ pub fn demo_references() -> Result<ReferenceSet, Failure> {
     Ok(ReferenceSet { components })
 }
 
+/// What the demo's results show, printed after the table.
+const DEMO_NOTES: &str = "
+The lot-2614 replicates carry an impurity none of the three references describes: their residual is flagged unexplained-absorbance (see the notes); `unblend fit ... --screen-with DIR` tries candidate spectra on it, `unblend discover` estimates its spectrum.
+The lot-2615 replicates read above 2 AU in the blue band: those points are masked out of the fit (saturation-masked); dilute and re-measure for a confident number.
+Against their targets (demo-data/targets/): lots 2611, 2613 and 2615 pass; lot 2612 carries 9 % too much saffron-yellow and fails on strength (the correction above dilutes it and tops up the other dyes); lot 2614 fails on colour (ΔE00 above 1) and on strength, its impurity biasing the fit.
+At the default alarm rate 1 % of clean samples are flagged by chance: a lone flag with a band of a few tenths of a mAU may be one of them.
+";
+
 /// Run `unblend demo`.
 pub fn run(args: Args) -> Result<u8, Failure> {
     let refs = demo_references()?;
@@ -126,15 +135,6 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             batch_volume_l: None,
         })
     });
-    println!("unblend demo: an invented ink workshop checks its production lots.");
-    println!(
-        "Three house dyes ({}), {} spectra: blanks, single-dye standards and lots in replicate, 1 cm cells.\n",
-        refs.names().join(", "),
-        report.outcomes.len()
-    );
-    let mut stdout = std::io::stdout().lock();
-    output::write(&report, Format::Table, &mut stdout)
-        .map_err(|e| Failure::new(format!("standard output: {e}")))?;
     for w in &report.warnings {
         eprintln!("unblend: warning: {w}");
     }
@@ -142,7 +142,6 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
     let csv = args.out_dir.join("results.csv");
     let json = args.out_dir.join("results.json");
-    crate::atomic::write_with(&csv, false, |w| output::write(&report, Format::Csv, w))?;
     let mut doc = output::JsonReport::from_report(&report);
     doc.run = Some(output::RunInfo {
         command: "demo".into(),
@@ -159,25 +158,31 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         ],
     });
     doc.curves = Some(crate::curves::for_file(&file, &refs, &options, &report));
-    crate::atomic::write_with(&json, false, |w| output::write_json(&doc, w))?;
     let html_path = args.out_dir.join("report.html");
     let html =
         crate::report::render_html(&doc, "unblend demo: lot check of an invented ink workshop");
-    crate::atomic::write_with(&html_path, false, |w| w.write_all(html.as_bytes()))?;
-    println!(
-        "\nThe lot-2614 replicates carry an impurity none of the three references describes: their residual is flagged unexplained-absorbance (see the notes); `unblend fit ... --screen-with DIR` tries candidate spectra on it, `unblend discover` estimates its spectrum."
-    );
-    println!(
-        "The lot-2615 replicates read above 2 AU in the blue band: those points are masked out of the fit (saturation-masked); dilute and re-measure for a confident number."
-    );
-    println!(
-        "Against their targets (demo-data/targets/): lots 2611, 2613 and 2615 pass; lot 2612 carries 9 % too much saffron-yellow and fails on strength (the correction above dilutes it and tops up the other dyes); lot 2614 fails on colour (ΔE00 above 1) and on strength, its impurity biasing the fit."
-    );
-    println!(
-        "At the default alarm rate 1 % of clean samples are flagged by chance: a lone flag with a band of a few tenths of a mAU may be one of them."
-    );
-    println!("\nwrote {} and {}", csv.display(), json.display());
-    println!("open the report in a browser: {}", html_path.display());
+    // The three files are replaced together: all old or all new.
+    crate::atomic::commit_all(vec![
+        stage_with(&csv, |w| output::write(&report, Format::Csv, w))?,
+        stage_with(&json, |w| output::write_json(&doc, w))?,
+        stage_with(&html_path, |w| w.write_all(html.as_bytes()))?,
+    ])?;
+    super::stdout::write_with(|w| {
+        writeln!(
+            w,
+            "unblend demo: an invented ink workshop checks its production lots."
+        )?;
+        writeln!(
+            w,
+            "Three house dyes ({}), {} spectra: blanks, single-dye standards and lots in replicate, 1 cm cells.\n",
+            refs.names().join(", "),
+            report.outcomes.len()
+        )?;
+        output::write(&report, Format::Table, w)?;
+        w.write_all(DEMO_NOTES.as_bytes())?;
+        writeln!(w, "\nwrote {} and {}", csv.display(), json.display())?;
+        writeln!(w, "open the report in a browser: {}", html_path.display())
+    })?;
     Ok(if report.n_failed() == 0 {
         exit::OK
     } else {

@@ -7,6 +7,7 @@ use super::inputs;
 use super::{Failure, exit};
 use crate::discover::{self, DiscoverOptions, Discovery};
 use crate::fit::FitOptions;
+use crate::guard::Named;
 use std::io::Write;
 use std::path::PathBuf;
 
@@ -40,6 +41,14 @@ pub struct Args {
 
 /// Run `unblend discover`.
 pub fn run(args: Args) -> Result<u8, Failure> {
+    crate::guard::refuse_overwriting(
+        &args
+            .inputs
+            .iter()
+            .map(|p| Named::new("input", p))
+            .collect::<Vec<_>>(),
+        &[Named::new("--out", &args.out)],
+    )?;
     if args.checks.no_diagnostics {
         return Err(Failure::new(
             "discover works on the samples the residual tests flag: drop --no-diagnostics",

@@ -8,8 +8,11 @@ use super::diagnostic_args::DiagnosticArgs;
 use super::emission_args::EmissionArgs;
 use super::qc_args::QcArgs;
 use super::{Failure, inputs};
+use crate::atomic::{AtomicFile, stage_with};
 use crate::fit::{FitOptions, FitReport, Outcome, StreamError, fit_stream_with};
+use crate::guard::Named;
 use crate::input::spectra::{self, Opened, WideStream};
+use crate::limits::Capped;
 use crate::output::{self, Format};
 use std::io::{Read, Write};
 use std::path::{Path, PathBuf};
@@ -57,13 +60,27 @@ pub struct Args {
 }
 
 /// Run `unblend fit`.
-pub fn run(args: Args) -> Result<u8, Failure> {
+pub fn run(mut args: Args) -> Result<u8, Failure> {
+    // `--out -` is standard output, as `-` is standard input.
+    args.out = args.out.filter(|p| p.as_os_str() != "-");
+    let outputs = crate::guard::given(&[
+        ("--out", args.out.as_deref()),
+        ("--report", args.report.as_deref()),
+        ("--plot", args.plot.as_deref()),
+    ]);
+    let named_inputs: Vec<Named> = args.inputs.iter().map(|p| Named::new("input", p)).collect();
+    crate::guard::refuse_overwriting(&named_inputs, &outputs)?;
     let options = FitOptions::try_from(&args.model)?;
     let format: Format = args.format.into();
     let refs = args.model.references()?;
     let checks = checks(&args)?;
     if args.emission.is_emission() {
-        let shown = args.inputs.iter().map(|p| shown(p)).collect::<Vec<_>>().join(", ");
+        let shown = args
+            .inputs
+            .iter()
+            .map(|p| shown(p))
+            .collect::<Vec<_>>()
+            .join(", ");
         return run_emission(&args, &refs.set, options, &checks, format, &shown);
     }
     check_outputs(&args, format)?;
@@ -92,12 +109,14 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     if args.report.is_some() || args.plot.is_some() || args.with_curves || args.qc.active() {
         return run_with_curves(&run);
     }
+    // Every line is capped, so an input without line breaks (/dev/zero)
+    // fails with its line number instead of filling memory.
     let reader: Box<dyn Read + Send> = if single.as_os_str() == "-" {
-        Box::new(std::io::stdin())
+        Box::new(Capped::new(std::io::stdin()))
     } else {
-        Box::new(
+        Box::new(Capped::new(
             std::fs::File::open(single).map_err(|e| Failure::new(format!("{}: {e}", run.shown)))?,
-        )
+        ))
     };
     let read_options = inputs::options_for(
         single,
@@ -173,14 +192,14 @@ fn checks(args: &Args) -> Result<crate::diagnostics::Options, Failure> {
 /// Reject output flags that do not go together.
 fn check_outputs(args: &Args, format: Format) -> Result<(), Failure> {
     if args.with_curves && format != Format::Json {
-        return Err(Failure::new(
+        return Err(Failure::usage(
             "--with-curves adds the fit curves to the JSON results: use it with --format json",
         ));
     }
     if let Some(p) = &args.plot
         && plot_kind(p).is_none()
     {
-        return Err(Failure::new(format!(
+        return Err(Failure::usage(format!(
             "--plot {}: expected a file name ending in .svg or .png (the extension picks the format)",
             p.display()
         )));
@@ -284,7 +303,9 @@ fn plot_kind(path: &std::path::Path) -> Option<PlotKind> {
 }
 
 /// Fit the whole input in memory and keep each sample's curves for the
-/// report, the figure or the JSON.
+/// report, the figure or the JSON. Every file output is staged first and
+/// replaced as one set (all old or all new); what was written is said only
+/// once it is in place.
 fn run_with_curves(run: &FitRun) -> Result<u8, Failure> {
     let file = inputs::read_all(&run.args.inputs, run.args.model.read_options().quantity)?;
     curves_for(&file, run)
@@ -305,27 +326,50 @@ fn curves_for(file: &spectra::SpectraFile, run: &FitRun) -> Result<u8, Failure> 
     let mut doc = output::JsonReport::from_report(&report);
     doc.run = Some(run_info(args, &run.shown, &run.refs.dir));
     doc.curves = Some(curves);
+    let mut staged = Vec::new();
+    let mut said = Vec::new();
     if let Some(path) = &args.plot {
-        plot(&doc, path, run)?;
+        let (file, line) = plot(&doc, path, run)?;
+        staged.push(file);
+        said.push(line);
     }
     if let Some(path) = &args.report {
         let html = crate::report::render_html(&doc, &format!("unblend fit: {}", run.shown));
-        crate::atomic::write_with(path, false, |w| w.write_all(html.as_bytes()))?;
-        eprintln!("unblend: wrote the report to {}", path.display());
+        staged.push(stage_with(path, |w| w.write_all(html.as_bytes()))?);
+        said.push(format!("unblend: wrote the report to {}", path.display()));
     }
-    if run.format == Format::Json && (args.with_curves || args.report.is_some()) {
-        for w in &report.warnings {
-            eprintln!("unblend: warning: {w}");
+    let json_doc = run.format == Format::Json && (args.with_curves || args.report.is_some());
+    let write = |w: &mut (dyn Write + Send)| {
+        if json_doc {
+            output::write_json(&doc, w)
+        } else {
+            output::write(&report, run.format, w)
         }
-        write_doc(&doc, &report, args.out.as_deref())?;
-    } else {
-        emit(&report, run.format, args.out.as_deref())?;
+    };
+    if let Some(path) = args.out.as_deref() {
+        staged.push(stage_with(path, write)?);
+        said.push(summary(report.outcomes.len(), report.n_failed(), path));
+    }
+    for w in &report.warnings {
+        eprintln!("unblend: warning: {w}");
+    }
+    crate::atomic::commit_all(staged)?;
+    for line in said {
+        eprintln!("{line}");
+    }
+    if args.out.is_none() {
+        super::stdout::write_with(write)?;
     }
     Ok(exit_code(&report))
 }
 
-/// Write the `--plot` figure of the chosen (or first fitted) sample.
-fn plot(doc: &output::JsonReport, path: &Path, run: &FitRun) -> Result<(), Failure> {
+/// The `--plot` figure of the chosen (or first fitted) sample, staged (not
+/// yet in place), and the line that says so once it is.
+fn plot(
+    doc: &output::JsonReport,
+    path: &Path,
+    run: &FitRun,
+) -> Result<(AtomicFile, String), Failure> {
     let shown = &run.shown;
     let curve = match &run.args.plot_sample {
         Some(name) => doc
@@ -349,70 +393,41 @@ fn plot(doc: &output::JsonReport, path: &Path, run: &FitRun) -> Result<(), Failu
         })?,
     };
     let svg = crate::report::sample_figure(curve);
-    write_figure(path, &svg)?;
-    eprintln!(
+    let file = stage_figure(path, &svg)?;
+    let line = format!(
         "unblend: wrote the fit of {} to {}",
         curve.sample,
         path.display()
     );
-    Ok(())
+    Ok((file, line))
 }
 
-/// Write the JSON document (with curves) to `out` or standard output.
-fn write_doc(
-    doc: &output::JsonReport,
-    report: &FitReport,
-    out: Option<&Path>,
-) -> Result<(), Failure> {
-    match out {
-        Some(path) => {
-            crate::atomic::write_with(path, false, |w| output::write_json(doc, w))?;
-            eprintln!(
-                "{}",
-                summary(report.outcomes.len(), report.n_failed(), path)
-            );
-        }
-        None => {
-            let mut lock = std::io::BufWriter::new(std::io::stdout().lock());
-            let r = output::write_json(doc, &mut lock).and_then(|_| lock.flush());
-            if let Err(e) = r
-                && e.kind() != std::io::ErrorKind::BrokenPipe
-            {
-                return Err(Failure::new(format!("standard output: {e}")));
-            }
-        }
-    }
-    Ok(())
-}
-
-/// Write a figure as SVG, or as PNG when the file name says so.
-fn write_figure(path: &std::path::Path, svg: &str) -> Result<(), Failure> {
+/// Stage a figure as SVG, or as PNG when the file name says so.
+fn stage_figure(path: &std::path::Path, svg: &str) -> Result<AtomicFile, Failure> {
     if plot_kind(path) == Some(PlotKind::Png) {
-        return write_png(path, svg);
+        return stage_png(path, svg);
     }
-    crate::atomic::write_with(path, false, |w| {
+    Ok(stage_with(path, |w| {
         w.write_all(b"<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n")?;
         w.write_all(svg.as_bytes())?;
         w.write_all(b"\n")
-    })?;
-    Ok(())
+    })?)
 }
 
 #[cfg(feature = "png")]
-fn write_png(path: &std::path::Path, svg: &str) -> Result<(), Failure> {
+fn stage_png(path: &std::path::Path, svg: &str) -> Result<AtomicFile, Failure> {
     let png = crate::report::png::render(svg, PNG_SCALE).map_err(Failure::new)?;
     if !png.has_font {
         eprintln!(
             "unblend: warning: no system font found: the PNG's text labels are missing (install a sans-serif font, or write the figure as .svg)"
         );
     }
-    crate::atomic::write_with(path, false, |w| w.write_all(&png.bytes))?;
-    Ok(())
+    Ok(stage_with(path, |w| w.write_all(&png.bytes))?)
 }
 
 #[cfg(not(feature = "png"))]
-fn write_png(path: &std::path::Path, _svg: &str) -> Result<(), Failure> {
-    Err(Failure::new(format!(
+fn stage_png(path: &std::path::Path, _svg: &str) -> Result<AtomicFile, Failure> {
+    Err(Failure::usage(format!(
         "--plot {}: this build has no PNG support (built without the `png` feature): write the figure as .svg",
         path.display()
     )))
@@ -537,14 +552,7 @@ fn stream_rows<R: Read + Send>(stream: &mut WideStream<R>, run: &FitRun) -> Resu
     };
     let result = match out {
         Some(path) => crate::atomic::write_with(path, false, &mut body).map_err(Failure::from),
-        None => {
-            let mut lock = std::io::BufWriter::with_capacity(1 << 20, std::io::stdout());
-            match body(&mut lock).and_then(|_| lock.flush()) {
-                Ok(()) => Ok(()),
-                Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => Ok(()),
-                Err(e) => Err(Failure::new(format!("standard output: {e}"))),
-            }
-        }
+        None => super::stdout::write_with(|w| body(w)),
     };
     if let Some(e) = engine_error {
         return Err(run.context(e));

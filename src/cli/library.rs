@@ -2,14 +2,24 @@
 //! check that a set of them can be told apart.
 
 use super::common::{
-    BaselineArg, FormatArg, hex, library_dir, parse_positive, parse_range_nm, print_stdout, sig,
-    summary_format,
+    BaselineArg, FormatArg, hex, library_dir, parse_pathlength_cm, parse_positive, parse_range_nm,
+    print_stdout, sig, summary_format,
 };
 use super::{Failure, exit};
+use crate::guard::Named;
 use crate::reference::{Component, Conditions, EmissionCurve, Library, Source};
 use crate::separability::{self, CheckOptions, CheckReport, DEFAULT_NOISE_AU};
 use sha2::{Digest, Sha256};
 use std::path::PathBuf;
+
+/// `println!` into a `String`, printed at the end through `print_stdout`
+/// (which ends quietly on a closed pipe, where `println!` panics).
+macro_rules! say {
+    ($out:ident, $($arg:tt)*) => {{
+        $out.push_str(&format!($($arg)*));
+        $out.push('\n');
+    }};
+}
 
 /// Library subcommands.
 #[derive(Debug, clap::Subcommand)]
@@ -97,13 +107,13 @@ pub struct CheckArgs {
     #[arg(long, value_delimiter = ',', value_name = "NAMES")]
     pub components: Vec<String>,
     /// Wavelength range LO:HI in nm [default: the range every component covers].
-    #[arg(long, value_parser = parse_range_nm, value_name = "LO:HI")]
+    #[arg(long, value_parser = parse_range_nm, allow_hyphen_values = true, value_name = "LO:HI")]
     pub range_nm: Option<(f64, f64)>,
     /// Absorbance noise of one reading, AU (typical 0.001–0.002; measure it as the SD of a blank).
     #[arg(long, default_value_t = DEFAULT_NOISE_AU, value_parser = parse_positive, value_name = "AU")]
     pub noise_au: f64,
     /// Optical pathlength of the samples, cm.
-    #[arg(long, default_value = "1", value_parser = parse_positive, value_name = "CM")]
+    #[arg(long, default_value = "1", value_parser = parse_pathlength_cm, allow_negative_numbers = true, value_name = "CM")]
     pub pathlength_cm: f64,
     /// Baseline terms the fit will use (as `fit --baseline`).
     #[arg(long, value_enum, default_value_t = BaselineArg::Offset)]
@@ -164,6 +174,11 @@ fn add(a: AddArgs) -> Result<u8, Failure> {
     let Some(spectrum) = a.spectrum.clone() else {
         return add_emission_only(a);
     };
+    let component_file = Library::path_for(&library_dir(a.library.clone()), &a.name);
+    crate::guard::refuse_overwriting(
+        &[Named::new("--spectrum", &spectrum)],
+        &[Named::new("component file", &component_file)],
+    )?;
     let emission = a
         .emission
         .as_deref()
@@ -205,12 +220,12 @@ fn add(a: AddArgs) -> Result<u8, Failure> {
     let path = Library::add(&dir, &c, a.replace)?;
     let (lo, hi) = c.range_nm();
     let (peak_nm, peak) = peak(&c);
-    println!(
-        "added '{}' to {}: {} points, {lo}–{hi} nm, peak ε {peak:.0} L/(mol·cm) at {peak_nm} nm",
+    print_stdout(&format!(
+        "added '{}' to {}: {} points, {lo}–{hi} nm, peak ε {peak:.0} L/(mol·cm) at {peak_nm} nm\n",
         c.name,
         path.display(),
         c.grid.len()
-    );
+    ))?;
     Ok(exit::OK)
 }
 
@@ -277,10 +292,10 @@ fn list(a: ListArgs) -> Result<u8, Failure> {
     let dir = library_dir(a.library);
     let lib = Library::open(&dir)?;
     if lib.components.is_empty() && lib.broken.is_empty() {
-        println!(
-            "{}: no components (add one with `unblend library add NAME --spectrum FILE.csv`)",
+        print_stdout(&format!(
+            "{}: no components (add one with `unblend library add NAME --spectrum FILE.csv`)\n",
             dir.display()
-        );
+        ))?;
         return Ok(exit::OK);
     }
     let header = [
@@ -309,7 +324,10 @@ fn list(a: ListArgs) -> Result<u8, Failure> {
             c.created.clone(),
         ]);
     }
-    print_aligned(&rows);
+    print_stdout(&format_aligned(&rows))?;
+    for w in &lib.skipped {
+        eprintln!("unblend: warning: {w}");
+    }
     for e in &lib.broken {
         eprintln!("unblend: warning: {e}");
     }
@@ -325,16 +343,17 @@ fn show(a: ShowArgs) -> Result<u8, Failure> {
     let lib = Library::open(&dir)?;
     let set = lib.select(std::slice::from_ref(&a.name))?;
     let c = &set.components[0];
+    let mut out = String::new();
     if a.csv {
         match &c.epsilon_std_error_l_per_mol_cm {
             None => {
-                println!("wavelength_nm,epsilon");
+                say!(out, "wavelength_nm,epsilon");
                 for (w, e) in c.grid.wavelengths_nm().iter().zip(&c.epsilon_l_per_mol_cm) {
-                    println!("{w},{e}");
+                    say!(out, "{w},{e}");
                 }
             }
             Some(se) => {
-                println!("wavelength_nm,epsilon,std_error");
+                say!(out, "wavelength_nm,epsilon,std_error");
                 for ((w, e), s) in c
                     .grid
                     .wavelengths_nm()
@@ -342,34 +361,43 @@ fn show(a: ShowArgs) -> Result<u8, Failure> {
                     .zip(&c.epsilon_l_per_mol_cm)
                     .zip(se)
                 {
-                    println!("{w},{e},{s}");
+                    say!(out, "{w},{e},{s}");
                 }
             }
         }
+        print_stdout(&out)?;
         return Ok(exit::OK);
     }
     let (lo, hi) = c.range_nm();
     let (pk_nm, pk) = peak(c);
     let path = Library::path_for(&dir, &c.name);
-    println!("name:        {}", c.name);
-    println!("file:        {}", path.display());
-    println!("range:       {lo}–{hi} nm, {} points", c.grid.len());
-    println!("peak ε:      {pk:.1} L/(mol·cm) at {pk_nm} nm");
-    println!(
+    say!(out, "name:        {}", c.name);
+    say!(out, "file:        {}", path.display());
+    say!(out, "range:       {lo}–{hi} nm, {} points", c.grid.len());
+    say!(out, "peak ε:      {pk:.1} L/(mol·cm) at {pk_nm} nm");
+    say!(
+        out,
         "molar mass:  {}",
         c.molar_mass_g_per_mol
             .map_or("unknown".into(), |m| format!("{m} g/mol"))
     );
-    println!(
+    say!(
+        out,
         "solvent:     {}",
         c.conditions.solvent.as_deref().unwrap_or("-")
     );
-    println!("pH:          {}", c.conditions.ph.as_deref().unwrap_or("-"));
-    println!(
+    say!(
+        out,
+        "pH:          {}",
+        c.conditions.ph.as_deref().unwrap_or("-")
+    );
+    say!(
+        out,
         "temperature: {}",
         c.conditions.temperature.as_deref().unwrap_or("-")
     );
-    println!(
+    say!(
+        out,
         "source:      {}{}{}",
         c.source.kind,
         c.source
@@ -383,7 +411,8 @@ fn show(a: ShowArgs) -> Result<u8, Failure> {
             .map(|s| format!(" (sha256 {s})"))
             .unwrap_or_default()
     );
-    println!(
+    say!(
+        out,
         "created:     {}",
         if c.created.is_empty() {
             "-"
@@ -392,18 +421,27 @@ fn show(a: ShowArgs) -> Result<u8, Failure> {
         }
     );
     if let Some(n) = &c.note {
-        println!("note:        {n}");
+        say!(out, "note:        {n}");
     }
     if let Some(k) = c.calibration() {
-        println!(
+        say!(
+            out,
             "calibration: {} standards at {} concentrations ({} blanks), {} cm, {}",
-            k.n_standards, k.n_levels, k.n_blanks, k.pathlength_cm, k.date
+            k.n_standards,
+            k.n_levels,
+            k.n_blanks,
+            k.pathlength_cm,
+            k.date
         );
-        println!(
+        say!(
+            out,
             "             calibrated range {:.4e} to {:.4e} mol/L, up to {:.3} AU",
-            k.concentration_min_mol_per_l, k.concentration_max_mol_per_l, k.max_absorbance_au
+            k.concentration_min_mol_per_l,
+            k.concentration_max_mol_per_l,
+            k.max_absorbance_au
         );
-        println!(
+        say!(
+            out,
             "             at {} nm: R² {:.5}, intercept {:.5} ± {:.5} AU (p = {:.3})",
             k.band_max_nm,
             k.r_squared_at_band_max,
@@ -412,27 +450,32 @@ fn show(a: ShowArgs) -> Result<u8, Failure> {
             k.intercept_p_value
         );
         for e in &k.excluded_standards {
-            println!("             left out {}: {}", e.sample, e.reason);
+            say!(out, "             left out {}: {}", e.sample, e.reason);
         }
         for e in &k.excluded_wavelengths {
-            println!(
+            say!(
+                out,
                 "             left out {}–{} nm: {}",
-                e.range_nm[0], e.range_nm[1], e.reason
+                e.range_nm[0],
+                e.range_nm[1],
+                e.reason
             );
         }
     }
-    println!("\nε at every 50 nm (L/(mol·cm)):");
+    say!(out, "\nε at every 50 nm (L/(mol·cm)):");
     let mut w = (lo / 50.0).ceil() * 50.0;
     while w <= hi {
         if let Some(e) = c.epsilon_at(w) {
-            println!("  {w:>6} nm  {e:>12.1}");
+            say!(out, "  {w:>6} nm  {e:>12.1}");
         }
         w += 50.0;
     }
-    println!(
+    say!(
+        out,
         "(`unblend library show {} --csv` prints every point)",
         c.name
     );
+    print_stdout(&out)?;
     Ok(exit::OK)
 }
 
@@ -658,11 +701,6 @@ fn peak(c: &Component) -> (f64, f64) {
         }
     }
     best
-}
-
-/// Print rows as a left-aligned table (first row is the header).
-pub fn print_aligned(rows: &[Vec<String>]) {
-    print!("{}", format_aligned(rows));
 }
 
 /// Format rows as a left-aligned table (first row is the header, then a

@@ -16,6 +16,7 @@ pub mod inputs;
 pub mod library;
 pub mod qc_args;
 pub mod report;
+pub mod stdout;
 
 use clap::{Parser, Subcommand};
 use std::process::ExitCode;
@@ -89,6 +90,15 @@ impl Failure {
             code: exit::FAILED,
         }
     }
+
+    /// A command-line usage error (options that do not go together, a
+    /// value clap cannot check alone), with exit code [`exit::USAGE`].
+    pub fn usage(message: impl Into<String>) -> Self {
+        Failure {
+            message: message.into(),
+            code: exit::USAGE,
+        }
+    }
 }
 
 impl From<crate::Error> for Failure {
@@ -104,15 +114,17 @@ pub fn main() -> ExitCode {
 }
 
 /// Make Ctrl-C (SIGINT, SIGTERM) end the process removing its temporary
-/// files. An interrupted run's outputs keep their previous content (see
-/// `atomic`). If the handler cannot be installed the default applies: the
+/// files. An interrupted run's outputs keep their previous content, or,
+/// past the commit point, the run finishes (see `atomic::on_interrupt`). If the handler cannot be installed the default applies: the
 /// process stops at once and temporaries stay behind, but no output is ever
 /// half written. For a process that is only this command (not a notebook).
 pub fn interrupt_removes_temporaries() {
-    let _ = ctrlc::set_handler(|| {
-        eprintln!("unblend: interrupted: outputs left as they were");
-        crate::atomic::remove_temporaries_for_exit();
-        std::process::exit(i32::from(exit::INTERRUPTED))
+    let _ = ctrlc::set_handler(|| match crate::atomic::on_interrupt() {
+        crate::atomic::Interrupt::Finish(message) => eprintln!("unblend: {message}"),
+        crate::atomic::Interrupt::Exit(message) => {
+            eprintln!("unblend: {message}");
+            std::process::exit(i32::from(exit::INTERRUPTED))
+        }
     });
 }
 

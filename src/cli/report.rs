@@ -21,16 +21,15 @@ pub struct Args {
 /// Run `unblend report`.
 pub fn run(args: Args) -> Result<u8, Failure> {
     let shown = args.results.display().to_string();
-    let bytes = super::common::read_input(&args.results)?;
     let out = args
         .out
         .clone()
         .unwrap_or_else(|| args.results.with_extension("html"));
-    if out == args.results {
-        return Err(Failure::new(format!(
-            "{shown}: the report would overwrite the results: name it with --out FILE.html"
-        )));
-    }
+    crate::guard::refuse_overwriting(
+        &[crate::guard::Named::new("results", &args.results)],
+        &[crate::guard::Named::new("--out", &out)],
+    )?;
+    let bytes = super::common::read_input(&args.results)?;
     if is_batch_run(&bytes) {
         return batch_report(&bytes, &shown, &out);
     }
@@ -41,6 +40,8 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             e.column()
         ))
     })?;
+    // Everything the drawing relies on, checked first, with its place.
+    crate::report::check::results(&doc).map_err(|e| Failure::new(format!("{shown}: {e}")))?;
     if doc.curves.is_none() {
         eprintln!(
             "unblend: warning: {shown} carries no fit curves: the report has the summary and the tables but no figures (write the results with `unblend fit ... --format json --with-curves`)"
@@ -83,6 +84,7 @@ fn batch_report(bytes: &[u8], shown: &str, out: &Path) -> Result<u8, Failure> {
             e.column()
         ))
     })?;
+    crate::report::check::plates(&run.plates).map_err(|e| Failure::new(format!("{shown}: {e}")))?;
     let mut rows = Vec::new();
     for i in &run.inputs {
         let path = i.get("path").and_then(|v| v.as_str()).unwrap_or("?");

@@ -336,6 +336,14 @@ fn read_long(rows: &[Row], cells: &CellRules) -> Vec<RawSample> {
             )),
         }
     }
+    // A sample's rows may come in any order (README): sort them by
+    // wavelength; a wavelength given twice stays an error (Grid::new).
+    for s in order.iter_mut() {
+        let mut pairs: Vec<((f64, f64), (usize, usize))> =
+            s.points.drain(..).zip(s.cells.drain(..)).collect();
+        pairs.sort_by(|x, y| x.0.0.total_cmp(&y.0.0));
+        (s.points, s.cells) = pairs.into_iter().unzip();
+    }
     order
 }
 

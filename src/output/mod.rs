@@ -120,12 +120,25 @@ pub fn write(report: &FitReport, format: Format, w: &mut dyn Write) -> io::Resul
 /// `refitted_mol_per_l` is empty and `answer` reads `fit`.
 pub const CSV_HEADER: &str = "sample,component,concentration_mol_per_l,std_error_mol_per_l,concentration_mg_per_l,std_error_mg_per_l,mole_fraction,mass_fraction,baseline_offset_au,baseline_slope_au_per_nm,residual_rms_au,r_squared,range_low_nm,range_high_nm,n_points,pathlength_cm,solver,flags,error,noise_au,reduced_chi_squared,durbin_watson,alarm_p_value,band_centre_nm,band_fwhm_nm,band_peak_au,band_signal_fraction,n_masked,screen_candidate,screen_concentration_mol_per_l,screen_p_value,refitted_mol_per_l,answer";
 
-/// Quote a CSV field when it needs it.
+/// Characters that make a spreadsheet read a cell as a formula when they
+/// start it (OWASP, "CSV Injection": = + - @ tab carriage return).
+const FORMULA_STARTS: [char; 6] = ['=', '+', '-', '@', '\t', '\r'];
+
+/// A text cell for CSV: neutralised when it starts like a formula (a
+/// leading single quote, so `=HYPERLINK(..)` or `+cmd|..` in a sample name
+/// stays text when the file is opened in a spreadsheet), then quoted when
+/// it needs it. Only text goes through here: numbers are written as they
+/// are, and JSON keeps the raw text.
 pub fn csv_field(s: &str) -> std::borrow::Cow<'_, str> {
+    let s: std::borrow::Cow<'_, str> = if s.starts_with(FORMULA_STARTS) {
+        std::borrow::Cow::Owned(format!("'{s}"))
+    } else {
+        std::borrow::Cow::Borrowed(s)
+    };
     if s.contains([',', '"', '\n', '\r']) || s.starts_with(' ') || s.ends_with(' ') {
         std::borrow::Cow::Owned(format!("\"{}\"", s.replace('"', "\"\"")))
     } else {
-        std::borrow::Cow::Borrowed(s)
+        s
     }
 }
 

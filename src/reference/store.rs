@@ -19,6 +19,10 @@ pub struct Library {
     pub components: Vec<Component>,
     /// Files that could not be read, with their errors.
     pub broken: Vec<Error>,
+    /// Entries named like component files that are not regular files (a
+    /// pipe, device or folder, or a link to one): never opened, since a
+    /// pipe could hang the run and a device never end. One message each.
+    pub skipped: Vec<String>,
 }
 
 /// An ordered selection of components: the columns of the model.
@@ -75,7 +79,16 @@ impl Library {
         paths.sort();
         let mut components = Vec::new();
         let mut broken = Vec::new();
+        let mut skipped = Vec::new();
         for path in paths {
+            // `metadata` follows links: a link to a regular file is read.
+            if !std::fs::metadata(&path).is_ok_and(|m| m.is_file()) {
+                skipped.push(format!(
+                    "{}: not a regular file (a pipe, device or folder): skipped",
+                    path.display()
+                ));
+                continue;
+            }
             match read_component(&path) {
                 Ok(c) => components.push(c),
                 Err(e) => broken.push(e),
@@ -86,6 +99,7 @@ impl Library {
             dir: dir.to_path_buf(),
             components,
             broken,
+            skipped,
         })
     }
 
@@ -169,9 +183,10 @@ impl Library {
 
 fn read_component(path: &Path) -> Result<Component> {
     let shown = path.display().to_string();
-    let text = std::fs::read_to_string(path).map_err(|e| Error::ComponentFile {
+    let bytes = crate::limits::read_regular(path, crate::limits::MAX_COMPONENT_BYTES)?;
+    let text = String::from_utf8(bytes).map_err(|e| Error::ComponentFile {
         path: shown.clone(),
-        message: e.to_string(),
+        message: format!("not UTF-8 text ({e})"),
     })?;
     let c = Component::from_toml(&text, &shown)?;
     let stem = path

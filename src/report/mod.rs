@@ -11,6 +11,7 @@
 //! the masked points. Plotted points are decimated above
 //! [`MAX_PLOT_POINTS`]; the numbers in the tables never are.
 
+pub mod check;
 pub mod plates;
 #[cfg(feature = "png")]
 pub mod png;

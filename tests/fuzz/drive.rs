@@ -239,11 +239,45 @@ pub fn component(data: &[u8]) {
     );
 }
 
+/// Results files for `unblend report`: fit results (JSON, with curves) or a
+/// batch's plates. Whatever `report::check` lets through must draw without
+/// panicking (the hardening campaign found unequal curve lengths panicking
+/// in the SVG code).
+pub fn report(data: &[u8]) {
+    use unblend::report::check;
+    use unblend::report::plates::{PlateReport, RunHead};
+    if let Ok(doc) = serde_json::from_slice::<unblend::output::JsonReport>(data)
+        && check::results(&doc).is_ok()
+    {
+        let _ = unblend::report::render_html(&doc, "fuzz");
+    }
+    #[derive(serde::Deserialize)]
+    struct Run {
+        components: Vec<String>,
+        plates: Vec<unblend::batch::PlateResult>,
+    }
+    if let Ok(run) = serde_json::from_slice::<Run>(data)
+        && check::plates(&run.plates).is_ok()
+    {
+        let mut report = PlateReport::new(run.components);
+        for p in &run.plates {
+            report.plate(p);
+        }
+        let head = RunHead {
+            title: "fuzz".into(),
+            tool: "unblend".into(),
+            rows: Vec::new(),
+            warnings: Vec::new(),
+        };
+        let _ = report.finish(&head);
+    }
+}
+
 /// A parser driver: bytes in, no panic out.
 pub type Target = fn(&[u8]);
 
 /// Every target by name (the folder names under `corpus/` and `regressions/`).
-pub const TARGETS: [(&str, Target); 9] = [
+pub const TARGETS: [(&str, Target); 10] = [
     ("spectra", spectra),
     ("table", table),
     ("jcamp", jcamp),
@@ -253,4 +287,5 @@ pub const TARGETS: [(&str, Target); 9] = [
     ("plate_grid", plate_grid),
     ("platemap", platemap),
     ("component", component),
+    ("report", report),
 ];
