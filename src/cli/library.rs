@@ -2,12 +2,13 @@
 //! check that a set of them can be told apart.
 
 use super::common::{
-    BaselineArg, FormatArg, hex, library_dir, parse_positive, parse_range_nm, print_stdout, sig,
-    summary_format,
+    BaselineArg, FormatArg, hex, library_dir, parse_positive, parse_range_nm, print_rendered,
+    print_stdout, summary_format,
 };
 use super::{Failure, exit};
+use crate::output;
 use crate::reference::{Component, Conditions, Library, Source};
-use crate::separability::{self, CheckOptions, CheckReport, DEFAULT_NOISE_AU};
+use crate::separability::{self, CheckOptions, DEFAULT_NOISE_AU};
 use sha2::{Digest, Sha256};
 use std::path::PathBuf;
 
@@ -179,7 +180,7 @@ fn add(a: AddArgs) -> Result<u8, Failure> {
     let dir = library_dir(a.library);
     let path = Library::add(&dir, &c, a.replace)?;
     let (lo, hi) = c.range_nm();
-    let (peak_nm, peak) = peak(&c);
+    let (peak_nm, peak) = output::library::peak(&c);
     println!(
         "added '{}' to {}: {} points, {lo}–{hi} nm, peak ε {peak:.0} L/(mol·cm) at {peak_nm} nm",
         c.name,
@@ -199,33 +200,7 @@ fn list(a: ListArgs) -> Result<u8, Failure> {
         );
         return Ok(exit::OK);
     }
-    let header = [
-        "name",
-        "range (nm)",
-        "points",
-        "peak ε (L/(mol·cm))",
-        "at (nm)",
-        "molar mass (g/mol)",
-        "source",
-        "created",
-    ];
-    let mut rows: Vec<Vec<String>> = vec![header.iter().map(|s| s.to_string()).collect()];
-    for c in &lib.components {
-        let (lo, hi) = c.range_nm();
-        let (pk_nm, pk) = peak(c);
-        rows.push(vec![
-            c.name.clone(),
-            format!("{lo}–{hi}"),
-            c.grid.len().to_string(),
-            format!("{pk:.0}"),
-            format!("{pk_nm}"),
-            c.molar_mass_g_per_mol
-                .map_or("-".into(), |m| format!("{m}")),
-            c.source.kind.clone(),
-            c.created.clone(),
-        ]);
-    }
-    print_aligned(&rows);
+    print_rendered(|w| output::library::write_list(&lib.components, w))?;
     for e in &lib.broken {
         eprintln!("unblend: warning: {e}");
     }
@@ -242,113 +217,11 @@ fn show(a: ShowArgs) -> Result<u8, Failure> {
     let set = lib.select(std::slice::from_ref(&a.name))?;
     let c = &set.components[0];
     if a.csv {
-        match &c.epsilon_std_error_l_per_mol_cm {
-            None => {
-                println!("wavelength_nm,epsilon");
-                for (w, e) in c.grid.wavelengths_nm().iter().zip(&c.epsilon_l_per_mol_cm) {
-                    println!("{w},{e}");
-                }
-            }
-            Some(se) => {
-                println!("wavelength_nm,epsilon,std_error");
-                for ((w, e), s) in c
-                    .grid
-                    .wavelengths_nm()
-                    .iter()
-                    .zip(&c.epsilon_l_per_mol_cm)
-                    .zip(se)
-                {
-                    println!("{w},{e},{s}");
-                }
-            }
-        }
-        return Ok(exit::OK);
+        print_rendered(|w| output::library::write_component_csv(c, w))?;
+    } else {
+        let path = Library::path_for(&dir, &c.name);
+        print_rendered(|w| output::library::write_component(c, &path, w))?;
     }
-    let (lo, hi) = c.range_nm();
-    let (pk_nm, pk) = peak(c);
-    let path = Library::path_for(&dir, &c.name);
-    println!("name:        {}", c.name);
-    println!("file:        {}", path.display());
-    println!("range:       {lo}–{hi} nm, {} points", c.grid.len());
-    println!("peak ε:      {pk:.1} L/(mol·cm) at {pk_nm} nm");
-    println!(
-        "molar mass:  {}",
-        c.molar_mass_g_per_mol
-            .map_or("unknown".into(), |m| format!("{m} g/mol"))
-    );
-    println!(
-        "solvent:     {}",
-        c.conditions.solvent.as_deref().unwrap_or("-")
-    );
-    println!("pH:          {}", c.conditions.ph.as_deref().unwrap_or("-"));
-    println!(
-        "temperature: {}",
-        c.conditions.temperature.as_deref().unwrap_or("-")
-    );
-    println!(
-        "source:      {}{}{}",
-        c.source.kind,
-        c.source
-            .file
-            .as_deref()
-            .map(|f| format!(" from {f}"))
-            .unwrap_or_default(),
-        c.source
-            .sha256
-            .as_deref()
-            .map(|s| format!(" (sha256 {s})"))
-            .unwrap_or_default()
-    );
-    println!(
-        "created:     {}",
-        if c.created.is_empty() {
-            "-"
-        } else {
-            &c.created
-        }
-    );
-    if let Some(n) = &c.note {
-        println!("note:        {n}");
-    }
-    if let Some(k) = c.calibration() {
-        println!(
-            "calibration: {} standards at {} concentrations ({} blanks), {} cm, {}",
-            k.n_standards, k.n_levels, k.n_blanks, k.pathlength_cm, k.date
-        );
-        println!(
-            "             calibrated range {:.4e} to {:.4e} mol/L, up to {:.3} AU",
-            k.concentration_min_mol_per_l, k.concentration_max_mol_per_l, k.max_absorbance_au
-        );
-        println!(
-            "             at {} nm: R² {:.5}, intercept {:.5} ± {:.5} AU (p = {:.3})",
-            k.band_max_nm,
-            k.r_squared_at_band_max,
-            k.intercept_at_band_max_au,
-            k.intercept_std_error_at_band_max_au,
-            k.intercept_p_value
-        );
-        for e in &k.excluded_standards {
-            println!("             left out {}: {}", e.sample, e.reason);
-        }
-        for e in &k.excluded_wavelengths {
-            println!(
-                "             left out {}–{} nm: {}",
-                e.range_nm[0], e.range_nm[1], e.reason
-            );
-        }
-    }
-    println!("\nε at every 50 nm (L/(mol·cm)):");
-    let mut w = (lo / 50.0).ceil() * 50.0;
-    while w <= hi {
-        if let Some(e) = c.epsilon_at(w) {
-            println!("  {w:>6} nm  {e:>12.1}");
-        }
-        w += 50.0;
-    }
-    println!(
-        "(`unblend library show {} --csv` prints every point)",
-        c.name
-    );
     Ok(exit::OK)
 }
 
@@ -368,7 +241,9 @@ fn check(a: CheckArgs) -> Result<u8, Failure> {
             print_stdout(&format!("{text}\n"))?;
         }
         // `summary_format` never gives csv.
-        FormatArg::Table | FormatArg::Csv => print_check(&report)?,
+        FormatArg::Table | FormatArg::Csv => {
+            print_rendered(|w| output::library::write_check(&report, w))?
+        }
     }
     if let Some(path) = &a.report {
         let html = crate::report::render_check_html(&refs, &report, &dir.display().to_string());
@@ -378,180 +253,4 @@ fn check(a: CheckArgs) -> Result<u8, Failure> {
         eprintln!("unblend: wrote the check report to {}", path.display());
     }
     Ok(exit::OK)
-}
-
-/// A display unit for concentrations of about `typical` mol/L.
-fn concentration_unit(typical: f64) -> (&'static str, f64) {
-    for (label, factor) in [
-        ("mol/L", 1.0),
-        ("mmol/L", 1e3),
-        ("µmol/L", 1e6),
-        ("nmol/L", 1e9),
-    ] {
-        if typical * factor >= 0.1 {
-            return (label, factor);
-        }
-    }
-    ("nmol/L", 1e9)
-}
-
-fn print_check(r: &CheckReport) -> Result<(), Failure> {
-    let mut out = String::new();
-    macro_rules! say {
-        ($($t:tt)*) => {{
-            out.push_str(&format!($($t)*));
-            out.push('\n');
-        }};
-    }
-    let fmt_cond = |c: Option<f64>| c.map_or("infinite".into(), |c| format!("{c:.3}"));
-    say!("reference set: {}", r.components.join(", "));
-    say!(
-        "range {}–{} nm, {} readings {} nm apart, baseline {}, pathlength {} cm, noise {} AU per reading",
-        r.range_nm[0],
-        r.range_nm[1],
-        r.n_points,
-        r.step_nm,
-        r.baseline,
-        r.pathlength_cm,
-        r.noise_au
-    );
-    say!(
-        "condition number {} (columns scaled to unit length; fit would solve with {})",
-        fmt_cond(r.condition_number),
-        r.solver
-    );
-    let smallest = r
-        .per_component
-        .iter()
-        .filter_map(|c| c.std_error_mol_per_l)
-        .fold(f64::INFINITY, f64::min);
-    let (unit, factor) = concentration_unit(if smallest.is_finite() { smallest } else { 1e-6 });
-    let cell = |v: Option<f64>| v.map_or("-".into(), |v| sig(v * factor));
-    let mut rows = vec![vec![
-        "component".to_string(),
-        "VIF".into(),
-        format!("SE ({unit})"),
-        format!("LOD 3.3σ ({unit})"),
-        format!("LOQ 10σ ({unit})"),
-        "LOQ (mg/L)".into(),
-        format!("calibrated up to ({unit})"),
-    ]];
-    for c in &r.per_component {
-        rows.push(vec![
-            c.name.clone(),
-            c.vif.map_or("infinite".into(), |v| format!("{v:.2}")),
-            cell(c.std_error_mol_per_l),
-            cell(c.lod_mol_per_l),
-            cell(c.loq_mol_per_l),
-            c.loq_mg_per_l.map_or("-".into(), sig),
-            cell(c.calibrated_max_mol_per_l),
-        ]);
-    }
-    say!("");
-    out.push_str(&format_aligned(&rows));
-    if !r.pairs.is_empty() {
-        say!("");
-        let mut pairs: Vec<_> = r.pairs.iter().collect();
-        pairs.sort_by(|a, b| b.cosine.total_cmp(&a.cosine));
-        let mut rows = vec![vec![
-            "pair".to_string(),
-            "cosine".into(),
-            "after baseline".into(),
-            "pair VIF".into(),
-            "separable".into(),
-        ]];
-        for p in pairs {
-            rows.push(vec![
-                format!("{} / {}", p.a, p.b),
-                format!("{:.4}", p.cosine),
-                p.cosine_after_baseline
-                    .map_or("-".into(), |c| format!("{c:.4}")),
-                p.variance_inflation
-                    .map_or("infinite".into(), |v| format!("{v:.2}")),
-                if p.collinear {
-                    "no: collinear".into()
-                } else {
-                    "yes".into()
-                },
-            ]);
-        }
-        out.push_str(&format_aligned(&rows));
-    }
-    let whole_is_best = r.best_range.as_ref().is_some_and(|b| {
-        (b.range_nm[0] - r.range_nm[0]).abs() < 1e-9 && (b.range_nm[1] - r.range_nm[1]).abs() < 1e-9
-    });
-    if whole_is_best {
-        say!(
-            "\nbest conditioning: the whole range (no window at least {:.0} nm wide is better conditioned)",
-            r.best_range.as_ref().map_or(0.0, |b| b.min_width_nm)
-        );
-    } else if let Some(b) = &r.best_range {
-        say!(
-            "\nbest conditioning over windows at least {:.0} nm wide: {}–{} nm (condition {:.3} with the columns scaled as over the whole range, vs {} over {}–{} nm; {} there on its own scaling)",
-            b.min_width_nm,
-            b.range_nm[0],
-            b.range_nm[1],
-            b.scan_condition_number,
-            fmt_cond(r.condition_number),
-            r.range_nm[0],
-            r.range_nm[1],
-            fmt_cond(b.condition_number)
-        );
-        say!(
-            "(more wavelengths never raise the predicted errors at constant noise; a better-conditioned range is less sensitive to errors in the references)"
-        );
-    }
-    say!("");
-    if r.warnings.is_empty() {
-        say!("verdict: separable over this range (no collinear pairs)");
-    } else {
-        say!(
-            "verdict: {} warning(s), printed on standard error",
-            r.warnings.len()
-        );
-    }
-    print_stdout(&out)
-}
-
-fn peak(c: &Component) -> (f64, f64) {
-    let mut best = (c.grid.wavelengths_nm()[0], f64::NEG_INFINITY);
-    for (w, e) in c.grid.wavelengths_nm().iter().zip(&c.epsilon_l_per_mol_cm) {
-        if *e > best.1 {
-            best = (*w, *e);
-        }
-    }
-    best
-}
-
-/// Print rows as a left-aligned table (first row is the header).
-pub fn print_aligned(rows: &[Vec<String>]) {
-    print!("{}", format_aligned(rows));
-}
-
-/// Format rows as a left-aligned table (first row is the header, then a
-/// rule).
-pub fn format_aligned(rows: &[Vec<String>]) -> String {
-    let ncol = rows.iter().map(Vec::len).max().unwrap_or(0);
-    let mut width = vec![0; ncol];
-    for r in rows {
-        for (i, c) in r.iter().enumerate() {
-            width[i] = width[i].max(c.chars().count());
-        }
-    }
-    let mut out = String::new();
-    for (k, r) in rows.iter().enumerate() {
-        let mut s = String::new();
-        for (i, c) in r.iter().enumerate() {
-            s.push_str(c);
-            s.push_str(&" ".repeat(width[i] - c.chars().count() + 2));
-        }
-        out.push_str(s.trim_end());
-        out.push('\n');
-        if k == 0 {
-            let rule: Vec<String> = width.iter().map(|w| "-".repeat(*w)).collect();
-            out.push_str(&rule.join("  "));
-            out.push('\n');
-        }
-    }
-    out
 }

@@ -1,0 +1,1 @@
+//! The batch run log (`run-log.txt`).
