@@ -100,12 +100,12 @@ fn parse_unit(s: &str) -> Result<ConcentrationUnit, String> {
 impl TryFrom<&Args> for CalibrationOptions {
     type Error = Failure;
     fn try_from(a: &Args) -> Result<Self, Failure> {
-        Ok(CalibrationOptions {
-            pathlength_cm: a.pathlength_cm,
-            window_nm: a.range_nm,
-            linearity_tolerance: a.linearity_tolerance,
-            absorbance_ceiling_au: a.max_absorbance_au,
-        })
+        Ok(CalibrationOptions::new(
+            a.pathlength_cm,
+            a.range_nm,
+            a.linearity_tolerance,
+            a.max_absorbance_au,
+        )?)
     }
 }
 

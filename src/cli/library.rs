@@ -125,13 +125,13 @@ Exit codes:
 impl TryFrom<&CheckArgs> for CheckOptions {
     type Error = Failure;
     fn try_from(a: &CheckArgs) -> Result<Self, Failure> {
-        Ok(CheckOptions {
-            baseline: a.baseline.into(),
-            window_nm: a.range_nm,
-            step_nm: a.step_nm,
-            noise_au: a.noise_au,
-            pathlength_cm: a.pathlength_cm,
-        })
+        Ok(CheckOptions::new(
+            a.baseline.into(),
+            a.range_nm,
+            a.step_nm,
+            a.noise_au,
+            a.pathlength_cm,
+        )?)
     }
 }
 
