@@ -155,14 +155,20 @@ fn stem(path: &Path) -> String {
         .unwrap_or_else(|| "plate".into())
 }
 
-/// Read one input to its end, sending its plates; what happened to it.
-fn read_input(
-    index: usize,
-    input: Input,
+/// What the reader thread shares across inputs.
+struct ReaderSide<'a> {
     quantity: Quantity,
-    counter: &AtomicU64,
-    tx: &mpsc::SyncSender<Message>,
-) -> InputSummary {
+    counter: &'a AtomicU64,
+    tx: mpsc::SyncSender<Message>,
+}
+
+/// Read one input to its end, sending its plates; what happened to it.
+fn read_input(index: usize, input: Input, side: &ReaderSide) -> InputSummary {
+    let ReaderSide {
+        quantity,
+        counter,
+        tx,
+    } = side;
     let mut summary = InputSummary {
         path: input.shown,
         layout: None,
@@ -183,7 +189,7 @@ fn read_input(
             return summary;
         }
     };
-    let mut stream = match PlateStream::open(tap, &input.stem, quantity) {
+    let mut stream = match PlateStream::open(tap, &input.stem, *quantity) {
         Ok(s) => s,
         Err(e) => {
             summary.error = Some(e.to_string());
@@ -244,10 +250,15 @@ where
         ..
     } = spec;
     std::thread::scope(|scope| {
+        let side = ReaderSide {
+            quantity,
+            counter: bytes_read,
+            tx,
+        };
         let reader = scope.spawn(move || {
             for (i, input) in inputs.into_iter().enumerate() {
-                let s = read_input(i, input, quantity, bytes_read, &tx);
-                if tx.send(Message::Input(s)).is_err() {
+                let s = read_input(i, input, &side);
+                if side.tx.send(Message::Input(s)).is_err() {
                     return;
                 }
             }
@@ -258,6 +269,14 @@ where
         let _ = reader.join();
         outcome
     })
+}
+
+/// Plates between the reader and the sink.
+struct Queue<R> {
+    /// Read, waiting to be processed (with their input's index).
+    pending: Vec<(usize, RawPlate)>,
+    /// Processed but not yet handed to the sink.
+    done: Vec<(Box<PlateResult>, R)>,
 }
 
 /// What the worker threads need to turn a raw plate into a result.
@@ -308,19 +327,14 @@ impl<F: Sync> Workers<'_, F> {
     /// Hand the processed plates to the sink while the next window is
     /// processed in parallel: the sink writes one window while the workers
     /// work on the next.
-    fn step<R, S>(
-        &self,
-        pending: &mut Vec<(usize, RawPlate)>,
-        done: &mut Vec<(Box<PlateResult>, R)>,
-        sink: &mut S,
-    ) -> io::Result<()>
+    fn step<R, S>(&self, queue: &mut Queue<R>, sink: &mut S) -> io::Result<()>
     where
         R: Send,
         F: Fn(&mut PlateResult) -> R,
         S: FnMut(Event<R>) -> io::Result<()> + Send,
     {
-        let ready = std::mem::take(done);
-        let work = std::mem::take(pending);
+        let ready = std::mem::take(&mut queue.done);
+        let work = std::mem::take(&mut queue.pending);
         let (written, next) = rayon::join(
             || -> io::Result<()> {
                 for (p, r) in ready {
@@ -334,7 +348,7 @@ impl<F: Sync> Workers<'_, F> {
                     .collect::<Vec<_>>()
             },
         );
-        *done = next;
+        queue.done = next;
         written
     }
 
@@ -347,28 +361,29 @@ impl<F: Sync> Workers<'_, F> {
         S: FnMut(Event<R>) -> io::Result<()> + Send,
     {
         let mut seen: HashMap<String, String> = HashMap::new();
-        let mut pending: Vec<(usize, RawPlate)> = Vec::with_capacity(self.window);
-        // Plates processed but not yet handed to the sink.
-        let mut done: Vec<(Box<PlateResult>, R)> = Vec::new();
+        let mut queue = Queue {
+            pending: Vec::with_capacity(self.window),
+            done: Vec::new(),
+        };
         for message in rx.iter() {
             match message {
                 Message::Plate(input, raw) => {
                     let raw = unique_name(&mut seen, raw, &self.shown_inputs[input]);
-                    pending.push((input, raw));
-                    if pending.len() >= self.window {
-                        self.step(&mut pending, &mut done, sink)?;
+                    queue.pending.push((input, raw));
+                    if queue.pending.len() >= self.window {
+                        self.step(&mut queue, sink)?;
                     }
                 }
                 Message::Input(s) => {
                     // Everything before the input's end goes out first.
-                    self.step(&mut pending, &mut done, sink)?;
-                    self.step(&mut pending, &mut done, sink)?;
+                    self.step(&mut queue, sink)?;
+                    self.step(&mut queue, sink)?;
                     sink(Event::Input(s))?;
                 }
             }
         }
-        self.step(&mut pending, &mut done, sink)?;
-        self.step(&mut pending, &mut done, sink)
+        self.step(&mut queue, sink)?;
+        self.step(&mut queue, sink)
     }
 }
 
