@@ -75,6 +75,35 @@ pub struct DiscoverOptions {
     pub max_iterations: usize,
 }
 
+impl DiscoverOptions {
+    /// Options with their values checked: the peak ε must be positive and
+    /// at least one iteration allowed ([`Error::OutOfRange`] otherwise).
+    pub fn new(peak_epsilon_l_per_mol_cm: f64, max_iterations: usize) -> Result<Self> {
+        let options = DiscoverOptions {
+            peak_epsilon_l_per_mol_cm,
+            max_iterations,
+        };
+        options.check_values()?;
+        Ok(options)
+    }
+
+    /// Check the values (the fields are public, so [`discover`] checks
+    /// again what [`DiscoverOptions::new`] checked).
+    fn check_values(&self) -> Result<()> {
+        let expected = "a positive number of L/(mol·cm)";
+        Error::require_positive("peak ε", self.peak_epsilon_l_per_mol_cm, "", expected)?;
+        if self.max_iterations == 0 {
+            return Err(Error::OutOfRange {
+                option: "--max-iterations",
+                value: 0.0,
+                unit: "",
+                expected: "at least 1",
+            });
+        }
+        Ok(())
+    }
+}
+
 impl Default for DiscoverOptions {
     fn default() -> Self {
         DiscoverOptions {
@@ -176,14 +205,7 @@ pub fn discover(
             "discovery needs the residual tests to find flagged samples".into(),
         ));
     };
-    if !(d.peak_epsilon_l_per_mol_cm.is_finite() && d.peak_epsilon_l_per_mol_cm > 0.0) {
-        return Err(Error::OutOfRange {
-            option: "peak ε",
-            value: d.peak_epsilon_l_per_mol_cm,
-            unit: "",
-            expected: "a positive number of L/(mol·cm)",
-        });
-    }
+    d.check_values()?;
     let checks = diagnostics::Options {
         candidates: None,
         ..checks.clone()
@@ -742,5 +764,16 @@ mod tests {
         // The same through the other Gram matrix.
         let (s_t, _, _) = leading_singular(&r.transpose());
         assert!((s_t[0] - 15.0).abs() < 1e-10);
+    }
+
+    #[test]
+    fn options_reject_a_non_positive_peak_and_zero_iterations() {
+        // A molar absorptivity is positive by definition (Beer–Lambert law: common
+        // practice, no source).
+        assert!(DiscoverOptions::new(20_000.0, 50).is_ok());
+        let e = DiscoverOptions::new(0.0, 50).unwrap_err().to_string();
+        assert!(e.starts_with("peak ε 0: expected a positive"), "{e}");
+        let e = DiscoverOptions::new(20_000.0, 0).unwrap_err().to_string();
+        assert_eq!(e, "--max-iterations 0: expected at least 1");
     }
 }

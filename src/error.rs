@@ -185,6 +185,25 @@ pub enum Error {
 pub type Result<T, E = Error> = std::result::Result<T, E>;
 
 impl Error {
+    /// `Ok` when an option's `value` is finite and positive, else
+    /// [`Error::OutOfRange`] with what it `expected`.
+    pub fn require_positive(
+        option: &'static str,
+        value: f64,
+        unit: &'static str,
+        expected: &'static str,
+    ) -> Result<()> {
+        if value.is_finite() && value > 0.0 {
+            return Ok(());
+        }
+        Err(Error::OutOfRange {
+            option,
+            value,
+            unit,
+            expected,
+        })
+    }
+
     /// Build a parse error, shortening very long or binary values for display.
     pub fn parse(line: usize, column: usize, raw: &[u8], expected: impl Into<String>) -> Self {
         Error::Parse {
@@ -284,6 +303,30 @@ mod tests {
             e.to_string(),
             "the concentration file has no row for 's1', 's2', 's3', 's4', 's5' and 2 more of the spectra file: give every spectrum a row"
         );
+    }
+
+    #[test]
+    fn require_positive_rejects_zero_negative_and_not_finite() {
+        assert!(Error::require_positive("noise", 0.002, " AU", "a positive number").is_ok());
+        for bad in [0.0, -1.0, f64::NAN, f64::INFINITY] {
+            let e = Error::require_positive("noise", bad, " AU", "a positive number");
+            assert!(matches!(
+                e,
+                Err(Error::OutOfRange {
+                    option: "noise",
+                    ..
+                })
+            ));
+        }
+        let e = crate::separability::CheckOptions::new(
+            crate::preprocess::Baseline::Offset,
+            None,
+            1.0,
+            -0.5,
+            1.0,
+        );
+        let message = e.unwrap_err().to_string();
+        assert_eq!(message, "--noise-au -0.5: expected a positive number");
     }
 
     #[test]

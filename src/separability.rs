@@ -284,6 +284,37 @@ pub struct CheckOptions {
     pub pathlength_cm: f64,
 }
 
+impl CheckOptions {
+    /// Options with their values checked: step, noise and pathlength must
+    /// be positive ([`Error::OutOfRange`] otherwise).
+    pub fn new(
+        baseline: Baseline,
+        window_nm: Option<(f64, f64)>,
+        step_nm: f64,
+        noise_au: f64,
+        pathlength_cm: f64,
+    ) -> Result<Self> {
+        let options = CheckOptions {
+            baseline,
+            window_nm,
+            step_nm,
+            noise_au,
+            pathlength_cm,
+        };
+        options.check_values()?;
+        Ok(options)
+    }
+
+    /// Check the values (the fields are public, so [`check`] checks again
+    /// what [`CheckOptions::new`] checked).
+    fn check_values(&self) -> Result<()> {
+        let expected = "a positive number";
+        Error::require_positive("--step-nm", self.step_nm, "", expected)?;
+        Error::require_positive("--noise-au", self.noise_au, "", expected)?;
+        Error::require_positive("--pathlength-cm", self.pathlength_cm, "", expected)
+    }
+}
+
 impl Default for CheckOptions {
     fn default() -> Self {
         CheckOptions {
@@ -398,20 +429,7 @@ fn regular_grid(lo: f64, hi: f64, step: f64) -> Result<Grid> {
 
 /// Check a reference set: conditioning, similarity, predicted errors.
 pub fn check(refs: &ReferenceSet, options: &CheckOptions) -> Result<CheckReport> {
-    for (option, v) in [
-        ("--step-nm", options.step_nm),
-        ("--noise-au", options.noise_au),
-        ("--pathlength-cm", options.pathlength_cm),
-    ] {
-        if !(v.is_finite() && v > 0.0) {
-            return Err(Error::OutOfRange {
-                option,
-                value: v,
-                unit: "",
-                expected: "a positive number",
-            });
-        }
-    }
+    options.check_values()?;
     if refs.components.is_empty() {
         return Err(Error::Invalid("no reference components selected".into()));
     }

@@ -25,18 +25,15 @@ const MEAN_REL_TOL: f64 = 0.02;
 const WELL_REL_TOL: f64 = 0.04;
 
 fn bin() -> &'static str {
-    env!("CARGO_BIN_EXE_unblend")
+    common::BIN
 }
 
 fn library_dir() -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR")).join("library")
+    Path::new(common::ROOT).join("library")
 }
 
-fn temp_dir(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("unblend-batch-{name}-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).unwrap();
-    d
+fn temp_dir(name: &str) -> common::Scratch {
+    common::Scratch::new(&format!("batch-{name}"))
 }
 
 /// SplitMix64 + Box–Muller: seeded noise without a dependency.

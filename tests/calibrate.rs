@@ -3,6 +3,9 @@
 //! JSON output is parsed into the typed structs below, so a schema change
 //! is caught. Every check against an outside value names its source.
 
+mod common;
+
+use common::{BIN, Scratch};
 use rand::SeedableRng;
 use rand::rngs::StdRng;
 use rand_distr::{Distribution, Normal, Uniform};
@@ -12,15 +15,13 @@ use std::process::{Command, Output};
 
 // ---------------------------------------------------------------- helpers
 
-/// A scratch folder removed at the end of the test.
-struct Dir(PathBuf);
+/// A scratch folder (`common::Scratch`, removed at the end of the test)
+/// with the paths this file's tests use.
+struct Dir(Scratch);
 
 impl Dir {
     fn new(name: &str) -> Self {
-        let p = std::env::temp_dir().join(format!("unblend-cal-{name}-{}", std::process::id()));
-        let _ = std::fs::remove_dir_all(&p);
-        std::fs::create_dir_all(&p).unwrap();
-        Dir(p)
+        Dir(Scratch::new(&format!("cal-{name}")))
     }
 
     fn path(&self, file: &str) -> PathBuf {
@@ -38,14 +39,8 @@ impl Dir {
     }
 }
 
-impl Drop for Dir {
-    fn drop(&mut self) {
-        let _ = std::fs::remove_dir_all(&self.0);
-    }
-}
-
 fn run(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_unblend"))
+    Command::new(BIN)
         .args(args)
         .env_remove("UNBLEND_LIBRARY")
         .output()

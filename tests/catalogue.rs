@@ -5,11 +5,11 @@
 //! code must match and nothing may panic. The `fit` entries are in
 //! `tests/cli.rs`.
 
-use std::path::{Path, PathBuf};
-use std::process::Command;
+mod common;
 
-const BIN: &str = env!("CARGO_BIN_EXE_unblend");
-const ROOT: &str = env!("CARGO_MANIFEST_DIR");
+use common::{BIN, ROOT, Scratch};
+use std::path::Path;
+use std::process::Command;
 
 /// One entry: the files to write, the command line, exit code and message.
 struct Bad {
@@ -20,11 +20,8 @@ struct Bad {
     message: &'static str,
 }
 
-fn tempdir(tag: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("unblend-catalogue-{tag}-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).expect("temp dir");
-    d
+fn tempdir(tag: &str) -> Scratch {
+    Scratch::new(&format!("catalogue-{tag}"))
 }
 
 const GRID: &str =

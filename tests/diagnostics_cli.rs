@@ -3,12 +3,11 @@
 //! columns, `discover`, and bad option values. The demo data is invented
 //! (demo-data/README.md); its truth file says what the fit should recover.
 
-use serde::Deserialize;
-use std::path::{Path, PathBuf};
-use std::process::{Command, Stdio};
+mod common;
 
-const BIN: &str = env!("CARGO_BIN_EXE_unblend");
-const ROOT: &str = env!("CARGO_MANIFEST_DIR");
+use common::{ROOT, Run, Scratch, run_in};
+use serde::Deserialize;
+use std::path::Path;
 
 #[derive(Debug, Deserialize)]
 struct Report {
@@ -88,32 +87,12 @@ struct Amount {
     residual_rms_after_au: f64,
 }
 
-struct Run {
-    code: i32,
-    stdout: String,
-    stderr: String,
-}
-
 fn run(args: &[&str]) -> Run {
-    let out = Command::new(BIN)
-        .args(args)
-        .current_dir(ROOT)
-        .env_remove("UNBLEND_LIBRARY")
-        .stdin(Stdio::null())
-        .output()
-        .expect("binary runs");
-    Run {
-        code: out.status.code().expect("exited normally"),
-        stdout: String::from_utf8_lossy(&out.stdout).into_owned(),
-        stderr: String::from_utf8_lossy(&out.stderr).into_owned(),
-    }
+    run_in(Path::new(ROOT), args, None, &[])
 }
 
-fn tempdir(tag: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("unblend-diag-{tag}-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).expect("temp dir");
-    d
+fn tempdir(tag: &str) -> Scratch {
+    Scratch::new(&format!("diag-{tag}"))
 }
 
 /// A screening library with the two demo candidates, made with `library add`.

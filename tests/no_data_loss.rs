@@ -3,19 +3,16 @@
 //! temporary file; a library write that fails leaves the library as it was;
 //! concurrent `library add` runs never leave a corrupt component file.
 
+mod common;
+
+use common::{BIN, ROOT, Scratch};
 use std::io::Write;
-use std::path::{Path, PathBuf};
+use std::path::Path;
 use std::process::{Command, Stdio};
 use std::time::{Duration, Instant};
 
-const BIN: &str = env!("CARGO_BIN_EXE_unblend");
-const ROOT: &str = env!("CARGO_MANIFEST_DIR");
-
-fn tempdir(tag: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("unblend-loss-{tag}-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).expect("temp dir");
-    d
+fn tempdir(tag: &str) -> Scratch {
+    Scratch::new(&format!("loss-{tag}"))
 }
 
 /// Names of the atomic writer's temporary files (`.<name>.tmp-<pid>-<n>`) in `dir`.

@@ -4,12 +4,9 @@
 
 mod common;
 
+use common::{ROOT, Scratch, run_in};
 use serde::Deserialize;
-use std::path::{Path, PathBuf};
-use std::process::Command;
-
-const BIN: &str = env!("CARGO_BIN_EXE_unblend");
-const ROOT: &str = env!("CARGO_MANIFEST_DIR");
+use std::path::Path;
 /// The demo has 19 spectra (demo-data/lot-check.csv, invented), all fitted.
 const DEMO_SAMPLES: usize = 19;
 
@@ -44,25 +41,13 @@ struct Contribution {
     au: Vec<f64>,
 }
 
-fn tempdir(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("unblend-report-{name}-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).expect("temp dir");
-    d
+fn tempdir(name: &str) -> Scratch {
+    Scratch::new(&format!("report-{name}"))
 }
 
 fn run(dir: &Path, args: &[&str]) -> (i32, String, String) {
-    let o = Command::new(BIN)
-        .args(args)
-        .current_dir(dir)
-        .env_remove("UNBLEND_LIBRARY")
-        .output()
-        .expect("run unblend");
-    (
-        o.status.code().unwrap_or(-1),
-        String::from_utf8_lossy(&o.stdout).into_owned(),
-        String::from_utf8_lossy(&o.stderr).into_owned(),
-    )
+    let r = run_in(dir, args, None, &[]);
+    (r.code, r.stdout, r.stderr)
 }
 
 /// Checks any report must pass: one document, figures closed, nothing

@@ -5,14 +5,15 @@ use super::common::{ModelArgs, References, hex, parse_positive, screening_candid
 use super::diagnostic_args::DiagnosticArgs;
 use super::{Failure, exit};
 use crate::atomic::AtomicFile;
-use crate::batch::run::{self, Event, InputSummary, RunSpec};
+use crate::batch::run::{self, Event, Input, RunSpec};
 use crate::batch::{BatchOptions, Models, PlateResult, WaterBand};
 use crate::fit::FitOptions;
 use crate::guard::Named;
 use crate::input::platemap::{self, PlateMap};
 use crate::output::batch::{RenderedPlate, SAMPLES_HEADER, WELLS_HEADER, render_plate_with};
+use crate::output::run_log::{self, LoggedComponent, RunContext, RunSettings, RunTally};
 use crate::reference::{Library, ReferenceSet};
-use crate::report::plates::{PlateReport, RunHead};
+use crate::report::plates::PlateReport;
 use sha2::{Digest, Sha256};
 use std::io::{IsTerminal, Write};
 use std::path::{Path, PathBuf};
@@ -169,13 +170,13 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let checks = checks(&args)?;
     let (mut out, created_dir) = open_outputs(&args, &refs, &options)?;
     let bar = progress_bar(&args);
-    let mut tally = Tally::default();
+    let mut tally = RunTally::default();
     if map.is_none() {
         tally.warn("no --plate-map given: every well is a sample named after its well, and no blank is subtracted".into());
     }
     let bytes_read = AtomicU64::new(0);
     let spec = RunSpec {
-        inputs: &args.inputs,
+        inputs: inputs(&args.inputs),
         map: map.as_ref(),
         reading: crate::input::plate::Reading {
             quantity: args.model.quantity.map(Into::into).unwrap_or_default(),
@@ -187,7 +188,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     let models = Models::new(&refs, options.fit, checks);
     let with_curves = args.with_curves;
     let render = |p: &mut PlateResult| render_plate_with(p, with_curves);
-    let result = run::run(&spec, &models, render, |event| {
+    let result = run::run(spec, &models, render, |event| {
         match event {
             Event::Plate(p, rendered) => {
                 tally.plate(&p);
@@ -237,14 +238,16 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         ));
     }
     print_warnings(&mut tally, &models);
-    let log = LogInfo {
+    let log = RunContext {
         started_utc,
         elapsed_s,
+        command: command_line(),
+        threads: rayon::current_num_threads(),
         map: map_info,
-        library_dir: &dir,
-        refs: &refs,
+        library_dir: dir.display().to_string(),
+        components: logged_components(&dir, &refs),
         options: &options,
-        args: &args,
+        settings: &settings(&args),
     };
     let paths = out
         .finish(&tally, &log)
@@ -292,13 +295,13 @@ fn open_outputs(
         let names = refs.names().into_iter().map(String::from).collect();
         (f, PlateReport::new(names))
     });
-    out.begin(refs, options, args)
+    out.begin(refs, &run_log::options_json(options, &settings(args)))
         .map_err(|e| Failure::new(format!("{}: {e}", args.out_dir.display())))?;
     Ok((out, created_dir))
 }
 
 /// Print the first warnings; the rest are counted.
-fn print_warnings(tally: &mut Tally, models: &Models) {
+fn print_warnings(tally: &mut RunTally, models: &Models) {
     for w in models.warnings() {
         tally.warn(w);
     }
@@ -359,7 +362,7 @@ fn progress_bar(args: &Args) -> Option<indicatif::ProgressBar> {
 }
 
 /// Print the run's closing lines; the exit code they add up to.
-fn closing(tally: &Tally, elapsed_s: f64, paths: &[String]) -> u8 {
+fn closing(tally: &RunTally, elapsed_s: f64, paths: &[String]) -> u8 {
     if !tally.summary.is_empty() {
         println!("specimens (mean ± SD over replicate wells, dilution applied):");
         for line in &tally.summary {
@@ -396,81 +399,6 @@ fn closing(tally: &Tally, elapsed_s: f64, paths: &[String]) -> u8 {
 
 /// Warnings printed to stderr; the rest go to the run log.
 const SHOWN_WARNINGS: usize = 20;
-/// Warnings kept for the run log and JSON (per-plate warnings are also in
-/// each plate's JSON object).
-const KEPT_WARNINGS: usize = 1000;
-
-/// Counters over the run (bounded memory: counts, not rows).
-#[derive(Default)]
-struct Tally {
-    plates: usize,
-    plates_failed: usize,
-    wells_fitted: usize,
-    wells_failed: usize,
-    blanks: usize,
-    blank_outliers: usize,
-    replicate_outliers: usize,
-    saturated: usize,
-    samples: usize,
-    inputs: Vec<InputSummary>,
-    warnings: Vec<String>,
-    n_warnings: usize,
-    /// The first specimens' summary lines, and how many more there were.
-    summary: Vec<String>,
-    summary_more: usize,
-}
-
-impl Tally {
-    fn warn(&mut self, w: String) {
-        self.n_warnings += 1;
-        if self.warnings.len() < KEPT_WARNINGS && !self.warnings.contains(&w) {
-            self.warnings.push(w);
-        }
-    }
-
-    fn plate(&mut self, p: &PlateResult) {
-        self.plates += 1;
-        if let Some(e) = &p.error {
-            self.plates_failed += 1;
-            self.warn(format!("plate '{}' ({}): {e}", p.plate, p.input));
-        }
-        self.wells_fitted += p.n_fitted();
-        self.wells_failed += p.n_failed();
-        self.blanks += p.blank.wells.len();
-        self.blank_outliers += p.blank.outliers.len();
-        self.samples += p.samples.len();
-        for line in crate::output::batch::summary_lines(p) {
-            if self.summary.len() < crate::output::batch::SUMMARY_SHOWN {
-                self.summary.push(line);
-            } else {
-                self.summary_more += 1;
-            }
-        }
-        for w in &p.wells {
-            if w.flags
-                .iter()
-                .any(|f| f == crate::batch::FLAG_REPLICATE_OUTLIER)
-            {
-                self.replicate_outliers += 1;
-            }
-            if w.flags.iter().any(|f| f == crate::batch::FLAG_SATURATED) {
-                self.saturated += 1;
-            }
-        }
-        for w in &p.warnings {
-            self.warn(w.clone());
-        }
-    }
-
-    fn inputs_failed(&self) -> usize {
-        self.inputs.iter().filter(|s| s.error.is_some()).count()
-    }
-
-    fn failures(&self) -> usize {
-        self.inputs_failed() + self.plates_failed + self.wells_failed
-    }
-}
-
 /// The four output files, filled as the run goes and committed together.
 struct Outputs {
     wells: AtomicFile,
@@ -480,16 +408,6 @@ struct Outputs {
     first_plate: bool,
     /// `--report`: the file and the report being built.
     report: Option<(AtomicFile, PlateReport)>,
-}
-
-struct LogInfo<'a> {
-    started_utc: String,
-    elapsed_s: f64,
-    map: Option<String>,
-    library_dir: &'a Path,
-    refs: &'a ReferenceSet,
-    options: &'a BatchOptions,
-    args: &'a Args,
 }
 
 impl Outputs {
@@ -504,24 +422,10 @@ impl Outputs {
         })
     }
 
-    fn begin(
-        &mut self,
-        refs: &ReferenceSet,
-        options: &BatchOptions,
-        args: &Args,
-    ) -> std::io::Result<()> {
+    fn begin(&mut self, refs: &ReferenceSet, options: &serde_json::Value) -> std::io::Result<()> {
         writeln!(self.wells, "{WELLS_HEADER}")?;
         writeln!(self.samples, "{SAMPLES_HEADER}")?;
-        let head = serde_json::json!({
-            "tool": {"name": "unblend", "version": env!("CARGO_PKG_VERSION")},
-            "components": refs.names(),
-            "options": options_json(options, args),
-        });
-        let head = serde_json::to_string(&head).map_err(std::io::Error::other)?;
-        // Open the object and the `plates` array; closed in `finish`.
-        self.json.write_all(&head.as_bytes()[..head.len() - 1])?;
-        self.json.write_all(b",\"plates\":[")?;
-        Ok(())
+        run_log::write_json_head(&refs.names(), options, &mut self.json)
     }
 
     fn plate(&mut self, r: &RenderedPlate) -> std::io::Result<()> {
@@ -534,32 +438,13 @@ impl Outputs {
         self.json.write_all(r.json.as_bytes())
     }
 
-    fn finish(mut self, t: &Tally, log: &LogInfo) -> Result<Vec<String>, crate::Error> {
+    fn finish(mut self, t: &RunTally, log: &RunContext) -> Result<Vec<String>, crate::Error> {
         let io = |e: std::io::Error| crate::Error::io("output", e);
-        let tail = serde_json::json!({
-            "inputs": t.inputs,
-            "summary": {
-                "plates": t.plates,
-                "plates_failed": t.plates_failed,
-                "wells_fitted": t.wells_fitted,
-                "wells_failed": t.wells_failed,
-                "blank_wells": t.blanks,
-                "blank_outliers": t.blank_outliers,
-                "replicate_outliers": t.replicate_outliers,
-                "saturated_wells": t.saturated,
-                "samples": t.samples,
-                "elapsed_s": log.elapsed_s,
-            },
-            "warnings": t.warnings,
-        });
-        let tail = serde_json::to_string(&tail).map_err(|e| io(std::io::Error::other(e)))?;
-        self.json.write_all(b"],").map_err(io)?;
-        self.json.write_all(&tail.as_bytes()[1..]).map_err(io)?;
-        self.json.write_all(b"\n").map_err(io)?;
-        write_log(&mut self.log, t, log).map_err(io)?;
+        run_log::write_json_tail(t, log.elapsed_s, &mut self.json).map_err(io)?;
+        run_log::write_log(t, log, &mut self.log).map_err(io)?;
         let mut files = vec![self.wells, self.samples, self.json, self.log];
         if let Some((mut file, report)) = self.report {
-            let html = report.finish(&run_head(t, log));
+            let html = report.finish(&run_log::run_head(t, log));
             file.write_all(html.as_bytes()).map_err(io)?;
             files.push(file);
         }
@@ -573,267 +458,58 @@ impl Outputs {
     }
 }
 
-/// The report's summary lines: what was run, on what.
-fn run_head(t: &Tally, l: &LogInfo) -> RunHead {
-    let mut rows = vec![
-        ("started (UTC)".to_string(), l.started_utc.clone()),
-        (
-            "command".to_string(),
-            std::env::args()
-                .map(|a| shell_word(&a))
-                .collect::<Vec<_>>()
-                .join(" "),
-        ),
-    ];
-    for s in &t.inputs {
-        let mut v = format!("{} ({} plate(s)", s.path, s.plates);
-        if let Some(h) = &s.sha256 {
-            v.push_str(&format!(", sha256 {h}"));
-        }
-        v.push(')');
-        if let Some(e) = &s.error {
-            v.push_str(&format!(": {e}"));
-        }
-        rows.push(("input".to_string(), v));
-    }
-    rows.push((
-        "plate map".to_string(),
-        l.map.clone().unwrap_or_else(|| "none".into()),
-    ));
-    rows.push(("library".to_string(), l.library_dir.display().to_string()));
-    if let serde_json::Value::Object(m) = options_json(l.options, l.args) {
-        for (k, v) in m {
-            let v = match v {
-                serde_json::Value::String(s) => s,
-                serde_json::Value::Null => "(not set)".to_string(),
-                other => other.to_string(),
-            };
-            rows.push((format!("option {k}"), v));
-        }
-    }
-    rows.push(("elapsed (s)".to_string(), format!("{:.2}", l.elapsed_s)));
-    RunHead {
-        title: "unblend batch report".to_string(),
-        tool: format!("unblend {}", env!("CARGO_PKG_VERSION")),
-        rows,
-        warnings: t.warnings.clone(),
-    }
-}
-
-fn options_json(o: &BatchOptions, a: &Args) -> serde_json::Value {
-    serde_json::json!({
-        "baseline": format!("{:?}", o.fit.baseline).to_lowercase(),
-        "range_nm": o.fit.window_nm.map(|(lo, hi)| [lo, hi]),
-        "quantity": format!("{:?}", a.model.quantity.unwrap_or(super::common::QuantityArg::Absorbance)).to_lowercase(),
-        "pathlength_cm": o.fit.pathlength_cm,
-        "water_band": o.water,
-        "outlier_test": "grubbs-two-sided",
-        "outlier_alpha": o.outlier_alpha,
-        "outlier_min_std_errors": crate::batch::OUTLIER_MIN_STD_ERRORS,
-        "keep_outliers": o.keep_outliers,
-        "plate_map": a.plate_map.as_ref().map(|p| p.display().to_string()),
-        "residual_checks": !a.checks.no_diagnostics,
-        "noise_au": a.checks.noise_au,
-        "alarm_rate": a.checks.alarm_rate,
-        "max_absorbance_au": a.checks.max_absorbance.0,
-        "screen_with": a.screen_with.as_ref().map(|p| p.display().to_string()),
-    })
-}
-
-fn write_log(w: &mut dyn Write, t: &Tally, l: &LogInfo) -> std::io::Result<()> {
-    writeln!(w, "unblend batch: run log")?;
-    writeln!(w, "tool:       unblend {}", env!("CARGO_PKG_VERSION"))?;
-    writeln!(w, "started:    {}", l.started_utc)?;
-    let command: Vec<String> = std::env::args().map(|a| shell_word(&a)).collect();
-    writeln!(w, "command:    {}", command.join(" "))?;
-    writeln!(
-        w,
-        "elapsed:    {:.2} s ({:.0} wells/s, {} thread(s))",
-        l.elapsed_s,
-        t.wells_fitted as f64 / l.elapsed_s.max(1e-9),
-        rayon::current_num_threads()
-    )?;
-    writeln!(w, "\ninputs")?;
-    for s in &t.inputs {
-        match (&s.error, &s.sha256) {
-            (None, Some(sha)) => writeln!(
-                w,
-                "  {}  {}  {} plate(s)  {} bytes  sha256 {sha}",
-                s.path,
-                s.layout.unwrap_or("?"),
-                s.plates,
-                s.bytes
-            )?,
-            (e, _) => writeln!(
-                w,
-                "  {}  {} plate(s) read  ERROR: {}",
-                s.path,
-                s.plates,
-                e.as_deref().unwrap_or("not read to the end")
-            )?,
-        }
-    }
-    writeln!(
-        w,
-        "plate map:  {}",
-        l.map
-            .as_deref()
-            .unwrap_or("none (every well a sample, no blank)")
-    )?;
-    write_log_components(w, l)?;
-    write_log_options(w, l)?;
-    write_log_results(w, t)
-}
-
-/// The run log's library and components, each with its file's SHA-256.
-fn write_log_components(w: &mut dyn Write, l: &LogInfo) -> std::io::Result<()> {
-    writeln!(w, "library:    {}", l.library_dir.display())?;
-    writeln!(w, "components:")?;
-    for c in &l.refs.components {
-        let path = Library::path_for(l.library_dir, &c.name);
-        let sha = std::fs::read(&path)
-            .map(|b| hex(&Sha256::digest(&b)))
-            .unwrap_or_else(|_| "?".into());
-        let (lo, hi) = c.range_nm();
-        writeln!(
-            w,
-            "  {}  {lo}–{hi} nm  {}  sha256 {sha}",
-            c.name,
-            path.display()
-        )?;
-    }
-    Ok(())
-}
-
-/// The run log's options section.
-fn write_log_options(w: &mut dyn Write, l: &LogInfo) -> std::io::Result<()> {
-    let o = l.options;
-    writeln!(w, "\noptions")?;
-    writeln!(
-        w,
-        "  range:       {}",
-        o.fit.window_nm.map_or(
-            "every wavelength the plate and all references cover".into(),
-            |(lo, hi)| format!("{lo}–{hi} nm (within what the plate and references cover)")
-        )
-    )?;
-    writeln!(
-        w,
-        "  baseline:    {}",
-        format!("{:?}", o.fit.baseline).to_lowercase()
-    )?;
-    writeln!(
-        w,
-        "  quantity:    {}",
-        format!(
+/// The run's settings as the log and `run.json` record them.
+fn settings(a: &Args) -> RunSettings {
+    RunSettings {
+        quantity: format!(
             "{:?}",
-            l.args
-                .model
+            a.model
                 .quantity
                 .unwrap_or(super::common::QuantityArg::Absorbance)
         )
-        .to_lowercase()
-    )?;
-    match o.water {
-        Some(wb) => writeln!(
-            w,
-            "  pathlength:  plate map, else water band l = (A({} nm) − A({} nm)) / {} AU/cm (readings before blank subtraction; the constant depends on temperature), else {} cm",
-            wb.peak_nm, wb.reference_nm, wb.au_per_cm, o.fit.pathlength_cm
-        )?,
-        None => writeln!(
-            w,
-            "  pathlength:  plate map, else {} cm",
-            o.fit.pathlength_cm
-        )?,
+        .to_lowercase(),
+        plate_map: a.plate_map.as_ref().map(|p| p.display().to_string()),
+        residual_checks: !a.checks.no_diagnostics,
+        noise_au: a.checks.noise_au,
+        alarm_rate: a.checks.alarm_rate,
+        max_absorbance_au: a.checks.max_absorbance.0,
+        screen_with: a.screen_with.as_ref().map(|p| p.display().to_string()),
     }
-    writeln!(
-        w,
-        "  outliers:    Grubbs (1969) two-sided, α = {}, and more than {} standard errors from the other replicates; {}",
-        o.outlier_alpha,
-        crate::batch::OUTLIER_MIN_STD_ERRORS,
-        if o.keep_outliers {
-            "flagged wells kept in the statistics"
-        } else {
-            "flagged wells left out of the blank and the statistics"
-        }
-    )?;
-    let c = &l.args.checks;
-    writeln!(
-        w,
-        "  checks:      {}; saturation ceiling {}{}",
-        if c.no_diagnostics {
-            "residual tests off".to_string()
-        } else {
-            format!(
-                "residual tests at false-alarm rate {}, noise {}",
-                c.alarm_rate,
-                c.noise_au
-                    .map_or("estimated per well".into(), |n| format!("{n} AU"))
-            )
-        },
-        c.max_absorbance
-            .0
-            .map_or("none".into(), |v| format!("{v} AU")),
-        l.args
-            .screen_with
-            .as_ref()
-            .map(|d| format!("; screening with {}", d.display()))
-            .unwrap_or_default()
-    )?;
-    Ok(())
 }
 
-/// The run log's results, outputs and warnings.
-fn write_log_results(w: &mut dyn Write, t: &Tally) -> std::io::Result<()> {
-    writeln!(w, "\nresults")?;
-    writeln!(
-        w,
-        "  plates:      {} read, {} could not be read",
-        t.plates, t.plates_failed
-    )?;
-    writeln!(
-        w,
-        "  wells:       {} fitted, {} failed, {} with saturated readings, {} replicate outlier(s)",
-        t.wells_fitted, t.wells_failed, t.saturated, t.replicate_outliers
-    )?;
-    writeln!(
-        w,
-        "  blanks:      {} well(s), {} outlier(s)",
-        t.blanks, t.blank_outliers
-    )?;
-    writeln!(w, "  samples:     {} (per plate)", t.samples)?;
-    writeln!(
-        w,
-        "\noutputs:     wells.csv, samples.csv, run.json, run-log.txt"
-    )?;
-    if !t.warnings.is_empty() {
-        writeln!(w, "\nwarnings")?;
-        for x in &t.warnings {
-            writeln!(w, "  {x}")?;
+/// The components as the run log lists them, each with its file's SHA-256.
+fn logged_components(dir: &Path, refs: &ReferenceSet) -> Vec<LoggedComponent> {
+    let component = |c: &crate::reference::Component| {
+        let path = Library::path_for(dir, &c.name);
+        let sha256 = std::fs::read(&path)
+            .map(|b| hex(&Sha256::digest(&b)))
+            .unwrap_or_else(|_| "?".into());
+        LoggedComponent {
+            name: c.name.clone(),
+            range_nm: c.range_nm(),
+            path: path.display().to_string(),
+            sha256,
         }
-        if t.n_warnings > t.warnings.len() {
-            writeln!(
-                w,
-                "  … {} more (repeats, or past the first {KEPT_WARNINGS}; each plate's own are in run.json)",
-                t.n_warnings - t.warnings.len()
-            )?;
-        }
-    }
-    writeln!(
-        w,
-        "\nResults are decision support, not a certified analysis."
-    )
+    };
+    refs.components.iter().map(component).collect()
 }
 
-fn shell_word(s: &str) -> String {
-    if !s.is_empty()
-        && s.chars()
-            .all(|c| c.is_ascii_alphanumeric() || "-_./:=,+".contains(c))
-    {
-        s.to_string()
-    } else {
-        format!("'{}'", s.replace('\'', "'\\''"))
-    }
+/// The runs's inputs: `-` is standard input, anything else a file.
+fn inputs(paths: &[PathBuf]) -> Vec<Input> {
+    let input = |p: &PathBuf| {
+        if p.as_os_str() == "-" {
+            Input::reader("standard input", "stdin", std::io::stdin())
+        } else {
+            Input::file(p)
+        }
+    };
+    paths.iter().map(input).collect()
+}
+
+/// The command line as run, quoted for a shell.
+fn command_line() -> String {
+    let words: Vec<String> = std::env::args().map(|a| run_log::shell_word(&a)).collect();
+    words.join(" ")
 }
 
 fn now_utc() -> String {

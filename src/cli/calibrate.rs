@@ -2,21 +2,19 @@
 
 use super::common::{
     FormatArg, QuantityArg, file_name, hex, library_dir, parse_pathlength_cm, parse_positive,
-    parse_range_nm, print_stdout, sig, summary_format,
+    parse_range_nm, print_rendered, print_stdout, summary_format,
 };
 use super::inputs;
 use super::{Failure, exit};
 use crate::calibrate::{
-    self, ABSORBANCE_CEILING_AU, CalibrationOptions, CalibrationResult, LINEARITY_TOLERANCE,
-    Provenance,
+    self, ABSORBANCE_CEILING_AU, CalibrationOptions, LINEARITY_TOLERANCE, Provenance,
 };
 use crate::guard::Named;
 use crate::input::concentrations::{self, ConcentrationUnit};
-use crate::reference::{Calibration, Conditions, Library};
-use serde::Serialize;
+use crate::output;
+use crate::reference::{Conditions, Library};
 use sha2::{Digest, Sha256};
-use std::io::Write;
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 
 const AFTER_HELP: &str = "\
 Concentration file: CSV `sample,concentration[,role][,unit][,note]`, one row per spectrum in INPUT.
@@ -104,23 +102,6 @@ pub struct Args {
     pub format: FormatArg,
 }
 
-/// The JSON document printed by `calibrate --format json`.
-#[derive(Debug, Serialize)]
-pub struct Summary<'a> {
-    /// Tool name and version.
-    pub tool: crate::output::ToolInfo,
-    /// The component's name.
-    pub component: &'a str,
-    /// The component file written (absent with --dry-run).
-    pub file: Option<String>,
-    /// The calibration table, as written into the component file.
-    pub calibration: &'a Calibration,
-    /// Standards whose spectra could not be read.
-    pub unreadable: &'a [calibrate::UnreadableStandard],
-    /// Warnings.
-    pub warnings: &'a [String],
-}
-
 fn parse_unit(s: &str) -> Result<ConcentrationUnit, String> {
     ConcentrationUnit::parse(s).ok_or_else(|| {
         format!("'{s}': expected a concentration unit: mol/L, mmol/L, umol/L, mg/L or g/L")
@@ -130,12 +111,12 @@ fn parse_unit(s: &str) -> Result<ConcentrationUnit, String> {
 impl TryFrom<&Args> for CalibrationOptions {
     type Error = Failure;
     fn try_from(a: &Args) -> Result<Self, Failure> {
-        Ok(CalibrationOptions {
-            pathlength_cm: a.pathlength_cm,
-            window_nm: a.range_nm,
-            linearity_tolerance: a.linearity_tolerance,
-            absorbance_ceiling_au: a.max_absorbance_au,
-        })
+        Ok(CalibrationOptions::new(
+            a.pathlength_cm,
+            a.range_nm,
+            a.linearity_tolerance,
+            a.max_absorbance_au,
+        )?)
     }
 }
 
@@ -206,15 +187,17 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         Some(Library::add(&dir, &component, args.replace)?)
     };
     if let Some(path) = &args.out {
-        crate::atomic::write_with(path, false, |w| write_wavelengths(&result, w))?;
+        crate::atomic::write_with(path, false, |w| {
+            output::calibration::write_wavelengths(&result, w)
+        })?;
     }
     for w in &result.warnings {
         eprintln!("unblend: warning: {w}");
     }
     match args.format {
         FormatArg::Json => {
-            let summary = Summary {
-                tool: crate::output::ToolInfo {
+            let summary = output::calibration::Summary {
+                tool: output::ToolInfo {
                     name: "unblend".into(),
                     version: env!("CARGO_PKG_VERSION").into(),
                 },
@@ -230,7 +213,13 @@ pub fn run(args: Args) -> Result<u8, Failure> {
         }
         // `summary_format` never gives csv or jsonl.
         FormatArg::Table | FormatArg::Csv | FormatArg::Jsonl => {
-            print_summary(&args, &table.unit, &result, written.as_deref())?
+            let text = output::calibration::SummaryText {
+                name: &args.name,
+                molar_mass_g_per_mol: args.molar_mass,
+                unit: &table.unit,
+                written: written.as_deref(),
+            };
+            print_rendered(|w| output::calibration::write_summary(&result, &text, w))?
         }
     }
     Ok(if result.unreadable.is_empty() {
@@ -325,152 +314,4 @@ fn run_emission(
     } else {
         exit::PARTIAL
     })
-}
-
-/// A concentration in mol/L shown in the unit the user gave.
-fn in_unit(v_mol_per_l: f64, unit: &ConcentrationUnit, molar_mass: Option<f64>) -> String {
-    let factor = match unit {
-        ConcentrationUnit::MolPerL => Some(1.0),
-        ConcentrationUnit::MmolPerL => Some(1e3),
-        ConcentrationUnit::UmolPerL => Some(1e6),
-        ConcentrationUnit::MgPerL => molar_mass.map(|m| m * 1e3),
-        ConcentrationUnit::GPerL => molar_mass,
-    };
-    match factor {
-        Some(f) => format!("{} {}", sig(v_mol_per_l * f), unit.label()),
-        None => format!("{v_mol_per_l:.4e} mol/L"),
-    }
-}
-
-fn print_summary(
-    args: &Args,
-    unit: &ConcentrationUnit,
-    result: &CalibrationResult,
-    written: Option<&Path>,
-) -> Result<(), Failure> {
-    let mut out = String::new();
-    macro_rules! say {
-        ($($t:tt)*) => {{
-            out.push_str(&format!($($t)*));
-            out.push('\n');
-        }};
-    }
-    let c = &result.calibration;
-    let m = args.molar_mass;
-    let used = result
-        .wavelengths
-        .iter()
-        .filter(|w| w.excluded.is_none())
-        .count();
-    say!(
-        "calibrated '{}' from {} standards at {} concentrations ({} blank{} subtracted), pathlength {} cm",
-        args.name,
-        c.n_standards,
-        c.n_levels,
-        c.n_blanks,
-        if c.n_blanks == 1 { "" } else { "s" },
-        c.pathlength_cm
-    );
-    say!(
-        "  concentrations  {} to {}",
-        in_unit(c.concentration_min_mol_per_l, unit, m),
-        in_unit(c.concentration_max_mol_per_l, unit, m)
-    );
-    say!(
-        "  wavelengths     {}–{} nm, {used} of {} used",
-        c.range_nm[0],
-        c.range_nm[1],
-        result.wavelengths.len()
-    );
-    say!(
-        "  band maximum    {} nm: ε = {} ± {} L/(mol·cm), R² = {:.5}, residual SD {:.5} AU",
-        c.band_max_nm,
-        sig(c.epsilon_at_band_max_l_per_mol_cm),
-        sig(c.epsilon_std_error_at_band_max_l_per_mol_cm),
-        c.r_squared_at_band_max,
-        c.residual_sd_at_band_max_au
-    );
-    let verdict = if c.intercept_p_value < calibrate::TEST_ALPHA {
-        "differs from 0: check the blank"
-    } else {
-        "not significantly different from 0"
-    };
-    say!(
-        "  intercept       {:.5} ± {:.5} AU at {} nm (t test p = {:.3}, {verdict})",
-        c.intercept_at_band_max_au,
-        c.intercept_std_error_at_band_max_au,
-        c.band_max_nm,
-        c.intercept_p_value
-    );
-    match &c.lack_of_fit {
-        Some(l) => say!(
-            "  lack of fit     F = {:.2} ({}, {} df), p = {:.3}{}",
-            l.f_statistic,
-            l.df_lack_of_fit,
-            l.df_pure_error,
-            l.p_value,
-            if l.p_value < calibrate::TEST_ALPHA {
-                ": the means curve away from the line"
-            } else {
-                ": no evidence against a straight line"
-            }
-        ),
-        None => {
-            say!("  lack of fit     not tested (needs replicates at 3 or more concentrations)")
-        }
-    }
-    say!(
-        "  calibrated range up to {} and {:.3} AU: `fit` flags concentrations above it with beyond-calibrated-range",
-        in_unit(c.concentration_max_mol_per_l, unit, m),
-        c.max_absorbance_au
-    );
-    if !c.excluded_standards.is_empty() || !c.excluded_wavelengths.is_empty() {
-        say!("  left out:");
-        for e in &c.excluded_standards {
-            say!(
-                "    {} ({}): {}",
-                e.sample,
-                in_unit(e.concentration_mol_per_l, unit, m),
-                e.reason
-            );
-        }
-        for e in &c.excluded_wavelengths {
-            say!("    {}–{} nm: {}", e.range_nm[0], e.range_nm[1], e.reason);
-        }
-    }
-    for u in &result.unreadable {
-        say!("  unreadable:     {}: {}", u.sample, u.error);
-    }
-    match written {
-        Some(p) => say!("wrote {}", p.display()),
-        None => say!("(dry run: nothing written)"),
-    }
-    print_stdout(&out)
-}
-
-/// The line at every wavelength as CSV.
-fn write_wavelengths(result: &CalibrationResult, w: &mut dyn Write) -> std::io::Result<()> {
-    writeln!(
-        w,
-        "wavelength_nm,epsilon_l_per_mol_cm,std_error_l_per_mol_cm,intercept_au,intercept_std_error_au,intercept_p_value,r_squared,residual_sd_au,lack_of_fit_p_value,used,excluded_reason"
-    )?;
-    let opt = |v: Option<f64>| v.map(|v| v.to_string()).unwrap_or_default();
-    for r in &result.wavelengths {
-        writeln!(
-            w,
-            "{},{},{},{},{},{},{},{},{},{},{}",
-            r.wavelength_nm,
-            r.epsilon_l_per_mol_cm,
-            r.epsilon_std_error_l_per_mol_cm,
-            r.intercept_au,
-            r.intercept_std_error_au,
-            r.intercept_p_value,
-            opt(r.r_squared),
-            r.residual_sd_au,
-            opt(r.lack_of_fit_p_value),
-            if r.excluded.is_none() { "yes" } else { "no" },
-            crate::output::csv_field(r.excluded.as_deref().unwrap_or(""))
-        )?;
-    }
-    Ok(())
 }

@@ -6,6 +6,7 @@
 use super::{Failure, exit};
 use crate::fit::{FitOptions, FitReport};
 use crate::input::spectra::{Quantity, ReadOptions};
+pub use crate::output::text::sig;
 use crate::output::{self, Format};
 use crate::preprocess::Baseline;
 use crate::reference::{Library, ReferenceSet};
@@ -301,6 +302,16 @@ pub fn print_stdout(text: &str) -> Result<(), Failure> {
     super::stdout::print(text)
 }
 
+/// Render into memory with `write` and print the text on standard output
+/// (see [`print_stdout`]).
+pub fn print_rendered(
+    write: impl FnOnce(&mut Vec<u8>) -> std::io::Result<()>,
+) -> Result<(), Failure> {
+    let mut text = Vec::new();
+    write(&mut text).map_err(|e| Failure::new(format!("standard output: {e}")))?;
+    print_stdout(&String::from_utf8_lossy(&text))
+}
+
 /// An input path as messages show it (`-` is standard input).
 pub fn shown(path: &Path) -> String {
     if path.as_os_str() == "-" {
@@ -323,14 +334,4 @@ pub fn file_name(path: &Path) -> String {
 /// Bytes as lowercase hexadecimal (SHA-256 digests).
 pub fn hex(bytes: &[u8]) -> String {
     bytes.iter().map(|b| format!("{b:02x}")).collect()
-}
-
-/// Four significant figures without an exponent for everyday magnitudes.
-pub fn sig(v: f64) -> String {
-    if v.abs() < f64::MIN_POSITIVE || (1e-3..1e6).contains(&v.abs()) {
-        let digits = (3 - v.abs().log10().floor() as i32).clamp(0, 6) as usize;
-        format!("{v:.digits$}")
-    } else {
-        format!("{v:.3e}")
-    }
 }

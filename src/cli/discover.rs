@@ -54,25 +54,14 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             "discover works on the samples the residual tests flag: drop --no-diagnostics",
         ));
     }
-    if args.max_iterations == 0 {
-        return Err(Failure::new("--max-iterations 0: expected at least 1"));
-    }
+    let discovery = DiscoverOptions::new(args.peak_epsilon, args.max_iterations)?;
     let options = FitOptions::try_from(&args.model)?;
     let file = inputs::read_all(&args.inputs, args.model.read_options().quantity)?;
     for w in &file.warnings {
         eprintln!("unblend: warning: {w}");
     }
     let refs = args.model.references()?.set;
-    let found = discover::discover(
-        &file,
-        &refs,
-        &options,
-        &args.checks.options(),
-        &DiscoverOptions {
-            peak_epsilon_l_per_mol_cm: args.peak_epsilon,
-            max_iterations: args.max_iterations,
-        },
-    )?;
+    let found = discover::discover(&file, &refs, &options, &args.checks.options(), &discovery)?;
     crate::atomic::write_with(&args.out, false, |w| {
         writeln!(w, "wavelength_nm,epsilon")?;
         for (x, e) in found.wavelengths_nm.iter().zip(&found.epsilon_l_per_mol_cm) {

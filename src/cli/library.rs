@@ -3,23 +3,15 @@
 
 use super::common::{
     BaselineArg, FormatArg, hex, library_dir, parse_pathlength_cm, parse_positive, parse_range_nm,
-    print_stdout, sig, summary_format,
+    print_rendered, print_stdout, summary_format,
 };
 use super::{Failure, exit};
 use crate::guard::Named;
+use crate::output;
 use crate::reference::{Component, Conditions, EmissionCurve, Library, Source};
-use crate::separability::{self, CheckOptions, CheckReport, DEFAULT_NOISE_AU};
+use crate::separability::{self, CheckOptions, DEFAULT_NOISE_AU};
 use sha2::{Digest, Sha256};
 use std::path::PathBuf;
-
-/// `println!` into a `String`, printed at the end through `print_stdout`
-/// (which ends quietly on a closed pipe, where `println!` panics).
-macro_rules! say {
-    ($out:ident, $($arg:tt)*) => {{
-        $out.push_str(&format!($($arg)*));
-        $out.push('\n');
-    }};
-}
 
 /// Library subcommands.
 #[derive(Debug, clap::Subcommand)]
@@ -149,13 +141,13 @@ Exit codes:
 impl TryFrom<&CheckArgs> for CheckOptions {
     type Error = Failure;
     fn try_from(a: &CheckArgs) -> Result<Self, Failure> {
-        Ok(CheckOptions {
-            baseline: a.baseline.into(),
-            window_nm: a.range_nm,
-            step_nm: a.step_nm,
-            noise_au: a.noise_au,
-            pathlength_cm: a.pathlength_cm,
-        })
+        Ok(CheckOptions::new(
+            a.baseline.into(),
+            a.range_nm,
+            a.step_nm,
+            a.noise_au,
+            a.pathlength_cm,
+        )?)
     }
 }
 
@@ -219,7 +211,7 @@ fn add(a: AddArgs) -> Result<u8, Failure> {
     let dir = library_dir(a.library);
     let path = Library::add(&dir, &c, a.replace)?;
     let (lo, hi) = c.range_nm();
-    let (peak_nm, peak) = peak(&c);
+    let (peak_nm, peak) = output::library::peak(&c);
     print_stdout(&format!(
         "added '{}' to {}: {} points, {lo}–{hi} nm, peak ε {peak:.0} L/(mol·cm) at {peak_nm} nm\n",
         c.name,
@@ -298,33 +290,7 @@ fn list(a: ListArgs) -> Result<u8, Failure> {
         ))?;
         return Ok(exit::OK);
     }
-    let header = [
-        "name",
-        "range (nm)",
-        "points",
-        "peak ε (L/(mol·cm))",
-        "at (nm)",
-        "molar mass (g/mol)",
-        "source",
-        "created",
-    ];
-    let mut rows: Vec<Vec<String>> = vec![header.iter().map(|s| s.to_string()).collect()];
-    for c in &lib.components {
-        let (lo, hi) = c.range_nm();
-        let (pk_nm, pk) = peak(c);
-        rows.push(vec![
-            c.name.clone(),
-            format!("{lo}–{hi}"),
-            c.grid.len().to_string(),
-            format!("{pk:.0}"),
-            format!("{pk_nm}"),
-            c.molar_mass_g_per_mol
-                .map_or("-".into(), |m| format!("{m}")),
-            c.source.kind.clone(),
-            c.created.clone(),
-        ]);
-    }
-    print_stdout(&format_aligned(&rows))?;
+    print_rendered(|w| output::library::write_list(&lib.components, w))?;
     for w in &lib.skipped {
         eprintln!("unblend: warning: {w}");
     }
@@ -343,139 +309,12 @@ fn show(a: ShowArgs) -> Result<u8, Failure> {
     let lib = Library::open(&dir)?;
     let set = lib.select(std::slice::from_ref(&a.name))?;
     let c = &set.components[0];
-    let mut out = String::new();
     if a.csv {
-        match &c.epsilon_std_error_l_per_mol_cm {
-            None => {
-                say!(out, "wavelength_nm,epsilon");
-                for (w, e) in c.grid.wavelengths_nm().iter().zip(&c.epsilon_l_per_mol_cm) {
-                    say!(out, "{w},{e}");
-                }
-            }
-            Some(se) => {
-                say!(out, "wavelength_nm,epsilon,std_error");
-                for ((w, e), s) in c
-                    .grid
-                    .wavelengths_nm()
-                    .iter()
-                    .zip(&c.epsilon_l_per_mol_cm)
-                    .zip(se)
-                {
-                    say!(out, "{w},{e},{s}");
-                }
-            }
-        }
-        print_stdout(&out)?;
-        return Ok(exit::OK);
+        print_rendered(|w| output::library::write_component_csv(c, w))?;
+    } else {
+        let path = Library::path_for(&dir, &c.name);
+        print_rendered(|w| output::library::write_component(c, &path, w))?;
     }
-    let (lo, hi) = c.range_nm();
-    let (pk_nm, pk) = peak(c);
-    let path = Library::path_for(&dir, &c.name);
-    say!(out, "name:        {}", c.name);
-    say!(out, "file:        {}", path.display());
-    say!(out, "range:       {lo}–{hi} nm, {} points", c.grid.len());
-    say!(out, "peak ε:      {pk:.1} L/(mol·cm) at {pk_nm} nm");
-    say!(
-        out,
-        "molar mass:  {}",
-        c.molar_mass_g_per_mol
-            .map_or("unknown".into(), |m| format!("{m} g/mol"))
-    );
-    say!(
-        out,
-        "solvent:     {}",
-        c.conditions.solvent.as_deref().unwrap_or("-")
-    );
-    say!(
-        out,
-        "pH:          {}",
-        c.conditions.ph.as_deref().unwrap_or("-")
-    );
-    say!(
-        out,
-        "temperature: {}",
-        c.conditions.temperature.as_deref().unwrap_or("-")
-    );
-    say!(
-        out,
-        "source:      {}{}{}",
-        c.source.kind,
-        c.source
-            .file
-            .as_deref()
-            .map(|f| format!(" from {f}"))
-            .unwrap_or_default(),
-        c.source
-            .sha256
-            .as_deref()
-            .map(|s| format!(" (sha256 {s})"))
-            .unwrap_or_default()
-    );
-    say!(
-        out,
-        "created:     {}",
-        if c.created.is_empty() {
-            "-"
-        } else {
-            &c.created
-        }
-    );
-    if let Some(n) = &c.note {
-        say!(out, "note:        {n}");
-    }
-    if let Some(k) = c.calibration() {
-        say!(
-            out,
-            "calibration: {} standards at {} concentrations ({} blanks), {} cm, {}",
-            k.n_standards,
-            k.n_levels,
-            k.n_blanks,
-            k.pathlength_cm,
-            k.date
-        );
-        say!(
-            out,
-            "             calibrated range {:.4e} to {:.4e} mol/L, up to {:.3} AU",
-            k.concentration_min_mol_per_l,
-            k.concentration_max_mol_per_l,
-            k.max_absorbance_au
-        );
-        say!(
-            out,
-            "             at {} nm: R² {:.5}, intercept {:.5} ± {:.5} AU (p = {:.3})",
-            k.band_max_nm,
-            k.r_squared_at_band_max,
-            k.intercept_at_band_max_au,
-            k.intercept_std_error_at_band_max_au,
-            k.intercept_p_value
-        );
-        for e in &k.excluded_standards {
-            say!(out, "             left out {}: {}", e.sample, e.reason);
-        }
-        for e in &k.excluded_wavelengths {
-            say!(
-                out,
-                "             left out {}–{} nm: {}",
-                e.range_nm[0],
-                e.range_nm[1],
-                e.reason
-            );
-        }
-    }
-    say!(out, "\nε at every 50 nm (L/(mol·cm)):");
-    let mut w = (lo / 50.0).ceil() * 50.0;
-    while w <= hi {
-        if let Some(e) = c.epsilon_at(w) {
-            say!(out, "  {w:>6} nm  {e:>12.1}");
-        }
-        w += 50.0;
-    }
-    say!(
-        out,
-        "(`unblend library show {} --csv` prints every point)",
-        c.name
-    );
-    print_stdout(&out)?;
     Ok(exit::OK)
 }
 
@@ -510,8 +349,9 @@ fn check(a: CheckArgs) -> Result<u8, Failure> {
             .map_err(|e| Failure::new(format!("json: {e}")))?;
             print_stdout(&format!("{text}\n"))?;
         }
+        // `summary_format` never gives csv or jsonl.
         FormatArg::Table | FormatArg::Csv | FormatArg::Jsonl => {
-            print_check(&report)?;
+            print_rendered(|w| output::library::write_check(&report, w))?;
             if let Some(l) = &limits {
                 print_stdout(&emission_limits_table(l, &a))?;
             }
@@ -573,160 +413,4 @@ fn concentration_unit(typical: f64) -> (&'static str, f64) {
         }
     }
     ("nmol/L", 1e9)
-}
-
-fn print_check(r: &CheckReport) -> Result<(), Failure> {
-    let mut out = String::new();
-    macro_rules! say {
-        ($($t:tt)*) => {{
-            out.push_str(&format!($($t)*));
-            out.push('\n');
-        }};
-    }
-    let fmt_cond = |c: Option<f64>| c.map_or("infinite".into(), |c| format!("{c:.3}"));
-    say!("reference set: {}", r.components.join(", "));
-    say!(
-        "range {}–{} nm, {} readings {} nm apart, baseline {}, pathlength {} cm, noise {} AU per reading",
-        r.range_nm[0],
-        r.range_nm[1],
-        r.n_points,
-        r.step_nm,
-        r.baseline,
-        r.pathlength_cm,
-        r.noise_au
-    );
-    say!(
-        "condition number {} (columns scaled to unit length; fit would solve with {})",
-        fmt_cond(r.condition_number),
-        r.solver
-    );
-    let smallest = r
-        .per_component
-        .iter()
-        .filter_map(|c| c.std_error_mol_per_l)
-        .fold(f64::INFINITY, f64::min);
-    let (unit, factor) = concentration_unit(if smallest.is_finite() { smallest } else { 1e-6 });
-    let cell = |v: Option<f64>| v.map_or("-".into(), |v| sig(v * factor));
-    let mut rows = vec![vec![
-        "component".to_string(),
-        "VIF".into(),
-        format!("SE ({unit})"),
-        format!("LOD 3.3σ ({unit})"),
-        format!("LOQ 10σ ({unit})"),
-        "LOQ (mg/L)".into(),
-        format!("calibrated up to ({unit})"),
-    ]];
-    for c in &r.per_component {
-        rows.push(vec![
-            c.name.clone(),
-            c.vif.map_or("infinite".into(), |v| format!("{v:.2}")),
-            cell(c.std_error_mol_per_l),
-            cell(c.lod_mol_per_l),
-            cell(c.loq_mol_per_l),
-            c.loq_mg_per_l.map_or("-".into(), sig),
-            cell(c.calibrated_max_mol_per_l),
-        ]);
-    }
-    say!("");
-    out.push_str(&format_aligned(&rows));
-    if !r.pairs.is_empty() {
-        say!("");
-        let mut pairs: Vec<_> = r.pairs.iter().collect();
-        pairs.sort_by(|a, b| b.cosine.total_cmp(&a.cosine));
-        let mut rows = vec![vec![
-            "pair".to_string(),
-            "cosine".into(),
-            "after baseline".into(),
-            "pair VIF".into(),
-            "separable".into(),
-        ]];
-        for p in pairs {
-            rows.push(vec![
-                format!("{} / {}", p.a, p.b),
-                format!("{:.4}", p.cosine),
-                p.cosine_after_baseline
-                    .map_or("-".into(), |c| format!("{c:.4}")),
-                p.variance_inflation
-                    .map_or("infinite".into(), |v| format!("{v:.2}")),
-                if p.collinear {
-                    "no: collinear".into()
-                } else {
-                    "yes".into()
-                },
-            ]);
-        }
-        out.push_str(&format_aligned(&rows));
-    }
-    let whole_is_best = r.best_range.as_ref().is_some_and(|b| {
-        (b.range_nm[0] - r.range_nm[0]).abs() < 1e-9 && (b.range_nm[1] - r.range_nm[1]).abs() < 1e-9
-    });
-    if whole_is_best {
-        say!(
-            "\nbest conditioning: the whole range (no window at least {:.0} nm wide is better conditioned)",
-            r.best_range.as_ref().map_or(0.0, |b| b.min_width_nm)
-        );
-    } else if let Some(b) = &r.best_range {
-        say!(
-            "\nbest conditioning over windows at least {:.0} nm wide: {}–{} nm (condition {:.3} with the columns scaled as over the whole range, vs {} over {}–{} nm; {} there on its own scaling)",
-            b.min_width_nm,
-            b.range_nm[0],
-            b.range_nm[1],
-            b.scan_condition_number,
-            fmt_cond(r.condition_number),
-            r.range_nm[0],
-            r.range_nm[1],
-            fmt_cond(b.condition_number)
-        );
-        say!(
-            "(more wavelengths never raise the predicted errors at constant noise; a better-conditioned range is less sensitive to errors in the references)"
-        );
-    }
-    say!("");
-    if r.warnings.is_empty() {
-        say!("verdict: separable over this range (no collinear pairs)");
-    } else {
-        say!(
-            "verdict: {} warning(s), printed on standard error",
-            r.warnings.len()
-        );
-    }
-    print_stdout(&out)
-}
-
-fn peak(c: &Component) -> (f64, f64) {
-    let mut best = (c.grid.wavelengths_nm()[0], f64::NEG_INFINITY);
-    for (w, e) in c.grid.wavelengths_nm().iter().zip(&c.epsilon_l_per_mol_cm) {
-        if *e > best.1 {
-            best = (*w, *e);
-        }
-    }
-    best
-}
-
-/// Format rows as a left-aligned table (first row is the header, then a
-/// rule).
-pub fn format_aligned(rows: &[Vec<String>]) -> String {
-    let ncol = rows.iter().map(Vec::len).max().unwrap_or(0);
-    let mut width = vec![0; ncol];
-    for r in rows {
-        for (i, c) in r.iter().enumerate() {
-            width[i] = width[i].max(c.chars().count());
-        }
-    }
-    let mut out = String::new();
-    for (k, r) in rows.iter().enumerate() {
-        let mut s = String::new();
-        for (i, c) in r.iter().enumerate() {
-            s.push_str(c);
-            s.push_str(&" ".repeat(width[i] - c.chars().count() + 2));
-        }
-        out.push_str(s.trim_end());
-        out.push('\n');
-        if k == 0 {
-            let rule: Vec<String> = width.iter().map(|w| "-".repeat(*w)).collect();
-            out.push_str(&rule.join("  "));
-            out.push('\n');
-        }
-    }
-    out
 }

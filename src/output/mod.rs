@@ -3,10 +3,14 @@
 //! always mol/L (mg/L beside them where the molar mass is known).
 
 pub mod batch;
+pub mod calibration;
 pub mod emission;
 pub mod jsonl;
+pub mod library;
 pub mod notes;
 pub mod qc;
+pub mod run_log;
+pub mod text;
 
 use crate::fit::{FailedSample, FitReport, Outcome, SampleResult};
 use rayon::prelude::*;
