@@ -240,9 +240,11 @@ pub fn fit_emission(
     checks: &diagnostics::Options,
 ) -> Result<EmissionReport> {
     checks.validate()?;
-    // The saturation ceiling is in AU: it has no meaning for intensities.
+    // The saturation ceiling is in AU, and the estimated weights model noise
+    // that grows as 10^A: neither has a meaning for intensities.
     let checks = diagnostics::Options {
         max_absorbance_au: None,
+        weights: diagnostics::Weights::None,
         ..checks.clone()
     };
     let set = emission_set(refs, options.excitation_nm)?;
