@@ -22,7 +22,7 @@ pub const COMPONENT_FLOATS: [&str; 6] = [
 ];
 
 /// Per-sample number columns (repeated on each component row), CSV order.
-pub const SAMPLE_FLOATS: [&str; 17] = [
+pub const SAMPLE_FLOATS: [&str; 18] = [
     "baseline_offset_au",
     "baseline_slope_au_per_nm",
     "residual_rms_au",
@@ -40,13 +40,16 @@ pub const SAMPLE_FLOATS: [&str; 17] = [
     "band_signal_fraction",
     "screen_concentration_mol_per_l",
     "screen_p_value",
+    // Per component, like the first six: the concentration refitted beside
+    // the candidate that explains the residual (empty otherwise).
+    "refitted_mol_per_l",
 ];
 
 /// Count columns (−1 where the CSV field is empty).
 pub const COUNTS: [&str; 2] = ["n_points", "n_masked"];
 
 /// Text columns, dictionary-encoded.
-pub const TEXTS: [&str; 4] = ["solver", "flags", "error", "screen_candidate"];
+pub const TEXTS: [&str; 5] = ["solver", "flags", "error", "screen_candidate", "answer"];
 
 /// One text column: an index per row (−1: absent) into its distinct values.
 #[derive(Default)]
@@ -125,7 +128,7 @@ impl Columns {
             let row = (first_row + k) as i64;
             match o {
                 Outcome::Fitted(s) => c.push_fitted(row, s),
-                Outcome::Failed(f) => c.push_row(row, -1, &[None; 23], [None; 2], |t| {
+                Outcome::Failed(f) => c.push_row(row, -1, &[None; 24], [None; 2], |t| {
                     t[2] = Some(&f.error);
                 }),
             }
@@ -142,13 +145,15 @@ impl Columns {
         ];
         let best = s.screening.as_ref().and_then(|x| x.best.as_ref());
         for (j, comp) in s.components.iter().enumerate() {
-            let mut values = [None; 23];
+            let mut values = [None; 24];
             values[..6].copy_from_slice(&component_values(comp));
-            values[6..].copy_from_slice(&per_sample);
+            values[6..23].copy_from_slice(&per_sample);
+            values[23] = unblend::output::notes::refitted_mol_per_l(s, &comp.name);
             self.push_row(row, j as i32, &values, counts, |t| {
                 t[0] = Some(&s.solver);
                 t[1] = (!flags.is_empty()).then_some(flags.as_str());
                 t[3] = best.map(|b| b.name.as_str());
+                t[4] = Some(unblend::output::notes::answer(s));
             });
         }
     }
@@ -157,9 +162,9 @@ impl Columns {
         &mut self,
         row: i64,
         component: i32,
-        values: &[Option<f64>; 23],
+        values: &[Option<f64>; 24],
         counts: [Option<i64>; 2],
-        texts: impl FnOnce(&mut [Option<&'a str>; 4]),
+        texts: impl FnOnce(&mut [Option<&'a str>; 5]),
     ) {
         self.sample.push(row);
         self.component.push(component);
@@ -170,7 +175,7 @@ impl Columns {
         for (col, v) in self.counts.iter_mut().zip(counts) {
             col.push(v.unwrap_or(-1));
         }
-        let mut t = [None; 4];
+        let mut t = [None; 5];
         texts(&mut t);
         for (col, v) in self.texts.iter_mut().zip(t) {
             col.push(v);

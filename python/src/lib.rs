@@ -49,6 +49,7 @@ struct Request {
     alarm_rate: f64,
     max_absorbance_au: Option<f64>,
     screen_with: Option<PathBuf>,
+    weights: String,
 }
 
 fn engine_error(e: impl std::fmt::Display) -> PyErr {
@@ -94,7 +95,17 @@ impl Request {
                 components: open_library(dir)?.components,
             }),
         };
+        let weights = match self.weights.as_str() {
+            "none" => diagnostics::Weights::None,
+            "estimated" => diagnostics::Weights::Estimated,
+            other => {
+                return Err(engine_error(format!(
+                    "weights '{other}': expected 'none' or 'estimated'"
+                )));
+            }
+        };
         let checks = diagnostics::Options {
+            weights,
             residual: self.checks.then_some(ResidualOptions {
                 noise_au: self.noise_au,
                 alarm_rate: self.alarm_rate,

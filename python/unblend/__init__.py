@@ -47,7 +47,7 @@ COLUMNS: Tuple[str, ...] = tuple(CSV_HEADER.split(","))
 WAVELENGTHS_KEY = b"unblend.wavelengths_nm"
 
 _COUNT_COLUMNS = ("n_points", "n_masked")
-_TEXT_COLUMNS = ("solver", "flags", "error", "screen_candidate")
+_TEXT_COLUMNS = ("solver", "flags", "error", "screen_candidate", "answer")
 
 
 class UnblendWarning(UserWarning):
@@ -76,6 +76,7 @@ def fit_arrow(
     max_absorbance_au: Optional[float] = _unblend.DEFAULT_MAX_ABSORBANCE_AU,
     screen_with: Optional[str] = None,
     samples: Optional[Sequence[str]] = None,
+    weights: str = "estimated",
 ) -> pa.Table:
     """Fit spectra; returns a pyarrow Table with the columns :data:`COLUMNS`.
 
@@ -97,6 +98,8 @@ def fit_arrow(
     max_absorbance_au: points above this are masked; ``None`` keeps all.
     screen_with: library folder of candidates tried on flagged samples.
     samples: sample names [default: from the input, or row numbers from 0].
+    weights: "estimated" (refit with weights when the noise grows with
+        absorbance, as ``unblend fit`` does by default) or "none".
 
     Engine errors (library, options, grid) raise :class:`UnblendError`; a
     spectrum that cannot be fitted is a row with its ``error``.
@@ -113,6 +116,7 @@ def fit_arrow(
         "alarm_rate": _unblend.DEFAULT_ALARM_RATE if alarm_rate is None else float(alarm_rate),
         "max_absorbance_au": None if max_absorbance_au is None else float(max_absorbance_au),
         "screen_with": None if screen_with is None else os.fspath(screen_with),
+        "weights": str(weights),
     }
     out = _unblend.fit_columns(matrix, wl, request)
     for w in out["_warnings"]:
