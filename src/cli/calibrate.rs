@@ -123,14 +123,7 @@ impl TryFrom<&Args> for CalibrationOptions {
 /// Run `unblend calibrate`.
 pub fn run(args: Args) -> Result<u8, Failure> {
     crate::reference::component::validate_name(&args.name)?;
-    let component_file = Library::path_for(&library_dir(args.library.clone()), &args.name);
-    let outputs = crate::guard::given(&[
-        ("--out", args.out.as_deref()),
-        ("component file", Some(&component_file)),
-    ]);
-    let mut named_inputs: Vec<Named> = args.inputs.iter().map(|p| Named::new("input", p)).collect();
-    named_inputs.push(Named::new("--concentrations", &args.concentrations));
-    crate::guard::refuse_overwriting(&named_inputs, &outputs)?;
+    refuse_overwriting_inputs(&args)?;
     let options = CalibrationOptions::try_from(&args)?;
     let read = inputs::read_all_with_provenance(&args.inputs, args.quantity.map(Into::into))?;
     for w in &read.file.warnings {
@@ -194,6 +187,35 @@ pub fn run(args: Args) -> Result<u8, Failure> {
     for w in &result.warnings {
         eprintln!("unblend: warning: {w}");
     }
+    print_result(&args, &table.unit, &result, written.as_deref())?;
+    Ok(if result.unreadable.is_empty() {
+        exit::OK
+    } else {
+        exit::PARTIAL
+    })
+}
+
+/// Refuse a run whose outputs (--out, the component file) are one of its
+/// inputs (the standards, --concentrations), before anything is read.
+fn refuse_overwriting_inputs(args: &Args) -> Result<(), Failure> {
+    let component_file = Library::path_for(&library_dir(args.library.clone()), &args.name);
+    let outputs = crate::guard::given(&[
+        ("--out", args.out.as_deref()),
+        ("component file", Some(&component_file)),
+    ]);
+    let mut named_inputs: Vec<Named> = args.inputs.iter().map(|p| Named::new("input", p)).collect();
+    named_inputs.push(Named::new("--concentrations", &args.concentrations));
+    crate::guard::refuse_overwriting(&named_inputs, &outputs)?;
+    Ok(())
+}
+
+/// Print the calibration's summary in the chosen format.
+fn print_result(
+    args: &Args,
+    unit: &ConcentrationUnit,
+    result: &calibrate::CalibrationResult,
+    written: Option<&std::path::Path>,
+) -> Result<(), Failure> {
     match args.format {
         FormatArg::Json => {
             let summary = output::calibration::Summary {
@@ -202,7 +224,7 @@ pub fn run(args: Args) -> Result<u8, Failure> {
                     version: env!("CARGO_PKG_VERSION").into(),
                 },
                 component: &args.name,
-                file: written.as_ref().map(|p| p.display().to_string()),
+                file: written.map(|p| p.display().to_string()),
                 calibration: &result.calibration,
                 unreadable: &result.unreadable,
                 warnings: &result.warnings,
@@ -216,17 +238,13 @@ pub fn run(args: Args) -> Result<u8, Failure> {
             let text = output::calibration::SummaryText {
                 name: &args.name,
                 molar_mass_g_per_mol: args.molar_mass,
-                unit: &table.unit,
-                written: written.as_deref(),
+                unit,
+                written,
             };
-            print_rendered(|w| output::calibration::write_summary(&result, &text, w))?
+            print_rendered(|w| output::calibration::write_summary(result, &text, w))?
         }
     }
-    Ok(if result.unreadable.is_empty() {
-        exit::OK
-    } else {
-        exit::PARTIAL
-    })
+    Ok(())
 }
 
 /// `calibrate --emission`: an emission curve from the standards, added to
