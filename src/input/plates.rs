@@ -148,118 +148,145 @@ pub fn split_id(id: &str) -> (Option<&str>, &str) {
 /// their identifier (or all belong to `default_name`), in order of first
 /// appearance. `shift` moves line numbers in messages.
 fn from_spectra(default_name: &str, file: spectra::SpectraFile, shift: usize) -> Vec<PlateSpectra> {
-    struct Entry {
-        position: usize,
-        well: std::result::Result<Well, Error>,
-        label: String,
-        /// Block and row, or the read error.
-        source: std::result::Result<(usize, usize), Error>,
+    let mut groups = PlateGroups {
+        default_name,
+        order: Vec::new(),
+        by_plate: HashMap::new(),
+    };
+    for (b, block) in file.blocks.iter().enumerate() {
+        for (i, id) in block.ids.iter().enumerate() {
+            groups.add(id, block.positions[i], Ok((b, i)));
+        }
     }
-    let mut order: Vec<String> = Vec::new();
-    let mut groups: HashMap<String, Vec<Entry>> = HashMap::new();
-    let mut add = |id: &str,
-                   position: usize,
-                   source: std::result::Result<(usize, usize), Error>| {
+    for f in file.failures {
+        groups.add(&f.sample, f.position, Err(shift_lines(f.error, shift)));
+    }
+    let PlateGroups {
+        order,
+        mut by_plate,
+        ..
+    } = groups;
+    order
+        .into_iter()
+        .map(|name| {
+            let entries = by_plate.remove(&name).unwrap_or_default();
+            plate_of(name, entries, &file.blocks)
+        })
+        .collect()
+}
+
+/// One sample of a read spectra file, on its way into a plate.
+struct Entry {
+    position: usize,
+    well: std::result::Result<Well, Error>,
+    label: String,
+    /// Block and row, or the read error.
+    source: std::result::Result<(usize, usize), Error>,
+}
+
+/// Samples grouped by plate, plates in order of first appearance.
+struct PlateGroups<'d> {
+    default_name: &'d str,
+    order: Vec<String>,
+    by_plate: HashMap<String, Vec<Entry>>,
+}
+
+impl PlateGroups<'_> {
+    fn add(
+        &mut self,
+        id: &str,
+        position: usize,
+        source: std::result::Result<(usize, usize), Error>,
+    ) {
         let (plate, well_text) = split_id(id);
-        let plate = plate.unwrap_or(default_name).to_string();
+        let plate = plate.unwrap_or(self.default_name).to_string();
         let well = Well::parse(well_text).ok_or_else(|| {
             Error::Invalid(format!(
                 "sample '{}': expected a well such as A1 or P24, or plate and well such as plate1:B12, as the sample identifier",
                 crate::error::shorten(id.as_bytes())
             ))
         });
-        if !groups.contains_key(&plate) {
-            order.push(plate.clone());
+        if !self.by_plate.contains_key(&plate) {
+            self.order.push(plate.clone());
         }
-        groups.entry(plate).or_default().push(Entry {
+        self.by_plate.entry(plate).or_default().push(Entry {
             position,
             well,
             label: well_text.to_string(),
             source,
         });
-    };
-    for (b, block) in file.blocks.iter().enumerate() {
-        for (i, id) in block.ids.iter().enumerate() {
-            add(id, block.positions[i], Ok((b, i)));
+    }
+}
+
+/// The block holding most of a plate's wells: the plate's grid.
+fn main_block(entries: &[Entry]) -> Option<usize> {
+    let mut count: HashMap<usize, usize> = HashMap::new();
+    for e in entries {
+        if let Ok((b, _)) = e.source {
+            *count.entry(b).or_default() += 1;
         }
     }
-    for f in file.failures {
-        add(
-            &f.sample.clone(),
-            f.position,
-            Err(shift_lines(f.error, shift)),
-        );
-    }
-    let mut plates = Vec::new();
-    for name in order {
-        let mut entries = groups.remove(&name).unwrap_or_default();
-        entries.sort_by_key(|e| e.position);
-        // The plate's grid: the block holding most of its wells.
-        let mut count: HashMap<usize, usize> = HashMap::new();
-        for e in &entries {
-            if let Ok((b, _)) = e.source {
-                *count.entry(b).or_default() += 1;
+    count
+        .iter()
+        .max_by_key(|(b, c)| (**c, std::cmp::Reverse(**b)))
+        .map(|(b, _)| *b)
+}
+
+/// Plate `name` from its samples: wells on the main grid are read, the
+/// others become failures that say why.
+fn plate_of(name: String, mut entries: Vec<Entry>, blocks: &[spectra::Block]) -> PlateSpectra {
+    entries.sort_by_key(|e| e.position);
+    let main = main_block(&entries);
+    let mut wells = Vec::new();
+    let mut values = Vec::new();
+    let mut failures = Vec::new();
+    let mut seen: HashSet<Well> = HashSet::new();
+    for e in entries {
+        let failure = |error: Error| WellFailure {
+            well: e.well.as_ref().ok().copied(),
+            label: e.label.clone(),
+            error,
+        };
+        let (w, b, i) = match (&e.well, e.source) {
+            (_, Err(error)) => {
+                failures.push(failure(error));
+                continue;
             }
+            (Err(error), _) => {
+                failures.push(failure(Error::Invalid(error.to_string())));
+                continue;
+            }
+            (Ok(w), Ok((b, i))) => (*w, b, i),
+        };
+        if Some(b) != main {
+            let g = &blocks[b].grid;
+            failures.push(failure(Error::Invalid(format!(
+                "well {w}: its wavelengths ({} points, {}–{} nm) differ from the rest of plate '{name}': every well of a plate must share one grid",
+                g.len(),
+                g.min_nm(),
+                g.max_nm()
+            ))));
+            continue;
         }
-        let main = count
-            .iter()
-            .max_by_key(|(b, c)| (**c, std::cmp::Reverse(**b)))
-            .map(|(b, _)| *b);
-        let mut wells = Vec::new();
-        let mut values = Vec::new();
-        let mut failures = Vec::new();
-        let mut seen: HashSet<Well> = HashSet::new();
-        for e in entries {
-            let failure = |error: Error| WellFailure {
-                well: e.well.as_ref().ok().copied(),
-                label: e.label.clone(),
-                error,
-            };
-            let well = match (&e.well, e.source) {
-                (_, Err(error)) => {
-                    failures.push(failure(error));
-                    continue;
-                }
-                (Err(error), _) => {
-                    failures.push(failure(Error::Invalid(error.to_string())));
-                    continue;
-                }
-                (Ok(w), Ok((b, i))) => {
-                    if Some(b) != main {
-                        let g = &file.blocks[b].grid;
-                        failures.push(failure(Error::Invalid(format!(
-                            "well {w}: its wavelengths ({} points, {}–{} nm) differ from the rest of plate '{name}': every well of a plate must share one grid",
-                            g.len(),
-                            g.min_nm(),
-                            g.max_nm()
-                        ))));
-                        continue;
-                    }
-                    if !seen.insert(*w) {
-                        failures.push(failure(Error::Invalid(format!(
-                            "well {w} appears twice in plate '{name}': the second is not used"
-                        ))));
-                        continue;
-                    }
-                    values.extend_from_slice(file.blocks[b].row(i));
-                    *w
-                }
-            };
-            wells.push(well);
+        if !seen.insert(w) {
+            failures.push(failure(Error::Invalid(format!(
+                "well {w} appears twice in plate '{name}': the second is not used"
+            ))));
+            continue;
         }
-        let mut all = wells.clone();
-        all.extend(failures.iter().filter_map(|f| f.well));
-        let grid = main.map(|b| file.blocks[b].grid.clone());
-        plates.push(PlateSpectra {
-            name: name.clone(),
-            format: PlateFormat::holding(&all),
-            grid,
-            wells,
-            absorbance_au: values,
-            failures,
-        });
+        values.extend_from_slice(blocks[b].row(i));
+        wells.push(w);
     }
-    plates
+    let mut all = wells.clone();
+    all.extend(failures.iter().filter_map(|f| f.well));
+    PlateSpectra {
+        name,
+        format: PlateFormat::holding(&all),
+        grid: main.map(|b| blocks[b].grid.clone()),
+        wells,
+        absorbance_au: values,
+        failures,
+    }
 }
 
 #[derive(Debug)]
@@ -325,52 +352,70 @@ impl<R: Read> PlateStream<R> {
             ready: VecDeque::new(),
             last_plate_bytes: 0,
         };
-        s.fill()?;
-        if s.buf.starts_with(b"\xEF\xBB\xBF") {
-            s.buf.drain(..3);
-        }
-        if s.buf.iter().all(|b| b.is_ascii_whitespace()) && s.eof {
-            return Err(Error::Empty);
-        }
-        while !s.eof && s.buf.len() < CHUNK_BYTES {
-            s.fill()?;
-        }
-        let probe_end = s.buf.len().min(CHUNK_BYTES);
-        let is_grid = fields::lines(&s.buf[..probe_end]).any(|(_, l)| plate::heading(l).is_some());
-        if is_grid {
+        if s.probe_is_grid()? {
             s.layout = InputLayout::PlateGrid;
             return Ok(s);
         }
-        // Wide or long: the first line with content is the header.
+        let header_line = s.take_header(reading)?;
+        if s.layout == InputLayout::Long {
+            s.read_long(reading, header_line)?;
+        }
+        Ok(s)
+    }
+
+    /// Read the first chunk (BOM dropped) and say whether it holds a
+    /// plate-grid heading.
+    fn probe_is_grid(&mut self) -> Result<bool> {
+        self.fill()?;
+        if self.buf.starts_with(b"\xEF\xBB\xBF") {
+            self.buf.drain(..3);
+        }
+        if self.buf.iter().all(|b| b.is_ascii_whitespace()) && self.eof {
+            return Err(Error::Empty);
+        }
+        while !self.eof && self.buf.len() < CHUNK_BYTES {
+            self.fill()?;
+        }
+        let probe_end = self.buf.len().min(CHUNK_BYTES);
+        Ok(fields::lines(&self.buf[..probe_end]).any(|(_, l)| plate::heading(l).is_some()))
+    }
+
+    /// Drop the lines without content before the header.
+    fn skip_to_header(&mut self) -> Result<()> {
         loop {
-            if let Some(end) = memchr::memchr(b'\n', &s.buf) {
-                let line = &s.buf[..end];
+            if let Some(end) = memchr::memchr(b'\n', &self.buf) {
+                let line = &self.buf[..end];
                 let line = line.strip_suffix(b"\r").unwrap_or(line);
                 let d = Delimiter::detect(line);
                 if fields::is_skippable(line, d.byte()) {
-                    s.buf.drain(..=end);
-                    s.buf_line += 1;
+                    self.buf.drain(..=end);
+                    self.buf_line += 1;
                     continue;
                 }
-                break;
+                return Ok(());
             }
-            if s.eof {
-                break;
+            if self.eof {
+                return Ok(());
             }
-            s.fill()?;
+            self.fill()?;
         }
-        let end = memchr::memchr(b'\n', &s.buf).unwrap_or(s.buf.len());
-        let header = s.buf[..end]
+    }
+
+    /// Wide or long: the first line with content is the header. Classify
+    /// it with the spectra parser on the header and the next line, keep
+    /// it, and return its line number.
+    fn take_header(&mut self, reading: &plate::Reading) -> Result<usize> {
+        self.skip_to_header()?;
+        let end = memchr::memchr(b'\n', &self.buf).unwrap_or(self.buf.len());
+        let header = self.buf[..end]
             .strip_suffix(b"\r")
-            .unwrap_or(&s.buf[..end])
+            .unwrap_or(&self.buf[..end])
             .to_vec();
-        let header_line = s.buf_line;
-        // Classify with the spectra parser on the header and the next line.
-        let probe_len = memchr::memchr(b'\n', &s.buf[(end + 1).min(s.buf.len())..])
+        let header_line = self.buf_line;
+        let probe_len = memchr::memchr(b'\n', &self.buf[(end + 1).min(self.buf.len())..])
             .map(|i| end + 1 + i)
-            .unwrap_or(s.buf.len());
-        let probe = s.buf[..probe_len].to_vec();
-        let layout = match spectra::read(&probe, reading.read_options()) {
+            .unwrap_or(self.buf.len());
+        let layout = match spectra::read(&self.buf[..probe_len], reading.read_options()) {
             Ok(f) => f.layout,
             Err(e) => {
                 let e = shift_lines(e, header_line - 1);
@@ -385,36 +430,38 @@ impl<R: Read> PlateStream<R> {
                 )));
             }
         };
-        s.delimiter = Delimiter::detect(&header);
-        s.buf.drain(..(end + 1).min(s.buf.len()));
-        s.buf_line += 1;
-        s.header = Some(Arc::new(header));
-        s.layout = match layout {
+        self.delimiter = Delimiter::detect(&header);
+        self.buf.drain(..(end + 1).min(self.buf.len()));
+        self.buf_line += 1;
+        self.header = Some(Arc::new(header));
+        self.layout = match layout {
             Layout::Wide => InputLayout::Wide,
             _ => InputLayout::Long,
         };
-        if s.layout == InputLayout::Long {
-            // Read whole: a sample's rows may be anywhere.
-            while !s.eof {
-                s.fill()?;
-            }
-            let mut text = Vec::with_capacity(s.buf.len() + 1024);
-            text.extend(std::iter::repeat_n(b'\n', header_line - 1));
-            text.extend_from_slice(s.header.as_deref().map_or(&[][..], |h| h.as_slice()));
-            text.push(b'\n');
-            text.append(&mut s.buf);
-            let file = spectra::read(&text, reading.read_options())?;
-            drop(text);
-            let stem = s.stem.clone();
-            for p in from_spectra(&stem, file, 0) {
-                s.ready.push_back(RawPlate {
-                    name: p.name.clone(),
-                    first_line: header_line,
-                    kind: RawKind::Parsed(Box::new(p)),
-                });
-            }
+        Ok(header_line)
+    }
+
+    /// The long layout is read whole (a sample's rows may be anywhere) and
+    /// its plates queued.
+    fn read_long(&mut self, reading: &plate::Reading, header_line: usize) -> Result<()> {
+        while !self.eof {
+            self.fill()?;
         }
-        Ok(s)
+        let mut text = Vec::with_capacity(self.buf.len() + 1024);
+        text.extend(std::iter::repeat_n(b'\n', header_line - 1));
+        text.extend_from_slice(self.header.as_deref().map_or(&[][..], |h| h.as_slice()));
+        text.push(b'\n');
+        text.append(&mut self.buf);
+        let file = spectra::read(&text, reading.read_options())?;
+        drop(text);
+        for p in from_spectra(&self.stem, file, 0) {
+            self.ready.push_back(RawPlate {
+                name: p.name.clone(),
+                first_line: header_line,
+                kind: RawKind::Parsed(Box::new(p)),
+            });
+        }
+        Ok(())
     }
 
     /// The reader, given back (to finish a checksum, say).
