@@ -554,7 +554,7 @@ impl BlockReader<'_> {
             };
             block.row_lines[row] = row_no;
             lines.next();
-            self.read_cells(&scratch, row, row_no, &mut block, wells);
+            self.read_cells(&scratch, (row, row_no), &mut block, wells);
         }
         Ok(block)
     }
@@ -597,8 +597,7 @@ impl BlockReader<'_> {
     fn read_cells(
         &self,
         fields_: &[&[u8]],
-        row: usize,
-        row_no: usize,
+        (row, row_no): (usize, usize),
         block: &mut GridBlock,
         wells: &mut WellCells,
     ) {

@@ -1,3 +1,4 @@
+use super::wide_row::*;
 use super::*;
 
 fn read_str(s: &str) -> Result<SpectraFile> {
