@@ -1,7 +1,9 @@
 //! Parsing one row of the wide layout: the plain-decimal fast path and the
 //! general, per-field path.
 
-use super::*;
+use super::fields;
+use super::{Quantity, ReadOptions, WideHeader};
+use crate::error::Error;
 
 /// Powers of ten exactly representable as f64.
 pub(super) const POW10: [f64; 23] = [
