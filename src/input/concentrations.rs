@@ -12,7 +12,7 @@
 //! spectrum out of the calibration on purpose. Same delimiter and decimal
 //! rules as spectra files.
 
-use super::fields::{self, Delimiter};
+use super::fields;
 use crate::error::{Error, Location, Result};
 use std::collections::HashMap;
 
@@ -159,15 +159,8 @@ struct Columns {
 pub fn read(bytes: &[u8], unit_flag: Option<ConcentrationUnit>) -> Result<ConcentrationTable> {
     let bytes = fields::strip_bom(bytes);
     let mut lines = fields::lines(bytes);
-    let mut header = None;
-    for (n, line) in lines.by_ref() {
-        let d = Delimiter::detect(line);
-        if !fields::is_skippable(line, d.byte()) {
-            header = Some((n, line, d));
-            break;
-        }
-    }
-    let Some((header_line, header_bytes, delimiter)) = header else {
+    let Some((header_line, header_bytes, delimiter)) = fields::first_content_line(&mut lines)
+    else {
         return Err(Error::Invalid(
             "the concentration file is empty: expected a header `sample,concentration` and one row per standard".into(),
         ));
@@ -180,7 +173,6 @@ pub fn read(bytes: &[u8], unit_flag: Option<ConcentrationUnit>) -> Result<Concen
         unit_flag.map(|u| (u, format!("--unit {}", u.label())));
     let columns = classify_header(&names, header_line, &mut unit_source)?;
 
-    let dc = delimiter.allows_decimal_comma();
     let mut rows: Vec<ConcentrationRow> = Vec::new();
     let mut seen: HashMap<String, usize> = HashMap::new();
     let mut scratch = Vec::new();
@@ -190,124 +182,22 @@ pub fn read(bytes: &[u8], unit_flag: Option<ConcentrationUnit>) -> Result<Concen
         }
         fields::split(line, delimiter.byte(), &mut scratch);
         fields::trim_trailing_empty(&mut scratch);
-        let cell = |i: usize| scratch.get(i).copied().unwrap_or(b"");
-        let sample = fields::text(cell(columns.sample)).into_owned();
-        if sample.is_empty() {
-            return Err(Error::parse(
-                line_no,
-                columns.sample + 1,
-                b"",
-                "a sample name (as in the spectra file)",
-            ));
-        }
-        if let Some(first) = seen.insert(sample.clone(), line_no) {
+        let row = RowCells {
+            line_no,
+            cells: &scratch,
+            decimal_comma: delimiter.allows_decimal_comma(),
+        };
+        let parsed = row.parse(&columns, &mut unit_source)?;
+        if let Some(first) = seen.insert(parsed.sample.clone(), line_no) {
             return Err(Error::structure(
                 line_no,
                 format!(
-                    "sample '{sample}' is listed twice (first on line {first}): expected one row per spectrum"
+                    "sample '{}' is listed twice (first on line {first}): expected one row per spectrum",
+                    parsed.sample
                 ),
             ));
         }
-        let role = match columns.role {
-            None => None,
-            Some(i) => {
-                let t = fields::text(cell(i)).trim().to_ascii_lowercase();
-                match t.as_str() {
-                    "" => None,
-                    "standard" | "std" => Some(Role::Standard),
-                    "blank" => Some(Role::Blank),
-                    "exclude" | "excluded" | "skip" => Some(Role::Exclude),
-                    _ => {
-                        return Err(Error::parse(
-                            line_no,
-                            i + 1,
-                            cell(i),
-                            "a role: standard, blank or exclude (or empty)",
-                        ));
-                    }
-                }
-            }
-        };
-        if let Some(i) = columns.unit {
-            let t = fields::text(cell(i));
-            if !t.trim().is_empty() {
-                let u = ConcentrationUnit::parse(&t).ok_or_else(|| {
-                    Error::parse(line_no, i + 1, cell(i), UNIT_EXPECTED.to_string())
-                })?;
-                agree(
-                    &mut unit_source,
-                    u,
-                    format!("line {line_no}, column {}", i + 1),
-                )?;
-            }
-        }
-        let col = columns.concentration;
-        let text = fields::text(cell(col));
-        let value = if text.trim().is_empty() {
-            if matches!(role, Some(Role::Blank | Role::Exclude)) {
-                None
-            } else {
-                return Err(Error::parse(
-                    line_no,
-                    col + 1,
-                    b"",
-                    "a concentration (a number; 0 or role `blank` for a blank)",
-                ));
-            }
-        } else {
-            let (v, suffix) = split_value(text.trim(), dc).ok_or_else(|| {
-                Error::parse(
-                    line_no,
-                    col + 1,
-                    cell(col),
-                    "a concentration (a number, optionally followed by its unit)",
-                )
-            })?;
-            if let Some(s) = suffix {
-                let u = ConcentrationUnit::parse(s).ok_or_else(|| {
-                    Error::parse(line_no, col + 1, cell(col), UNIT_EXPECTED.to_string())
-                })?;
-                agree(
-                    &mut unit_source,
-                    u,
-                    format!("line {line_no}, column {}", col + 1),
-                )?;
-            }
-            if v < 0.0 {
-                return Err(Error::parse(
-                    line_no,
-                    col + 1,
-                    cell(col),
-                    "a concentration of 0 or more (a negative concentration is not physical)",
-                ));
-            }
-            Some(v)
-        };
-        let role = match role {
-            Some(Role::Blank) if value.is_some_and(|v| v > 0.0) => {
-                return Err(Error::parse(
-                    line_no,
-                    col + 1,
-                    cell(col),
-                    "0 or an empty cell for a row whose role is `blank`",
-                ));
-            }
-            Some(r) => r,
-            None if value.is_some_and(|v| v > 0.0) => Role::Standard,
-            None => Role::Blank,
-        };
-        // A zero "standard" is a blank.
-        let role = if role == Role::Standard && !value.is_some_and(|v| v > 0.0) {
-            Role::Blank
-        } else {
-            role
-        };
-        rows.push(ConcentrationRow {
-            line: line_no,
-            sample,
-            value,
-            role,
-        });
+        rows.push(parsed);
     }
     if rows.is_empty() {
         return Err(Error::structure(
@@ -324,6 +214,157 @@ pub fn read(bytes: &[u8], unit_flag: Option<ConcentrationUnit>) -> Result<Concen
         unit,
         unit_stated_by,
     })
+}
+
+/// The fields of one data row, with its line number.
+struct RowCells<'r, 'a> {
+    line_no: usize,
+    cells: &'r [&'a [u8]],
+    decimal_comma: bool,
+}
+
+/// Where a unit was stated first, to check later statements against.
+type UnitSource = Option<(ConcentrationUnit, String)>;
+
+impl RowCells<'_, '_> {
+    fn cell(&self, i: usize) -> &[u8] {
+        self.cells.get(i).copied().unwrap_or(b"")
+    }
+
+    /// One row: sample, role, unit cell and concentration, checked.
+    fn parse(&self, columns: &Columns, unit_source: &mut UnitSource) -> Result<ConcentrationRow> {
+        let sample = fields::text(self.cell(columns.sample)).into_owned();
+        if sample.is_empty() {
+            return Err(Error::parse(
+                self.line_no,
+                columns.sample + 1,
+                b"",
+                "a sample name (as in the spectra file)",
+            ));
+        }
+        let role = match columns.role {
+            None => None,
+            Some(i) => self.role(i)?,
+        };
+        if let Some(i) = columns.unit {
+            self.unit_cell(i, unit_source)?;
+        }
+        let value = self.concentration(columns.concentration, role, unit_source)?;
+        let role = self.settle_role(columns.concentration, role, value)?;
+        Ok(ConcentrationRow {
+            line: self.line_no,
+            sample,
+            value,
+            role,
+        })
+    }
+
+    /// The role cell in column `i`; `None` when empty.
+    fn role(&self, i: usize) -> Result<Option<Role>> {
+        let t = fields::text(self.cell(i)).trim().to_ascii_lowercase();
+        match t.as_str() {
+            "" => Ok(None),
+            "standard" | "std" => Ok(Some(Role::Standard)),
+            "blank" => Ok(Some(Role::Blank)),
+            "exclude" | "excluded" | "skip" => Ok(Some(Role::Exclude)),
+            _ => Err(Error::parse(
+                self.line_no,
+                i + 1,
+                self.cell(i),
+                "a role: standard, blank or exclude (or empty)",
+            )),
+        }
+    }
+
+    /// A unit cell in column `i`: when filled, it must agree with the others.
+    fn unit_cell(&self, i: usize, unit_source: &mut UnitSource) -> Result<()> {
+        let t = fields::text(self.cell(i));
+        if t.trim().is_empty() {
+            return Ok(());
+        }
+        let u = ConcentrationUnit::parse(&t).ok_or_else(|| {
+            Error::parse(self.line_no, i + 1, self.cell(i), UNIT_EXPECTED.to_string())
+        })?;
+        agree(
+            unit_source,
+            u,
+            format!("line {}, column {}", self.line_no, i + 1),
+        )
+    }
+
+    /// The concentration in column `col`, with an optional unit suffix;
+    /// `None` for an empty cell of a blank or excluded row.
+    fn concentration(
+        &self,
+        col: usize,
+        role: Option<Role>,
+        unit_source: &mut UnitSource,
+    ) -> Result<Option<f64>> {
+        let line_no = self.line_no;
+        let raw = self.cell(col);
+        let text = fields::text(raw);
+        if text.trim().is_empty() {
+            if matches!(role, Some(Role::Blank | Role::Exclude)) {
+                return Ok(None);
+            }
+            return Err(Error::parse(
+                line_no,
+                col + 1,
+                b"",
+                "a concentration (a number; 0 or role `blank` for a blank)",
+            ));
+        }
+        let (v, suffix) = split_value(text.trim(), self.decimal_comma).ok_or_else(|| {
+            Error::parse(
+                line_no,
+                col + 1,
+                raw,
+                "a concentration (a number, optionally followed by its unit)",
+            )
+        })?;
+        if let Some(s) = suffix {
+            let u = ConcentrationUnit::parse(s)
+                .ok_or_else(|| Error::parse(line_no, col + 1, raw, UNIT_EXPECTED.to_string()))?;
+            agree(
+                unit_source,
+                u,
+                format!("line {line_no}, column {}", col + 1),
+            )?;
+        }
+        if v < 0.0 {
+            return Err(Error::parse(
+                line_no,
+                col + 1,
+                raw,
+                "a concentration of 0 or more (a negative concentration is not physical)",
+            ));
+        }
+        Ok(Some(v))
+    }
+
+    /// The row's role from its role cell and value: no role means standard
+    /// when positive, blank otherwise; a zero "standard" is a blank.
+    fn settle_role(&self, col: usize, role: Option<Role>, value: Option<f64>) -> Result<Role> {
+        let positive = value.is_some_and(|v| v > 0.0);
+        let role = match role {
+            Some(Role::Blank) if positive => {
+                return Err(Error::parse(
+                    self.line_no,
+                    col + 1,
+                    self.cell(col),
+                    "0 or an empty cell for a row whose role is `blank`",
+                ));
+            }
+            Some(r) => r,
+            None if positive => Role::Standard,
+            None => Role::Blank,
+        };
+        Ok(if role == Role::Standard && !positive {
+            Role::Blank
+        } else {
+            role
+        })
+    }
 }
 
 const UNIT_EXPECTED: &str = "a concentration unit: mol/L, mmol/L, umol/L, mg/L or g/L";

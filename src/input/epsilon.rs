@@ -3,7 +3,7 @@
 //!
 //! In: bytes. Out: ascending wavelengths and ε values, validated.
 
-use super::fields::{self, Delimiter};
+use super::fields;
 use crate::error::{Error, Result};
 use crate::spectrum::{self, Grid};
 
@@ -21,15 +21,8 @@ pub struct EpsilonTable {
 pub fn read(bytes: &[u8]) -> Result<EpsilonTable> {
     let bytes = fields::strip_bom(bytes);
     let mut lines = fields::lines(bytes);
-    let mut header = None;
-    for (n, line) in lines.by_ref() {
-        let d = Delimiter::detect(line);
-        if !fields::is_skippable(line, d.byte()) {
-            header = Some((n, line, d));
-            break;
-        }
-    }
-    let Some((header_line, header_bytes, delimiter)) = header else {
+    let Some((header_line, header_bytes, delimiter)) = fields::first_content_line(&mut lines)
+    else {
         return Err(Error::Empty);
     };
     let names = fields::header_names(header_bytes, delimiter.byte());

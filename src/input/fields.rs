@@ -79,6 +79,17 @@ pub fn is_skippable(line: &[u8], delim: u8) -> bool {
     }
 }
 
+/// The first line with data, with its 1-based number and the delimiter it
+/// uses: the header row of a small CSV input. Consumes lines up to it.
+pub fn first_content_line<'a>(
+    lines: &mut impl Iterator<Item = (usize, &'a [u8])>,
+) -> Option<(usize, &'a [u8], Delimiter)> {
+    lines.find_map(|(n, line)| {
+        let d = Delimiter::detect(line);
+        (!is_skippable(line, d.byte())).then_some((n, line, d))
+    })
+}
+
 /// Split a line into raw fields (quotes kept), quote-aware: a delimiter
 /// inside `"..."` does not split. Appends into `out` to reuse its storage.
 pub fn split<'a>(line: &'a [u8], delim: u8, out: &mut Vec<&'a [u8]>) {

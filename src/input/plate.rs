@@ -41,6 +41,9 @@ use crate::error::{Error, Result};
 use crate::spectrum::Grid;
 use std::sync::Arc;
 
+mod cells;
+use cells::{Cell, cell, fast_row, plain_decimal, split_row};
+
 /// Largest number of rows (A–P) of a supported plate.
 pub const MAX_ROWS: usize = 16;
 /// Largest number of columns (1–24) of a supported plate.
@@ -288,53 +291,6 @@ pub fn plain_heading(line: &[u8]) -> Option<f64> {
         .filter(|w| *w > 0.0)
 }
 
-/// What a grid cell holds.
-#[derive(Debug, Clone, Copy, PartialEq)]
-enum Cell {
-    Value(f64),
-    Saturated,
-    Missing,
-}
-
-/// Parse a plain decimal such as `0.1234` or `-12.5` (no exponent, no
-/// spaces, at most 15 digits) quickly and exactly: with m < 2^53 and k ≤ 15
-/// both m and 10^k are exact doubles and one IEEE division rounds once, so
-/// m / 10^k is the correctly rounded value (Clinger, PLDI 1990, "fast
-/// path"). Anything else returns `None` for the general parser.
-#[inline]
-fn plain_decimal(raw: &[u8]) -> Option<f64> {
-    const POW10: [f64; 16] = [
-        1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11, 1e12, 1e13, 1e14, 1e15,
-    ];
-    let (negative, digits) = match raw.first()? {
-        b'-' => (true, &raw[1..]),
-        _ => (false, raw),
-    };
-    let mut m: u64 = 0;
-    let mut n_digits = 0usize;
-    let mut n_frac = 0usize;
-    let mut dot = false;
-    for &b in digits {
-        match b {
-            b'0'..=b'9' => {
-                m = m * 10 + u64::from(b - b'0');
-                n_digits += 1;
-                n_frac += usize::from(dot);
-                if n_digits > 15 {
-                    return None;
-                }
-            }
-            b'.' if !dot => dot = true,
-            _ => return None,
-        }
-    }
-    if n_digits == 0 {
-        return None;
-    }
-    let v = m as f64 / POW10[n_frac];
-    Some(if negative { -v } else { v })
-}
-
 /// How plate readings are read: what the numbers measure and which words
 /// mark a reading above the instrument's range.
 #[derive(Debug, Clone, Default, PartialEq)]
@@ -365,122 +321,6 @@ impl Reading {
             fallback_name: None,
         }
     }
-}
-
-/// Read one cell: a number, an overflow marker, empty, or an error message.
-fn cell(raw: &[u8], decimal_comma: bool, reading: &Reading) -> std::result::Result<Cell, String> {
-    let quantity = reading.quantity;
-    if quantity == Quantity::Absorbance
-        && let Some(v) = plain_decimal(raw)
-    {
-        return Ok(Cell::Value(v));
-    }
-    let expected = || {
-        let noun = match quantity {
-            Quantity::Transmittance => "a transmittance fraction",
-            Quantity::TransmittancePercent => "a transmittance percentage",
-            _ => "an absorbance",
-        };
-        fields::reading_expected(noun, true, raw)
-    };
-    match fields::number(raw, decimal_comma) {
-        Ok(v) => quantity
-            .to_absorbance(v)
-            .map(Cell::Value)
-            .map_err(str::to_string),
-        Err(fields::NumberError::Empty) => Ok(Cell::Missing),
-        Err(_) => {
-            let t = fields::text(raw);
-            if t.trim().eq_ignore_ascii_case("nan") {
-                return Err(format!("{} (NaN is not a reading)", expected()));
-            }
-            if reading.overflow_markers.matches(raw, decimal_comma) {
-                Ok(Cell::Saturated)
-            } else {
-                Err(expected())
-            }
-        }
-    }
-}
-
-/// Read a grid row of plain decimals in one pass: `A,0.123,-0.004,...`
-/// (a row letter, then cells that [`plain_decimal`] reads; trailing empty
-/// cells allowed). Fills `out` with the cells after the letter and returns
-/// the letter and the number of cells, or `None` when anything else is in
-/// the row (spaces, quotes, empty or overflow cells, decimal commas): the
-/// general path then reads it.
-#[inline]
-fn fast_row(line: &[u8], delim: u8, out: &mut [f64; MAX_COLUMNS + 1]) -> Option<(u8, usize)> {
-    const POW10: [f64; 16] = [
-        1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11, 1e12, 1e13, 1e14, 1e15,
-    ];
-    let letter = *line.first()?;
-    if !letter.is_ascii_alphabetic() || line.get(1) != Some(&delim) {
-        return None;
-    }
-    let n = line.len();
-    let mut i = 2;
-    let mut k = 0;
-    loop {
-        let negative = i < n && line[i] == b'-';
-        i += usize::from(negative);
-        let (mut m, mut n_digits, mut n_frac, mut dot) = (0u64, 0usize, 0usize, false);
-        while i < n {
-            let b = line[i];
-            let d = b.wrapping_sub(b'0');
-            if d < 10 {
-                if n_digits == 15 {
-                    return None; // too long for the exact fast path
-                }
-                m = m * 10 + u64::from(d);
-                n_digits += 1;
-                n_frac += usize::from(dot);
-            } else if b == b'.' && !dot {
-                dot = true;
-            } else {
-                break;
-            }
-            i += 1;
-        }
-        if n_digits == 0 {
-            // Only trailing empty cells may follow.
-            let rest_empty = !negative && !dot && line[i..].iter().all(|&b| b == delim);
-            return (rest_empty && k > 0).then_some((letter, k));
-        }
-        if k == out.len() {
-            return None;
-        }
-        let v = m as f64 / POW10[n_frac];
-        out[k] = if negative { -v } else { v };
-        k += 1;
-        if i == n {
-            return Some((letter, k));
-        }
-        if line[i] != delim {
-            return None;
-        }
-        i += 1;
-    }
-}
-
-/// Split a grid row into fields. Rows are short and have many fields, so a
-/// plain byte loop beats a vectorised search per field; a row with quotes
-/// goes to the quote-aware splitter.
-#[inline]
-fn split_row<'a>(line: &'a [u8], delim: u8, out: &mut Vec<&'a [u8]>) {
-    if line.contains(&b'"') {
-        fields::split(line, delim, out);
-        return;
-    }
-    out.clear();
-    let mut start = 0;
-    for (i, &b) in line.iter().enumerate() {
-        if b == delim {
-            out.push(&line[start..i]);
-            start = i + 1;
-        }
-    }
-    out.push(&line[start..]);
 }
 
 /// Encoding of a block's cells: a finite value is a reading, `+inf` a
@@ -517,18 +357,11 @@ pub fn parse_grid(
     name: &str,
     reading: &Reading,
 ) -> Result<PlateSpectra> {
-    let quantity = reading.quantity;
     let mut blocks: Vec<GridBlock> = Vec::new();
     let mut lines = fields::lines(text)
         .map(|(n, l)| (n + first_line - 1, l))
         .peekable();
-    let mut scratch: Vec<&[u8]> = Vec::new();
-    // Wells with a reading (a value, a saturated reading or a bad cell) in
-    // any block.
-    let mut read = [false; MAX_ROWS * MAX_COLUMNS];
-    // Each well's cells, one per block so far (block order).
-    let mut per_slot: Vec<Vec<f64>> = vec![Vec::new(); MAX_ROWS * MAX_COLUMNS];
-    let mut fast = [0.0f64; MAX_COLUMNS + 1];
+    let mut wells = WellCells::new();
     while let Some((line_no, line)) = lines.next() {
         let Some(h) = heading(line) else {
             continue; // metadata or text between blocks
@@ -541,164 +374,19 @@ pub fn parse_grid(
             value: crate::error::shorten(raw.as_bytes()),
             expected: "a positive wavelength in nm after `wavelength_nm=`".into(),
         })?;
-        // The column line: the next line with content.
-        let mut columns_line = None;
-        for (n, l) in lines.by_ref() {
-            if !fields::is_skippable(l, b',') {
-                columns_line = Some((n, l));
-                break;
-            }
-        }
-        let Some((col_line_no, col_line)) = columns_line else {
-            return Err(Error::structure(
-                line_no,
-                format!(
-                    "the block for {wavelength_nm} nm ends after its heading: expected a line of column numbers (1–24) and rows A–P"
-                ),
-            ));
-        };
+        let (col_line_no, col_line) = column_line(&mut lines, line_no, wavelength_nm)?;
         let delimiter = Delimiter::detect(col_line);
-        let delim = delimiter.byte();
-        let decimal_comma = delimiter.allows_decimal_comma();
-        fields::split(col_line, delim, &mut scratch);
-        fields::trim_trailing_empty(&mut scratch);
-        let first_is_number = fields::number(scratch[0], false).is_ok();
-        let skip = usize::from(!first_is_number);
-        let mut columns: Vec<usize> = Vec::with_capacity(scratch.len());
-        for (i, f) in scratch.iter().enumerate().skip(skip) {
-            let c = fields::number(f, false)
-                .ok()
-                .filter(|c| c.fract().abs() < 1e-9 && (1.0..=MAX_COLUMNS as f64).contains(c))
-                .map(|c| c as usize - 1);
-            match c {
-                Some(c) if !columns.contains(&c) => columns.push(c),
-                Some(_) => {
-                    return Err(Error::parse(
-                        col_line_no,
-                        i + 1,
-                        f,
-                        "each column number once in the line of column numbers",
-                    ));
-                }
-                None => {
-                    return Err(Error::parse(
-                        col_line_no,
-                        i + 1,
-                        f,
-                        format!(
-                            "a column number 1–24 (the line after the heading on line {line_no} lists the columns)"
-                        ),
-                    ));
-                }
-            }
-        }
-        if columns.is_empty() {
-            return Err(Error::structure(
-                col_line_no,
-                "no column numbers after the heading: expected a line such as `,1,2,3,...,12`",
-            ));
-        }
-        let block_index = blocks.len();
-        let mut block = GridBlock {
-            wavelength_nm,
+        let reader = BlockReader {
+            columns: column_numbers(col_line, delimiter.byte(), col_line_no, line_no)?,
+            delim: delimiter.byte(),
+            decimal_comma: delimiter.allows_decimal_comma(),
+            reading,
+            block_index: blocks.len(),
             heading_line: line_no,
-            row_lines: [0; MAX_ROWS],
-            col_fields: [0; MAX_COLUMNS],
-            bad: Vec::new(),
+            wavelength_nm,
         };
-        for (k, &c) in columns.iter().enumerate() {
-            block.col_fields[c] = k + 1;
-        }
-        let mut rows_seen = [false; MAX_ROWS];
-        let mut any_row = false;
-        while let Some(&(row_no, row_line)) = lines.peek() {
-            if fields::is_skippable(row_line, delim) {
-                break;
-            }
-            // Fast path: a row letter and plain decimals (the usual export).
-            if quantity == Quantity::Absorbance
-                && let Some((letter, k)) = fast_row(row_line, delim, &mut fast)
-            {
-                let row = (letter.to_ascii_uppercase() - b'A') as usize;
-                if row < MAX_ROWS && !rows_seen[row] {
-                    rows_seen[row] = true;
-                    block.row_lines[row] = row_no;
-                    any_row = true;
-                    lines.next();
-                    for (j, &c) in columns.iter().enumerate().take(k) {
-                        let slot = row * MAX_COLUMNS + c;
-                        read[slot] = true;
-                        let v = &mut per_slot[slot];
-                        v.resize(block_index, NO_CELL);
-                        v.push(fast[j]);
-                    }
-                    continue;
-                }
-                // A bad or repeated row letter: the general path says so.
-            }
-            split_row(row_line, delim, &mut scratch);
-            let label = fields::text(scratch[0]);
-            let label = label.trim();
-            let row = match label.as_bytes() {
-                [b] if b.is_ascii_alphabetic() => (b.to_ascii_uppercase() - b'A') as usize,
-                _ => break, // not a row: the block has ended
-            };
-            if row >= MAX_ROWS {
-                return Err(Error::parse(
-                    row_no,
-                    1,
-                    label.as_bytes(),
-                    "a row letter A–P",
-                ));
-            }
-            if rows_seen[row] {
-                return Err(Error::structure(
-                    row_no,
-                    format!(
-                        "row {label} appears twice in the block for {wavelength_nm} nm (heading on line {line_no})"
-                    ),
-                ));
-            }
-            rows_seen[row] = true;
-            block.row_lines[row] = row_no;
-            any_row = true;
-            lines.next();
-            for (k, &c) in columns.iter().enumerate() {
-                let field_index = k + 1;
-                let Some(raw) = scratch.get(field_index) else {
-                    break; // short row: the remaining wells have no reading
-                };
-                let slot = row * MAX_COLUMNS + c;
-                let value = match cell(raw, decimal_comma, reading) {
-                    Ok(Cell::Value(v)) => {
-                        read[slot] = true;
-                        v
-                    }
-                    Ok(Cell::Saturated) => {
-                        read[slot] = true;
-                        f64::INFINITY
-                    }
-                    Ok(Cell::Missing) => EMPTY_CELL,
-                    Err(expected) => {
-                        read[slot] = true;
-                        block.bad.push((
-                            slot,
-                            row_no,
-                            field_index + 1,
-                            crate::error::shorten(raw),
-                            expected,
-                        ));
-                        EMPTY_CELL
-                    }
-                };
-                // Store by well as we go (no transpose later): pad the
-                // blocks this well had no cell in, then add this one.
-                let v = &mut per_slot[slot];
-                v.resize(block_index, NO_CELL);
-                v.push(value);
-            }
-        }
-        if !any_row {
+        let block = reader.read_rows(&mut lines, &mut wells)?;
+        if block.row_lines.iter().all(|&l| l == 0) {
             return Err(Error::structure(
                 col_line_no,
                 format!(
@@ -708,7 +396,242 @@ pub fn parse_grid(
         }
         blocks.push(block);
     }
-    assemble(blocks, per_slot, &read, name, first_line)
+    assemble(blocks, wells.per_slot, &wells.read, name, first_line)
+}
+
+/// The cells read so far, by well.
+struct WellCells {
+    /// Wells with a reading (a value, a saturated reading or a bad cell) in
+    /// any block.
+    read: [bool; MAX_ROWS * MAX_COLUMNS],
+    /// Each well's cells, one per block so far (block order).
+    per_slot: Vec<Vec<f64>>,
+}
+
+impl WellCells {
+    fn new() -> Self {
+        Self {
+            read: [false; MAX_ROWS * MAX_COLUMNS],
+            per_slot: vec![Vec::new(); MAX_ROWS * MAX_COLUMNS],
+        }
+    }
+
+    /// Store by well as we go (no transpose later): pad the blocks this
+    /// well had no cell in, then add this one.
+    fn push(&mut self, slot: usize, block_index: usize, value: f64) {
+        let v = &mut self.per_slot[slot];
+        v.resize(block_index, NO_CELL);
+        v.push(value);
+    }
+}
+
+/// The column line of a block: the next line with content after the
+/// heading on line `heading_line`.
+fn column_line<'a>(
+    lines: &mut impl Iterator<Item = (usize, &'a [u8])>,
+    heading_line: usize,
+    wavelength_nm: f64,
+) -> Result<(usize, &'a [u8])> {
+    lines
+        .find(|(_, l)| !fields::is_skippable(l, b','))
+        .ok_or_else(|| {
+            Error::structure(
+                heading_line,
+                format!(
+                    "the block for {wavelength_nm} nm ends after its heading: expected a line of column numbers (1–24) and rows A–P"
+                ),
+            )
+        })
+}
+
+/// The 0-based column of each field of the column line (line `line_no`,
+/// after the heading on line `heading_line`).
+fn column_numbers(
+    col_line: &[u8],
+    delim: u8,
+    line_no: usize,
+    heading_line: usize,
+) -> Result<Vec<usize>> {
+    let mut scratch: Vec<&[u8]> = Vec::new();
+    fields::split(col_line, delim, &mut scratch);
+    fields::trim_trailing_empty(&mut scratch);
+    let first_is_number = fields::number(scratch[0], false).is_ok();
+    let skip = usize::from(!first_is_number);
+    let mut columns: Vec<usize> = Vec::with_capacity(scratch.len());
+    for (i, f) in scratch.iter().enumerate().skip(skip) {
+        let c = fields::number(f, false)
+            .ok()
+            .filter(|c| c.fract().abs() < 1e-9 && (1.0..=MAX_COLUMNS as f64).contains(c))
+            .map(|c| c as usize - 1);
+        match c {
+            Some(c) if !columns.contains(&c) => columns.push(c),
+            Some(_) => {
+                return Err(Error::parse(
+                    line_no,
+                    i + 1,
+                    f,
+                    "each column number once in the line of column numbers",
+                ));
+            }
+            None => {
+                return Err(Error::parse(
+                    line_no,
+                    i + 1,
+                    f,
+                    format!(
+                        "a column number 1–24 (the line after the heading on line {heading_line} lists the columns)"
+                    ),
+                ));
+            }
+        }
+    }
+    if columns.is_empty() {
+        return Err(Error::structure(
+            line_no,
+            "no column numbers after the heading: expected a line such as `,1,2,3,...,12`",
+        ));
+    }
+    Ok(columns)
+}
+
+/// What reading the rows of one block needs.
+struct BlockReader<'r> {
+    columns: Vec<usize>,
+    delim: u8,
+    decimal_comma: bool,
+    reading: &'r Reading,
+    block_index: usize,
+    heading_line: usize,
+    wavelength_nm: f64,
+}
+
+impl BlockReader<'_> {
+    /// Read the rows of the block up to its first line that is not a row.
+    fn read_rows<'a, I>(
+        &self,
+        lines: &mut std::iter::Peekable<I>,
+        wells: &mut WellCells,
+    ) -> Result<GridBlock>
+    where
+        I: Iterator<Item = (usize, &'a [u8])>,
+    {
+        let mut block = GridBlock {
+            wavelength_nm: self.wavelength_nm,
+            heading_line: self.heading_line,
+            row_lines: [0; MAX_ROWS],
+            col_fields: [0; MAX_COLUMNS],
+            bad: Vec::new(),
+        };
+        for (k, &c) in self.columns.iter().enumerate() {
+            block.col_fields[c] = k + 1;
+        }
+        let mut scratch: Vec<&[u8]> = Vec::new();
+        let mut fast = [0.0f64; MAX_COLUMNS + 1];
+        while let Some(&(row_no, row_line)) = lines.peek() {
+            if fields::is_skippable(row_line, self.delim) {
+                break;
+            }
+            // Fast path: a row letter and plain decimals (the usual export).
+            if self.reading.quantity == Quantity::Absorbance
+                && let Some((letter, k)) = fast_row(row_line, self.delim, &mut fast)
+            {
+                let row = (letter.to_ascii_uppercase() - b'A') as usize;
+                if row < MAX_ROWS && block.row_lines[row] == 0 {
+                    block.row_lines[row] = row_no;
+                    lines.next();
+                    for (j, &c) in self.columns.iter().enumerate().take(k) {
+                        let slot = row * MAX_COLUMNS + c;
+                        wells.read[slot] = true;
+                        wells.push(slot, self.block_index, fast[j]);
+                    }
+                    continue;
+                }
+                // A bad or repeated row letter: the general path says so.
+            }
+            split_row(row_line, self.delim, &mut scratch);
+            let Some(row) = self.row_index(&scratch, row_no, &block)? else {
+                break; // not a row: the block has ended
+            };
+            block.row_lines[row] = row_no;
+            lines.next();
+            self.read_cells(&scratch, (row, row_no), &mut block, wells);
+        }
+        Ok(block)
+    }
+
+    /// The row of a split row line; `None` when the line is not a row.
+    fn row_index(
+        &self,
+        fields_: &[&[u8]],
+        row_no: usize,
+        block: &GridBlock,
+    ) -> Result<Option<usize>> {
+        let label = fields::text(fields_[0]);
+        let label = label.trim();
+        let row = match label.as_bytes() {
+            [b] if b.is_ascii_alphabetic() => (b.to_ascii_uppercase() - b'A') as usize,
+            _ => return Ok(None),
+        };
+        if row >= MAX_ROWS {
+            return Err(Error::parse(
+                row_no,
+                1,
+                label.as_bytes(),
+                "a row letter A–P",
+            ));
+        }
+        if block.row_lines[row] != 0 {
+            return Err(Error::structure(
+                row_no,
+                format!(
+                    "row {label} appears twice in the block for {} nm (heading on line {})",
+                    self.wavelength_nm, self.heading_line
+                ),
+            ));
+        }
+        Ok(Some(row))
+    }
+
+    /// Read the cells of row `row` (line `row_no`); bad cells are kept in
+    /// the block for a per-well error later.
+    fn read_cells(
+        &self,
+        fields_: &[&[u8]],
+        (row, row_no): (usize, usize),
+        block: &mut GridBlock,
+        wells: &mut WellCells,
+    ) {
+        for (k, &c) in self.columns.iter().enumerate() {
+            let field_index = k + 1;
+            let Some(raw) = fields_.get(field_index) else {
+                break; // short row: the remaining wells have no reading
+            };
+            let slot = row * MAX_COLUMNS + c;
+            let value = match cell(raw, self.decimal_comma, self.reading) {
+                Ok(Cell::Value(v)) => {
+                    wells.read[slot] = true;
+                    v
+                }
+                Ok(Cell::Saturated) => {
+                    wells.read[slot] = true;
+                    f64::INFINITY
+                }
+                Ok(Cell::Missing) => EMPTY_CELL,
+                Err(expected) => {
+                    wells.read[slot] = true;
+                    block.bad.push((
+                        slot,
+                        row_no,
+                        field_index + 1,
+                        crate::error::shorten(raw),
+                        expected,
+                    ));
+                    EMPTY_CELL
+                }
+            };
+            wells.push(slot, self.block_index, value);
+        }
+    }
 }
 
 /// Why well `slot` has no usable reading in block `b`.
@@ -823,236 +746,4 @@ fn assemble(
 }
 
 #[cfg(test)]
-mod tests {
-    use super::*;
-
-    fn parse(text: &str) -> Result<PlateSpectra> {
-        parse_grid(text.as_bytes(), 1, "p", &Reading::default())
-    }
-
-    #[test]
-    fn plain_headings_name_the_wavelength_in_each_form() {
-        for line in [
-            "450 nm",
-            "450nm,,,",
-            "Wavelength: 450 nm",
-            "wavelength = 450",
-            "λ = 450 nm",
-            "Lambda 450",
-        ] {
-            assert_eq!(plain_heading(line.as_bytes()), Some(450.0), "{line}");
-            assert!(heading(line.as_bytes()).is_some(), "{line}");
-        }
-        for line in [
-            "450",
-            ",1,2,3",
-            "A,0.1,0.2",
-            "Slit: 2 nm",
-            "sample,450 nm,460 nm",
-        ] {
-            assert_eq!(plain_heading(line.as_bytes()), None, "{line}");
-        }
-        let text = "Wavelength: 400 nm\n,1,2\nA,0.1,0.2\n\n410nm\n,1,2\nA,0.3,0.4\n";
-        let p = parse(text).unwrap();
-        assert_eq!(p.grid.as_ref().unwrap().wavelengths_nm(), [400.0, 410.0]);
-        assert_eq!(p.row(1), &[0.2, 0.4]);
-    }
-
-    #[test]
-    fn well_ids_are_read_and_printed() {
-        assert_eq!(Well::parse("A1"), Some(Well { row: 0, col: 0 }));
-        assert_eq!(Well::parse(" b012 "), Some(Well { row: 1, col: 11 }));
-        assert_eq!(Well::parse("P24").unwrap().to_string(), "P24");
-        assert_eq!(Well::parse("Q1"), None);
-        assert_eq!(Well::parse("A25"), None);
-        assert_eq!(Well::parse("A0"), None);
-        assert_eq!(Well::parse("lot-1"), None);
-        assert_eq!(Well::parse(""), None);
-    }
-
-    #[test]
-    fn headings_are_found_with_spaces_commas_and_quotes() {
-        let h = heading(b"plate=P1 wavelength_nm=450").unwrap();
-        assert_eq!(h.plate.as_deref(), Some("P1"));
-        assert!((h.wavelength_nm.unwrap() - 450.0).abs() < 1e-12);
-        let h = heading(b"plate = \"run 7\",wavelength_nm = 450.5,,,").unwrap();
-        assert_eq!(h.plate.as_deref(), Some("run 7"));
-        assert!((h.wavelength_nm.unwrap() - 450.5).abs() < 1e-12);
-        assert!(heading(b"Gain=100").is_none());
-        assert!(heading(b"A,0.1,0.2").is_none());
-        assert_eq!(
-            heading(b"wavelength_nm=abc").unwrap().wavelength_nm,
-            Err("abc".to_string())
-        );
-    }
-
-    #[test]
-    fn two_blocks_make_a_plate_with_metadata_and_trailing_cells_skipped() {
-        let text = "Reader export\nOperator: X\n\nwavelength_nm=500,,,\n,1,2,,\nA,0.5,0.6,,\nB,0.7,0.8\n\nTemperature: 25 C\nwavelength_nm=400\n,1,2\nA,0.1,0.2\nB,0.3,0.4\nend of read\n";
-        let p = parse(text).unwrap();
-        assert_eq!(p.grid.as_ref().unwrap().wavelengths_nm(), &[400.0, 500.0]);
-        assert_eq!(p.wells.len(), 4);
-        assert_eq!(p.wells[1].to_string(), "A2");
-        assert_eq!(p.row(1), &[0.2, 0.6]);
-        assert_eq!(p.row(3), &[0.4, 0.8]);
-        assert_eq!(p.format, PlateFormat::Wells96);
-        assert!(p.failures.is_empty());
-    }
-
-    #[test]
-    fn generic_and_user_named_overflow_markers_become_saturated_points() {
-        let text = "wavelength_nm=400\n,1,2,3,4\nA,Too High,>4,inf,0.5\nwavelength_nm=410\n,1,2,3,4\nA,1,1,1,1\n";
-        let reading = Reading {
-            quantity: Quantity::Absorbance,
-            overflow_markers: fields::OverflowMarkers::new(&["too high"]),
-        };
-        let p = parse_grid(text.as_bytes(), 1, "p", &reading).unwrap();
-        assert_eq!(p.wells.len(), 4);
-        for i in 0..3 {
-            assert!(p.row(i)[0].is_infinite(), "well {i}");
-            assert!((p.row(i)[1] - 1.0).abs() < 1e-12);
-        }
-        // Without the user's word it is an error naming the cell and the option.
-        let p = parse(text).unwrap();
-        let e = p.failures[0].error.to_string();
-        assert!(
-            e.starts_with("line 3, column 2 ('Too High')") && e.contains("--overflow-marker"),
-            "{e}"
-        );
-    }
-
-    #[test]
-    fn nan_and_garbled_cells_fail_only_their_well() {
-        let text = "wavelength_nm=400\n,1,2,3\nA,NaN,0.1a,0.2\n";
-        let p = parse(text).unwrap();
-        assert_eq!(p.wells.len(), 1);
-        assert_eq!(p.failures.len(), 2);
-        let e = p.failures[1].error.to_string();
-        assert!(e.starts_with("line 3, column 3 ('0.1a')"), "{e}");
-        assert!(e.contains("overflow marker"), "{e}");
-    }
-
-    #[test]
-    fn semicolon_grid_with_decimal_comma_is_read() {
-        let text = "wavelength_nm=400\n;1;2\nA;0,25;0,5\n";
-        let p = parse(text).unwrap();
-        assert_eq!(p.row(0), &[0.25]);
-        assert_eq!(p.row(1), &[0.5]);
-    }
-
-    #[test]
-    fn a_well_missing_from_one_block_fails_with_the_line() {
-        let text = "wavelength_nm=400\n,1,2\nA,0.1,0.2\nwavelength_nm=410\n,1,2\nA,0.1\n";
-        let p = parse(text).unwrap();
-        assert_eq!(p.wells.len(), 1);
-        assert_eq!(p.failures[0].label, "A2");
-        assert!(
-            p.failures[0].error.to_string().contains("line 4"),
-            "{}",
-            p.failures[0].error
-        );
-    }
-
-    #[test]
-    fn duplicate_wavelength_and_bad_column_numbers_are_errors() {
-        let e = parse("wavelength_nm=400\n,1\nA,1\nwavelength_nm=400\n,1\nA,1\n").unwrap_err();
-        assert!(e.to_string().contains("appears twice"), "{e}");
-        let e = parse("wavelength_nm=400\n,1,x\nA,1,2\n").unwrap_err();
-        assert_eq!(
-            e.to_string(),
-            "line 2, column 3 ('x'): expected a column number 1–24 (the line after the heading on line 1 lists the columns)"
-        );
-        let e = parse("wavelength_nm=4OO\n,1\nA,1\n").unwrap_err();
-        assert!(e.to_string().starts_with("line 1 ('4OO')"), "{e}");
-    }
-
-    #[test]
-    fn plain_decimals_parse_exactly_as_the_standard_library_does() {
-        // Rust's str::parse::<f64> is correctly rounded: the reference.
-        let mut x: u64 = 12345;
-        for _ in 0..20_000 {
-            x = x
-                .wrapping_mul(6364136223846793005)
-                .wrapping_add(1442695040888963407);
-            let int = (x >> 40) % 100_000;
-            let frac_digits = ((x >> 20) % 9) as usize;
-            let frac = (x >> 8) % 10u64.pow(frac_digits as u32).max(1);
-            let text = if frac_digits == 0 {
-                format!("{int}")
-            } else {
-                format!("{int}.{frac:0frac_digits$}")
-            };
-            for t in [text.clone(), format!("-{text}")] {
-                let want: f64 = t.parse().unwrap();
-                assert_eq!(
-                    plain_decimal(t.as_bytes()).map(f64::to_bits),
-                    Some(want.to_bits()),
-                    "{t}"
-                );
-            }
-        }
-        for t in [
-            "",
-            "-",
-            ".",
-            "1e3",
-            "1.2.3",
-            " 1",
-            "0,5",
-            "1234567890123456",
-        ] {
-            assert_eq!(plain_decimal(t.as_bytes()), None, "{t}");
-        }
-    }
-
-    #[test]
-    fn fast_rows_match_the_general_path_or_step_aside() {
-        let mut out = [0.0; MAX_COLUMNS + 1];
-        assert_eq!(
-            fast_row(b"B,0.5,-0.25,3,,", b',', &mut out),
-            Some((b'B', 3))
-        );
-        assert_eq!(&out[..3], &[0.5, -0.25, 3.0]);
-        for line in [
-            &b"B,0.5,OVER"[..],
-            b"B, 0.5",
-            b"B,0.5,,0.7",
-            b"B,\"0.5\"",
-            b"AB,0.5",
-            b"B;0,5",
-            b"B,",
-            b"B,1e-3",
-            b"B,1234567890123456789012345",
-        ] {
-            assert_eq!(
-                fast_row(line, b',', &mut out),
-                None,
-                "{}",
-                String::from_utf8_lossy(line)
-            );
-        }
-        // Same plate either way: a file the fast path reads and one it does not.
-        let fast = parse("wavelength_nm=400\n,1,2\nA,0.1,0.2\nB,0.3,0.4\n").unwrap();
-        let slow = parse("wavelength_nm=400\n,1,2\nA, 0.1,0.2\nB,0.3 ,0.4\n").unwrap();
-        assert_eq!(fast.absorbance_au, slow.absorbance_au);
-        assert_eq!(fast.wells, slow.wells);
-    }
-
-    #[test]
-    fn a_384_well_grid_is_recognised() {
-        let mut text = String::from("wavelength_nm=400\n");
-        text.push_str(&(1..=24).map(|c| format!(",{c}")).collect::<String>());
-        text.push('\n');
-        for r in 0..16u8 {
-            text.push((b'A' + r) as char);
-            for _ in 0..24 {
-                text.push_str(",0.1");
-            }
-            text.push('\n');
-        }
-        let p = parse(&text).unwrap();
-        assert_eq!(p.wells.len(), 384);
-        assert_eq!(p.format, PlateFormat::Wells384);
-        assert_eq!(p.wells[383].to_string(), "P24");
-    }
-}
+mod tests;

@@ -20,7 +20,7 @@
 //! skipped. Any error in the map is fatal: a wrong map gives wrong results
 //! for every plate, so nothing is guessed.
 
-use super::fields::{self, Delimiter};
+use super::fields;
 use super::plate::Well;
 use crate::error::{Error, Result};
 use std::collections::HashMap;
@@ -114,44 +114,12 @@ impl PlateMap {
 pub fn read(bytes: &[u8]) -> Result<PlateMap> {
     let bytes = fields::strip_bom(bytes);
     let mut lines = fields::lines(bytes);
-    let mut header = None;
-    for (n, line) in lines.by_ref() {
-        let d = Delimiter::detect(line);
-        if !fields::is_skippable(line, d.byte()) {
-            header = Some((n, line, d));
-            break;
-        }
-    }
-    let Some((header_line, header_bytes, delimiter)) = header else {
+    let Some((header_line, header_bytes, delimiter)) = fields::first_content_line(&mut lines)
+    else {
         return Err(Error::Empty);
     };
     let delim = delimiter.byte();
-    let mut raw = Vec::new();
-    fields::split(header_bytes, delim, &mut raw);
-    fields::trim_trailing_empty(&mut raw);
-    let names: Vec<String> = raw
-        .iter()
-        .map(|f| fields::text(f).trim().to_ascii_lowercase())
-        .collect();
-    let find = |options: &[&str]| names.iter().position(|n| options.contains(&n.as_str()));
-    let (Some(c_well), Some(c_role)) = (find(&["well"]), find(&["role"])) else {
-        return Err(Error::structure(
-            header_line,
-            "plate map header: expected the columns `well,role` and optionally `sample,dilution,pathlength_cm,plate`",
-        ));
-    };
-    let c_sample = find(&["sample"]);
-    let c_dilution = find(&["dilution", "dilution_factor"]);
-    let c_path = find(&["pathlength_cm"]);
-    let c_plate = find(&["plate"]);
-    if let Some(i) = find(&["pathlength", "pathlength_mm"]) {
-        return Err(Error::parse(
-            header_line,
-            i + 1,
-            names[i].as_bytes(),
-            "`pathlength_cm` (the pathlength in cm)",
-        ));
-    }
+    let columns = MapColumns::find(header_bytes, delim, header_line)?;
     let decimal_comma = delimiter.allows_decimal_comma();
     let mut map = PlateMap::default();
     let mut fields_buf = Vec::new();
@@ -161,53 +129,12 @@ pub fn read(bytes: &[u8]) -> Result<PlateMap> {
             continue;
         }
         fields::split(line, delim, &mut fields_buf);
-        let get = |c: Option<usize>| -> String {
-            c.and_then(|c| fields_buf.get(c))
-                .map(|f| fields::text(f).trim().to_string())
-                .unwrap_or_default()
+        let row = MapRow {
+            line: n,
+            cells: &fields_buf,
+            decimal_comma,
         };
-        let well_text = get(Some(c_well));
-        let well = Well::parse(&well_text).ok_or_else(|| {
-            Error::parse(
-                n,
-                c_well + 1,
-                well_text.as_bytes(),
-                "a well such as A1 or P24",
-            )
-        })?;
-        let role_text = get(Some(c_role));
-        let role = Role::parse(&role_text).ok_or_else(|| {
-            Error::parse(
-                n,
-                c_role + 1,
-                role_text.as_bytes(),
-                "a role: blank, sample, standard or empty",
-            )
-        })?;
-        let positive = |c: Option<usize>, what: &str| -> Result<Option<f64>> {
-            let t = get(c);
-            if t.is_empty() {
-                return Ok(None);
-            }
-            match fields::number(t.as_bytes(), decimal_comma) {
-                Ok(v) if v > 0.0 => Ok(Some(v)),
-                _ => Err(Error::parse(n, c.map_or(0, |c| c + 1), t.as_bytes(), what)),
-            }
-        };
-        let dilution = positive(
-            c_dilution,
-            "a dilution factor, a positive number (10 = diluted tenfold), or an empty cell for 1",
-        )?
-        .unwrap_or(1.0);
-        let pathlength_cm = positive(
-            c_path,
-            "a pathlength in cm, a positive number, or an empty cell",
-        )?;
-        let sample = match get(c_sample) {
-            s if s.is_empty() && matches!(role, Role::Sample | Role::Standard) => well.to_string(),
-            s => s,
-        };
-        let plate = Some(get(c_plate)).filter(|p| !p.is_empty());
+        let (plate, well, entry) = row.parse(&columns)?;
         if let Some(first) = first_rows.insert((plate.clone(), well), n) {
             return Err(Error::structure(
                 n,
@@ -220,13 +147,6 @@ pub fn read(bytes: &[u8]) -> Result<PlateMap> {
                 ),
             ));
         }
-        let entry = MapEntry {
-            role,
-            sample,
-            dilution,
-            pathlength_cm,
-            line: n,
-        };
         match plate {
             Some(p) => {
                 map.plates.entry(p).or_default().insert(well, entry);
@@ -243,6 +163,131 @@ pub fn read(bytes: &[u8]) -> Result<PlateMap> {
         ));
     }
     Ok(map)
+}
+
+/// Where each column of a plate map is (0-based).
+struct MapColumns {
+    well: usize,
+    role: usize,
+    sample: Option<usize>,
+    dilution: Option<usize>,
+    pathlength: Option<usize>,
+    plate: Option<usize>,
+}
+
+impl MapColumns {
+    /// Find the columns in the header line `header` (line `line`).
+    fn find(header: &[u8], delim: u8, line: usize) -> Result<Self> {
+        let mut raw = Vec::new();
+        fields::split(header, delim, &mut raw);
+        fields::trim_trailing_empty(&mut raw);
+        let names: Vec<String> = raw
+            .iter()
+            .map(|f| fields::text(f).trim().to_ascii_lowercase())
+            .collect();
+        let find = |options: &[&str]| names.iter().position(|n| options.contains(&n.as_str()));
+        let (Some(well), Some(role)) = (find(&["well"]), find(&["role"])) else {
+            return Err(Error::structure(
+                line,
+                "plate map header: expected the columns `well,role` and optionally `sample,dilution,pathlength_cm,plate`",
+            ));
+        };
+        if let Some(i) = find(&["pathlength", "pathlength_mm"]) {
+            return Err(Error::parse(
+                line,
+                i + 1,
+                names[i].as_bytes(),
+                "`pathlength_cm` (the pathlength in cm)",
+            ));
+        }
+        Ok(Self {
+            well,
+            role,
+            sample: find(&["sample"]),
+            dilution: find(&["dilution", "dilution_factor"]),
+            pathlength: find(&["pathlength_cm"]),
+            plate: find(&["plate"]),
+        })
+    }
+}
+
+/// The fields of one plate-map row, with its line number.
+struct MapRow<'r, 'a> {
+    line: usize,
+    cells: &'r [&'a [u8]],
+    decimal_comma: bool,
+}
+
+impl MapRow<'_, '_> {
+    /// The trimmed text of column `c`; empty when absent.
+    fn get(&self, c: Option<usize>) -> String {
+        c.and_then(|c| self.cells.get(c))
+            .map(|f| fields::text(f).trim().to_string())
+            .unwrap_or_default()
+    }
+
+    /// A positive number in column `c`; `None` when empty.
+    fn positive(&self, c: Option<usize>, what: &str) -> Result<Option<f64>> {
+        let t = self.get(c);
+        if t.is_empty() {
+            return Ok(None);
+        }
+        match fields::number(t.as_bytes(), self.decimal_comma) {
+            Ok(v) if v > 0.0 => Ok(Some(v)),
+            _ => Err(Error::parse(
+                self.line,
+                c.map_or(0, |c| c + 1),
+                t.as_bytes(),
+                what,
+            )),
+        }
+    }
+
+    /// The row's plate (if named), well and entry.
+    fn parse(&self, columns: &MapColumns) -> Result<(Option<String>, Well, MapEntry)> {
+        let n = self.line;
+        let well_text = self.get(Some(columns.well));
+        let well = Well::parse(&well_text).ok_or_else(|| {
+            Error::parse(
+                n,
+                columns.well + 1,
+                well_text.as_bytes(),
+                "a well such as A1 or P24",
+            )
+        })?;
+        let role_text = self.get(Some(columns.role));
+        let role = Role::parse(&role_text).ok_or_else(|| {
+            Error::parse(
+                n,
+                columns.role + 1,
+                role_text.as_bytes(),
+                "a role: blank, sample, standard or empty",
+            )
+        })?;
+        let dilution = self
+            .positive(
+                columns.dilution,
+                "a dilution factor, a positive number (10 = diluted tenfold), or an empty cell for 1",
+            )?
+            .unwrap_or(1.0);
+        let pathlength_cm = self.positive(
+            columns.pathlength,
+            "a pathlength in cm, a positive number, or an empty cell",
+        )?;
+        let sample = match self.get(columns.sample) {
+            s if s.is_empty() && matches!(role, Role::Sample | Role::Standard) => well.to_string(),
+            s => s,
+        };
+        let plate = Some(self.get(columns.plate)).filter(|p| !p.is_empty());
+        let entry = MapEntry {
+            role,
+            sample,
+            dilution,
+            pathlength_cm,
+            line: n,
+        };
+        Ok((plate, well, entry))
+    }
 }
 
 #[cfg(test)]

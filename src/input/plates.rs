@@ -148,118 +148,145 @@ pub fn split_id(id: &str) -> (Option<&str>, &str) {
 /// their identifier (or all belong to `default_name`), in order of first
 /// appearance. `shift` moves line numbers in messages.
 fn from_spectra(default_name: &str, file: spectra::SpectraFile, shift: usize) -> Vec<PlateSpectra> {
-    struct Entry {
-        position: usize,
-        well: std::result::Result<Well, Error>,
-        label: String,
-        /// Block and row, or the read error.
-        source: std::result::Result<(usize, usize), Error>,
+    let mut groups = PlateGroups {
+        default_name,
+        order: Vec::new(),
+        by_plate: HashMap::new(),
+    };
+    for (b, block) in file.blocks.iter().enumerate() {
+        for (i, id) in block.ids.iter().enumerate() {
+            groups.add(id, block.positions[i], Ok((b, i)));
+        }
     }
-    let mut order: Vec<String> = Vec::new();
-    let mut groups: HashMap<String, Vec<Entry>> = HashMap::new();
-    let mut add = |id: &str,
-                   position: usize,
-                   source: std::result::Result<(usize, usize), Error>| {
+    for f in file.failures {
+        groups.add(&f.sample, f.position, Err(shift_lines(f.error, shift)));
+    }
+    let PlateGroups {
+        order,
+        mut by_plate,
+        ..
+    } = groups;
+    order
+        .into_iter()
+        .map(|name| {
+            let entries = by_plate.remove(&name).unwrap_or_default();
+            plate_of(name, entries, &file.blocks)
+        })
+        .collect()
+}
+
+/// One sample of a read spectra file, on its way into a plate.
+struct Entry {
+    position: usize,
+    well: std::result::Result<Well, Error>,
+    label: String,
+    /// Block and row, or the read error.
+    source: std::result::Result<(usize, usize), Error>,
+}
+
+/// Samples grouped by plate, plates in order of first appearance.
+struct PlateGroups<'d> {
+    default_name: &'d str,
+    order: Vec<String>,
+    by_plate: HashMap<String, Vec<Entry>>,
+}
+
+impl PlateGroups<'_> {
+    fn add(
+        &mut self,
+        id: &str,
+        position: usize,
+        source: std::result::Result<(usize, usize), Error>,
+    ) {
         let (plate, well_text) = split_id(id);
-        let plate = plate.unwrap_or(default_name).to_string();
+        let plate = plate.unwrap_or(self.default_name).to_string();
         let well = Well::parse(well_text).ok_or_else(|| {
             Error::Invalid(format!(
                 "sample '{}': expected a well such as A1 or P24, or plate and well such as plate1:B12, as the sample identifier",
                 crate::error::shorten(id.as_bytes())
             ))
         });
-        if !groups.contains_key(&plate) {
-            order.push(plate.clone());
+        if !self.by_plate.contains_key(&plate) {
+            self.order.push(plate.clone());
         }
-        groups.entry(plate).or_default().push(Entry {
+        self.by_plate.entry(plate).or_default().push(Entry {
             position,
             well,
             label: well_text.to_string(),
             source,
         });
-    };
-    for (b, block) in file.blocks.iter().enumerate() {
-        for (i, id) in block.ids.iter().enumerate() {
-            add(id, block.positions[i], Ok((b, i)));
+    }
+}
+
+/// The block holding most of a plate's wells: the plate's grid.
+fn main_block(entries: &[Entry]) -> Option<usize> {
+    let mut count: HashMap<usize, usize> = HashMap::new();
+    for e in entries {
+        if let Ok((b, _)) = e.source {
+            *count.entry(b).or_default() += 1;
         }
     }
-    for f in file.failures {
-        add(
-            &f.sample.clone(),
-            f.position,
-            Err(shift_lines(f.error, shift)),
-        );
-    }
-    let mut plates = Vec::new();
-    for name in order {
-        let mut entries = groups.remove(&name).unwrap_or_default();
-        entries.sort_by_key(|e| e.position);
-        // The plate's grid: the block holding most of its wells.
-        let mut count: HashMap<usize, usize> = HashMap::new();
-        for e in &entries {
-            if let Ok((b, _)) = e.source {
-                *count.entry(b).or_default() += 1;
+    count
+        .iter()
+        .max_by_key(|(b, c)| (**c, std::cmp::Reverse(**b)))
+        .map(|(b, _)| *b)
+}
+
+/// Plate `name` from its samples: wells on the main grid are read, the
+/// others become failures that say why.
+fn plate_of(name: String, mut entries: Vec<Entry>, blocks: &[spectra::Block]) -> PlateSpectra {
+    entries.sort_by_key(|e| e.position);
+    let main = main_block(&entries);
+    let mut wells = Vec::new();
+    let mut values = Vec::new();
+    let mut failures = Vec::new();
+    let mut seen: HashSet<Well> = HashSet::new();
+    for e in entries {
+        let failure = |error: Error| WellFailure {
+            well: e.well.as_ref().ok().copied(),
+            label: e.label.clone(),
+            error,
+        };
+        let (w, b, i) = match (&e.well, e.source) {
+            (_, Err(error)) => {
+                failures.push(failure(error));
+                continue;
             }
+            (Err(error), _) => {
+                failures.push(failure(Error::Invalid(error.to_string())));
+                continue;
+            }
+            (Ok(w), Ok((b, i))) => (*w, b, i),
+        };
+        if Some(b) != main {
+            let g = &blocks[b].grid;
+            failures.push(failure(Error::Invalid(format!(
+                "well {w}: its wavelengths ({} points, {}–{} nm) differ from the rest of plate '{name}': every well of a plate must share one grid",
+                g.len(),
+                g.min_nm(),
+                g.max_nm()
+            ))));
+            continue;
         }
-        let main = count
-            .iter()
-            .max_by_key(|(b, c)| (**c, std::cmp::Reverse(**b)))
-            .map(|(b, _)| *b);
-        let mut wells = Vec::new();
-        let mut values = Vec::new();
-        let mut failures = Vec::new();
-        let mut seen: HashSet<Well> = HashSet::new();
-        for e in entries {
-            let failure = |error: Error| WellFailure {
-                well: e.well.as_ref().ok().copied(),
-                label: e.label.clone(),
-                error,
-            };
-            let well = match (&e.well, e.source) {
-                (_, Err(error)) => {
-                    failures.push(failure(error));
-                    continue;
-                }
-                (Err(error), _) => {
-                    failures.push(failure(Error::Invalid(error.to_string())));
-                    continue;
-                }
-                (Ok(w), Ok((b, i))) => {
-                    if Some(b) != main {
-                        let g = &file.blocks[b].grid;
-                        failures.push(failure(Error::Invalid(format!(
-                            "well {w}: its wavelengths ({} points, {}–{} nm) differ from the rest of plate '{name}': every well of a plate must share one grid",
-                            g.len(),
-                            g.min_nm(),
-                            g.max_nm()
-                        ))));
-                        continue;
-                    }
-                    if !seen.insert(*w) {
-                        failures.push(failure(Error::Invalid(format!(
-                            "well {w} appears twice in plate '{name}': the second is not used"
-                        ))));
-                        continue;
-                    }
-                    values.extend_from_slice(file.blocks[b].row(i));
-                    *w
-                }
-            };
-            wells.push(well);
+        if !seen.insert(w) {
+            failures.push(failure(Error::Invalid(format!(
+                "well {w} appears twice in plate '{name}': the second is not used"
+            ))));
+            continue;
         }
-        let mut all = wells.clone();
-        all.extend(failures.iter().filter_map(|f| f.well));
-        let grid = main.map(|b| file.blocks[b].grid.clone());
-        plates.push(PlateSpectra {
-            name: name.clone(),
-            format: PlateFormat::holding(&all),
-            grid,
-            wells,
-            absorbance_au: values,
-            failures,
-        });
+        values.extend_from_slice(blocks[b].row(i));
+        wells.push(w);
     }
-    plates
+    let mut all = wells.clone();
+    all.extend(failures.iter().filter_map(|f| f.well));
+    PlateSpectra {
+        name,
+        format: PlateFormat::holding(&all),
+        grid: main.map(|b| blocks[b].grid.clone()),
+        wells,
+        absorbance_au: values,
+        failures,
+    }
 }
 
 #[derive(Debug)]
@@ -325,52 +352,70 @@ impl<R: Read> PlateStream<R> {
             ready: VecDeque::new(),
             last_plate_bytes: 0,
         };
-        s.fill()?;
-        if s.buf.starts_with(b"\xEF\xBB\xBF") {
-            s.buf.drain(..3);
-        }
-        if s.buf.iter().all(|b| b.is_ascii_whitespace()) && s.eof {
-            return Err(Error::Empty);
-        }
-        while !s.eof && s.buf.len() < CHUNK_BYTES {
-            s.fill()?;
-        }
-        let probe_end = s.buf.len().min(CHUNK_BYTES);
-        let is_grid = fields::lines(&s.buf[..probe_end]).any(|(_, l)| plate::heading(l).is_some());
-        if is_grid {
+        if s.probe_is_grid()? {
             s.layout = InputLayout::PlateGrid;
             return Ok(s);
         }
-        // Wide or long: the first line with content is the header.
+        let header_line = s.take_header(reading)?;
+        if s.layout == InputLayout::Long {
+            s.read_long(reading, header_line)?;
+        }
+        Ok(s)
+    }
+
+    /// Read the first chunk (BOM dropped) and say whether it holds a
+    /// plate-grid heading.
+    fn probe_is_grid(&mut self) -> Result<bool> {
+        self.fill()?;
+        if self.buf.starts_with(b"\xEF\xBB\xBF") {
+            self.buf.drain(..3);
+        }
+        if self.buf.iter().all(|b| b.is_ascii_whitespace()) && self.eof {
+            return Err(Error::Empty);
+        }
+        while !self.eof && self.buf.len() < CHUNK_BYTES {
+            self.fill()?;
+        }
+        let probe_end = self.buf.len().min(CHUNK_BYTES);
+        Ok(fields::lines(&self.buf[..probe_end]).any(|(_, l)| plate::heading(l).is_some()))
+    }
+
+    /// Drop the lines without content before the header.
+    fn skip_to_header(&mut self) -> Result<()> {
         loop {
-            if let Some(end) = memchr::memchr(b'\n', &s.buf) {
-                let line = &s.buf[..end];
+            if let Some(end) = memchr::memchr(b'\n', &self.buf) {
+                let line = &self.buf[..end];
                 let line = line.strip_suffix(b"\r").unwrap_or(line);
                 let d = Delimiter::detect(line);
                 if fields::is_skippable(line, d.byte()) {
-                    s.buf.drain(..=end);
-                    s.buf_line += 1;
+                    self.buf.drain(..=end);
+                    self.buf_line += 1;
                     continue;
                 }
-                break;
+                return Ok(());
             }
-            if s.eof {
-                break;
+            if self.eof {
+                return Ok(());
             }
-            s.fill()?;
+            self.fill()?;
         }
-        let end = memchr::memchr(b'\n', &s.buf).unwrap_or(s.buf.len());
-        let header = s.buf[..end]
+    }
+
+    /// Wide or long: the first line with content is the header. Classify
+    /// it with the spectra parser on the header and the next line, keep
+    /// it, and return its line number.
+    fn take_header(&mut self, reading: &plate::Reading) -> Result<usize> {
+        self.skip_to_header()?;
+        let end = memchr::memchr(b'\n', &self.buf).unwrap_or(self.buf.len());
+        let header = self.buf[..end]
             .strip_suffix(b"\r")
-            .unwrap_or(&s.buf[..end])
+            .unwrap_or(&self.buf[..end])
             .to_vec();
-        let header_line = s.buf_line;
-        // Classify with the spectra parser on the header and the next line.
-        let probe_len = memchr::memchr(b'\n', &s.buf[(end + 1).min(s.buf.len())..])
+        let header_line = self.buf_line;
+        let probe_len = memchr::memchr(b'\n', &self.buf[(end + 1).min(self.buf.len())..])
             .map(|i| end + 1 + i)
-            .unwrap_or(s.buf.len());
-        let probe = s.buf[..probe_len].to_vec();
-        let layout = match spectra::read(&probe, reading.read_options()) {
+            .unwrap_or(self.buf.len());
+        let layout = match spectra::read(&self.buf[..probe_len], reading.read_options()) {
             Ok(f) => f.layout,
             Err(e) => {
                 let e = shift_lines(e, header_line - 1);
@@ -385,36 +430,38 @@ impl<R: Read> PlateStream<R> {
                 )));
             }
         };
-        s.delimiter = Delimiter::detect(&header);
-        s.buf.drain(..(end + 1).min(s.buf.len()));
-        s.buf_line += 1;
-        s.header = Some(Arc::new(header));
-        s.layout = match layout {
+        self.delimiter = Delimiter::detect(&header);
+        self.buf.drain(..(end + 1).min(self.buf.len()));
+        self.buf_line += 1;
+        self.header = Some(Arc::new(header));
+        self.layout = match layout {
             Layout::Wide => InputLayout::Wide,
             _ => InputLayout::Long,
         };
-        if s.layout == InputLayout::Long {
-            // Read whole: a sample's rows may be anywhere.
-            while !s.eof {
-                s.fill()?;
-            }
-            let mut text = Vec::with_capacity(s.buf.len() + 1024);
-            text.extend(std::iter::repeat_n(b'\n', header_line - 1));
-            text.extend_from_slice(s.header.as_deref().map_or(&[][..], |h| h.as_slice()));
-            text.push(b'\n');
-            text.append(&mut s.buf);
-            let file = spectra::read(&text, reading.read_options())?;
-            drop(text);
-            let stem = s.stem.clone();
-            for p in from_spectra(&stem, file, 0) {
-                s.ready.push_back(RawPlate {
-                    name: p.name.clone(),
-                    first_line: header_line,
-                    kind: RawKind::Parsed(Box::new(p)),
-                });
-            }
+        Ok(header_line)
+    }
+
+    /// The long layout is read whole (a sample's rows may be anywhere) and
+    /// its plates queued.
+    fn read_long(&mut self, reading: &plate::Reading, header_line: usize) -> Result<()> {
+        while !self.eof {
+            self.fill()?;
         }
-        Ok(s)
+        let mut text = Vec::with_capacity(self.buf.len() + 1024);
+        text.extend(std::iter::repeat_n(b'\n', header_line - 1));
+        text.extend_from_slice(self.header.as_deref().map_or(&[][..], |h| h.as_slice()));
+        text.push(b'\n');
+        text.append(&mut self.buf);
+        let file = spectra::read(&text, reading.read_options())?;
+        drop(text);
+        for p in from_spectra(&self.stem, file, 0) {
+            self.ready.push_back(RawPlate {
+                name: p.name.clone(),
+                first_line: header_line,
+                kind: RawKind::Parsed(Box::new(p)),
+            });
+        }
+        Ok(())
     }
 
     /// The reader, given back (to finish a checksum, say).
@@ -694,171 +741,4 @@ impl<R: Read> PlateStream<R> {
 }
 
 #[cfg(test)]
-mod tests {
-    use super::*;
-    use crate::input::plate::Reading;
-
-    fn plates(text: &str) -> Vec<(String, Result<PlateSpectra>)> {
-        let mut s = PlateStream::open(text.as_bytes(), "run", &Reading::default()).unwrap();
-        let mut out = Vec::new();
-        while let Some(p) = s.next_plate().unwrap() {
-            out.push((p.name.clone(), p.parse(&Reading::default())));
-        }
-        out
-    }
-
-    #[test]
-    fn unnamed_grid_plates_split_where_a_wavelength_repeats() {
-        let block = |w: u32, v: f64| format!("wavelength_nm={w}\n,1,2\nA,{v},{v}\n\n");
-        let text = format!(
-            "export\n{}{}{}{}",
-            block(400, 0.1),
-            block(410, 0.2),
-            block(400, 0.3),
-            block(410, 0.4)
-        );
-        let p = plates(&text);
-        assert_eq!(p.len(), 2);
-        assert_eq!(p[0].0, "run");
-        assert_eq!(p[1].0, "run-2");
-        let second = p[1].1.as_ref().unwrap();
-        assert_eq!(second.row(0), &[0.3, 0.4]);
-    }
-
-    #[test]
-    fn named_grid_plates_and_a_plate_that_comes_back() {
-        let text = "plate=P1 wavelength_nm=400\n,1\nA,0.1\nplate=P2 wavelength_nm=400\n,1\nA,0.2\nplate=P1 wavelength_nm=410\n,1\nA,0.3\n";
-        let p = plates(text);
-        assert_eq!(p.len(), 3);
-        assert_eq!(p[1].0, "P2");
-        let e = p[2].1.as_ref().unwrap_err().to_string();
-        assert!(e.starts_with("line 7: plate 'P1' appears again"), "{e}");
-    }
-
-    #[test]
-    fn wide_rows_split_by_plate_prefix_with_file_line_numbers() {
-        let text = "sample,400,410\nP1:A1,0.1,0.2\nP1:A2,0.1,0.2\nP2:A1,0.3,x\nP2:A2,0.3,0.4\n";
-        let p = plates(text);
-        assert_eq!(p.len(), 2);
-        let p2 = p[1].1.as_ref().unwrap();
-        assert_eq!(p2.name, "P2");
-        assert_eq!(p2.wells.len(), 1);
-        assert_eq!(
-            p2.failures[0].error.to_string(),
-            "line 4, column 3 ('x'): expected an absorbance (a number) or an overflow marker (>N, inf; if your instrument prints 'x' for a reading above its range, name it with --overflow-marker)"
-        );
-    }
-
-    #[test]
-    fn bare_wells_repeat_to_start_the_next_plate() {
-        let text = "sample,400,410\nA1,0.1,0.2\nA2,0.1,0.2\nA1,0.3,0.4\nlot-1,1,1\n";
-        let p = plates(text);
-        assert_eq!(p.len(), 2);
-        let p2 = p[1].1.as_ref().unwrap();
-        assert_eq!(p2.name, "run-2");
-        assert_eq!(p2.wells.len(), 1);
-        assert!(p2.failures[0].error.to_string().contains("expected a well"));
-    }
-
-    #[test]
-    fn long_files_are_grouped_by_plate() {
-        let text = "sample,wavelength_nm,absorbance\nP1:A1,400,0.1\nP2:B3,400,0.2\nP1:A1,410,0.3\nP2:B3,410,0.4\n";
-        let p = plates(text);
-        assert_eq!(p.len(), 2);
-        let p2 = p[1].1.as_ref().unwrap();
-        assert_eq!(p2.wells[0].to_string(), "B3");
-        assert_eq!(p2.row(0), &[0.2, 0.4]);
-    }
-
-    #[test]
-    fn arbitrary_text_never_panics() {
-        // Seeded random texts from the layouts' own pieces: every outcome
-        // must be a value or an error, never a panic.
-        const PIECES: [&str; 22] = [
-            "wavelength_nm=",
-            "plate=",
-            "400",
-            "401.5",
-            "-1",
-            "1e9",
-            ",",
-            ";",
-            "\t",
-            "\n",
-            "\r\n",
-            "A",
-            "P",
-            "Q",
-            "OVER",
-            ">4",
-            "NaN",
-            "\"",
-            "sample",
-            "wavelength_nm",
-            "absorbance",
-            ":A1",
-        ];
-        let mut x: u64 = 0x5eed;
-        for _ in 0..3000 {
-            let mut text = String::new();
-            x = x.wrapping_mul(6364136223846793005).wrapping_add(1);
-            let len = (x >> 58) as usize + 1;
-            for _ in 0..len * 4 {
-                x = x
-                    .wrapping_mul(6364136223846793005)
-                    .wrapping_add(1442695040888963407);
-                text.push_str(PIECES[(x >> 33) as usize % PIECES.len()]);
-            }
-            if let Ok(mut s) = PlateStream::open_with(text.as_bytes(), "r", &Reading::default(), 7)
-            {
-                while let Ok(Some(p)) = s.next_plate() {
-                    let _ = p.parse(&Reading::default());
-                }
-            }
-            let _ = crate::input::platemap::read(text.as_bytes());
-        }
-        // A valid plate with a few bytes changed.
-        let base = b"plate=P wavelength_nm=400\n,1,2,3\nA,0.1,0.2,0.3\nB,0.4,OVER,0.6\n\nwavelength_nm=410\n,1,2,3\nA,0.1,0.2,0.3\nB,0.4,0.5,0.6\n";
-        let alphabet = b"0123456789.,;-=\n\rABPQ\" >e";
-        for _ in 0..3000 {
-            let mut text = base.to_vec();
-            for _ in 0..4 {
-                x = x
-                    .wrapping_mul(6364136223846793005)
-                    .wrapping_add(1442695040888963407);
-                let at = (x >> 33) as usize % text.len();
-                text[at] = alphabet[(x >> 20) as usize % alphabet.len()];
-            }
-            if let Ok(mut s) = PlateStream::open_with(&text[..], "r", &Reading::default(), 5) {
-                while let Ok(Some(p)) = s.next_plate() {
-                    let _ = p.parse(&Reading::default());
-                }
-            }
-        }
-    }
-
-    #[test]
-    fn small_chunks_give_the_same_plates() {
-        struct Trickle<'a>(&'a [u8]);
-        impl Read for Trickle<'_> {
-            fn read(&mut self, out: &mut [u8]) -> std::io::Result<usize> {
-                let k = self.0.len().min(7).min(out.len());
-                out[..k].copy_from_slice(&self.0[..k]);
-                self.0 = &self.0[k..];
-                Ok(k)
-            }
-        }
-        let text = "plate=P1 wavelength_nm=400\n,1,2\nA,0.1,0.2\nplate=P1 wavelength_nm=410\n,1,2\nA,0.3,0.4\nplate=P2 wavelength_nm=400\n,1,2\nA,0.5,0.6";
-        let mut s =
-            PlateStream::open_with(Trickle(text.as_bytes()), "x", &Reading::default(), 5).unwrap();
-        let mut names = Vec::new();
-        while let Some(p) = s.next_plate().unwrap() {
-            let name = p.name.clone();
-            let spectra = p.parse(&Reading::default()).unwrap();
-            names.push((name, spectra.absorbance_au));
-        }
-        assert_eq!(names.len(), 2);
-        assert_eq!(names[0].1, vec![0.1, 0.3, 0.2, 0.4]);
-        assert_eq!(names[1].1, vec![0.5, 0.6]);
-    }
-}
+mod tests;
