@@ -123,14 +123,15 @@ fn write_table(d: &Discovery, path: &std::path::Path, w: &mut dyn Write) -> std:
         still,
         d.samples.len()
     )?;
-    let mut rows = vec![vec![
+    let header = vec![
         "sample".to_string(),
         "peak absorbance (AU)".into(),
         "as-if conc. (µmol/L)".into(),
         "residual before (mAU)".into(),
         "after (mAU)".into(),
         "still flagged".into(),
-    ]];
+    ];
+    let mut rows = Vec::new();
     for s in &d.samples {
         rows.push(vec![
             s.sample.clone(),
@@ -141,32 +142,7 @@ fn write_table(d: &Discovery, path: &std::path::Path, w: &mut dyn Write) -> std:
             if s.flagged_after { "yes" } else { "no" }.into(),
         ]);
     }
-    let ncol = rows[0].len();
-    let mut width = vec![0; ncol];
-    for r in &rows {
-        for (i, c) in r.iter().enumerate() {
-            width[i] = width[i].max(c.chars().count());
-        }
-    }
-    for (k, r) in rows.iter().enumerate() {
-        let cells: Vec<String> = r
-            .iter()
-            .enumerate()
-            .map(|(i, c)| {
-                let pad = " ".repeat(width[i] - c.chars().count());
-                if i == 0 {
-                    format!("{c}{pad}")
-                } else {
-                    format!("{pad}{c}")
-                }
-            })
-            .collect();
-        writeln!(w, "{}", cells.join("  ").trim_end())?;
-        if k == 0 {
-            let rule: Vec<String> = width.iter().map(|n| "-".repeat(*n)).collect();
-            writeln!(w, "{}", rule.join("  "))?;
-        }
-    }
+    crate::output::text::write_numbers_table(w, &header, &rows, true)?;
     for [s, why] in &d.left_out {
         writeln!(w, "left out: {s}: {why}")?;
     }

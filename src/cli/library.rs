@@ -373,7 +373,8 @@ fn emission_limits_table(l: &[crate::emission::limits::ComponentLimits], a: &Che
         .iter()
         .filter_map(|c| c.emission_lod_mol_per_l)
         .fold(f64::INFINITY, f64::min);
-    let (label, f) = concentration_unit(if typical.is_finite() { typical } else { 1e-9 });
+    let (label, f) =
+        output::library::concentration_unit(if typical.is_finite() { typical } else { 1e-9 });
     let v = |x: Option<f64>| x.map_or("-".into(), |x| format!("{:.4}", x * f));
     let mut out = format!(
         "\nemission at excitation {} nm, noise {} per reading, vs absorbance (noise {} AU, {} cm); {label}:\n{:<20} {:>14} {:>14} {:>14} {:>14}\n",
@@ -398,19 +399,4 @@ fn emission_limits_table(l: &[crate::emission::limits::ComponentLimits], a: &Che
         ));
     }
     out
-}
-
-/// A display unit for concentrations of about `typical` mol/L.
-fn concentration_unit(typical: f64) -> (&'static str, f64) {
-    for (label, factor) in [
-        ("mol/L", 1.0),
-        ("mmol/L", 1e3),
-        ("µmol/L", 1e6),
-        ("nmol/L", 1e9),
-    ] {
-        if typical * factor >= 0.1 {
-            return (label, factor);
-        }
-    }
-    ("nmol/L", 1e9)
 }

@@ -175,7 +175,7 @@ pub fn peak(c: &Component) -> (f64, f64) {
 }
 
 /// A display unit for concentrations of about `typical` mol/L.
-fn concentration_unit(typical: f64) -> (&'static str, f64) {
+pub fn concentration_unit(typical: f64) -> (&'static str, f64) {
     for (label, factor) in [
         ("mol/L", 1.0),
         ("mmol/L", 1e3),

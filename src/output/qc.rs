@@ -30,7 +30,7 @@ pub fn write_qc(report: &FitReport, unit: &DisplayUnit, w: &mut dyn Write) -> io
     } else {
         writeln!(w, "\ncolour of each solution:")?;
     }
-    aligned(w, &header, &rows)?;
+    super::text::write_numbers_table(w, &header, &rows, false)?;
     if let Some(c) = fitted.iter().find_map(|(_, s)| s.colour.as_ref()) {
         writeln!(
             w,
@@ -139,32 +139,6 @@ fn write_reasons_and_corrections(
         if let Some(n) = &s.colour_note {
             writeln!(w, "  {sample}: {n}")?;
         }
-    }
-    Ok(())
-}
-
-/// Left-aligned first column, right-aligned numbers, two spaces apart.
-fn aligned(w: &mut dyn Write, header: &[String], rows: &[Vec<String>]) -> io::Result<()> {
-    let mut width = vec![0usize; header.len()];
-    for r in std::iter::once(header).chain(rows.iter().map(|r| r.as_slice())) {
-        for (i, cell) in r.iter().enumerate() {
-            width[i] = width[i].max(cell.chars().count());
-        }
-    }
-    for r in std::iter::once(header).chain(rows.iter().map(|r| r.as_slice())) {
-        let cells: Vec<String> = r
-            .iter()
-            .enumerate()
-            .map(|(i, c)| {
-                let pad = " ".repeat(width[i] - c.chars().count());
-                if i == 0 {
-                    format!("{c}{pad}")
-                } else {
-                    format!("{pad}{c}")
-                }
-            })
-            .collect();
-        writeln!(w, "{}", cells.join("  ").trim_end())?;
     }
     Ok(())
 }

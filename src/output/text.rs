@@ -39,6 +39,44 @@ pub fn format_aligned(rows: &[Vec<String>]) -> String {
     out
 }
 
+/// Write a header and rows as a table of numbers: the first column
+/// left-aligned, the others right-aligned, two spaces apart; `rule` adds a
+/// line of dashes under the header.
+pub fn write_numbers_table(
+    w: &mut (impl std::io::Write + ?Sized),
+    header: &[String],
+    rows: &[Vec<String>],
+    rule: bool,
+) -> std::io::Result<()> {
+    let all = || std::iter::once(header).chain(rows.iter().map(Vec::as_slice));
+    let mut width = vec![0usize; header.len()];
+    for r in all() {
+        for (i, cell) in r.iter().enumerate() {
+            width[i] = width[i].max(cell.chars().count());
+        }
+    }
+    for (k, r) in all().enumerate() {
+        let cells: Vec<String> = r
+            .iter()
+            .enumerate()
+            .map(|(i, c)| {
+                let pad = " ".repeat(width[i] - c.chars().count());
+                if i == 0 {
+                    format!("{c}{pad}")
+                } else {
+                    format!("{pad}{c}")
+                }
+            })
+            .collect();
+        writeln!(w, "{}", cells.join("  ").trim_end())?;
+        if rule && k == 0 {
+            let dashes: Vec<String> = width.iter().map(|n| "-".repeat(*n)).collect();
+            writeln!(w, "{}", dashes.join("  "))?;
+        }
+    }
+    Ok(())
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
